@@ -1,0 +1,163 @@
+"""Command line: parses arguments and calls the public API.
+
+Exit codes: 0 success (non-converged fits are flagged in the output), 1 a problem with the user's
+data or files, 2 usage, 3 an engine or internal failure (message plus where the details were saved).
+"""
+from __future__ import annotations
+
+import argparse
+import sys
+import tempfile
+import time
+import traceback
+from pathlib import Path
+
+from .errors import EngineError, UserInputError
+
+EXIT_OK, EXIT_USER, EXIT_USAGE, EXIT_ENGINE = 0, 1, 2, 3
+
+
+def _parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(prog="leafcv", description=__doc__.splitlines()[0])
+    sub = p.add_subparsers(dest="command", required=True)
+    d = sub.add_parser("demo", help="write the invented demo scenario into DIR and run the main job on it")
+    d.add_argument("dir", type=Path)
+    d.add_argument("--quick", action="store_true", help="a small version (fewer leaves, shorter chains)")
+    d.add_argument("--no-run", action="store_true", help="only write the files")
+    d.add_argument("--force", action="store_true", help="write into a non-empty DIR")
+    c = sub.add_parser("check", help="validate data and structures, print a summary")
+    c.add_argument("file", type=Path)
+    f = sub.add_parser("fit", help="fit one structure on all data")
+    f.add_argument("file", type=Path)
+    f.add_argument("--structure", required=True)
+    m = sub.add_parser("compare", help="fit every structure and rank them (the main job)")
+    m.add_argument("file", type=Path)
+    m.add_argument("--out", type=Path)
+    m.add_argument("--method", choices=("auto", "exact", "kfold"))
+    m.add_argument("--workers", type=int)
+    m.add_argument("--scheduler")
+    return p
+
+
+def load(file: Path):
+    """Comparison, dataset and every problem between them; raises UserInputError listing all problems."""
+    from .comparison import check_against_data, load_comparison
+    from .data import load_dataset
+    from .errors import SpecError
+
+    comparison = load_comparison(file)
+    dataset = load_dataset(comparison.data)
+    problems = check_against_data(comparison, dataset)
+    if problems:
+        raise SpecError(str(file), problems)
+    return comparison, dataset
+
+
+def cmd_check(args) -> int:
+    from .comparison import describe
+
+    comparison, dataset = load(args.file)
+    obs = dataset.obs
+    print(f"{args.file}: OK")
+    print(f"data: {dataset.source}")
+    print(f"  {dataset.n_leaves} leaves, {obs.groupby(['leaf', 'curve']).ngroups} curves "
+          f"({', '.join(f'{k}: {v}' for k, v in obs.groupby('curve')['curve_type'].first().value_counts().items())}), "
+          f"{len(obs)} points")
+    for g in dataset.groups:
+        levels = sorted(dataset.leaves[g].astype(str).unique())
+        print(f"  group {g}: {len(levels)} levels ({', '.join(levels[:8])}{', ...' if len(levels) > 8 else ''})")
+    for t in dataset.traits:
+        x = dataset.leaves[t]
+        print(f"  trait {t}: {x.min():.4g} to {x.max():.4g}, mean {x.mean():.4g}")
+    for note in dataset.notes:
+        print(f"  note: {note}")
+    print(describe(comparison))
+    return EXIT_OK
+
+
+def cmd_fit(args) -> int:
+    from .fitting import fit_structure, format_fit
+
+    comparison, dataset = load(args.file)
+    structure = comparison.structure(args.structure)
+    fit = fit_structure(structure, dataset, comparison.data, comparison.sampler, progress=_progress(structure.name))
+    sys.stderr.write("\n")
+    print(format_fit(fit, f"structure {structure.name!r} on {dataset.n_leaves} leaves"))
+    return EXIT_OK
+
+
+def cmd_compare(args) -> int:
+    from .fitting import fit_structure, format_fit
+    from .inits import fit_leaves
+
+    comparison, dataset = load(args.file)
+    leaf_fits = fit_leaves(dataset)
+    for k, structure in enumerate(comparison.structures, 1):
+        fit = fit_structure(structure, dataset, comparison.data, comparison.sampler, leaf_fits=leaf_fits,
+                            progress=_progress(f"[{k}/{len(comparison.structures)}] {structure.name}"))
+        sys.stderr.write("\n")
+        print(format_fit(fit, f"structure {structure.name!r} on {dataset.n_leaves} leaves"))
+        print()
+    return EXIT_OK
+
+
+def cmd_demo(args) -> int:
+    from .demo import write_demo
+
+    folder: Path = args.dir
+    if folder.exists() and any(folder.iterdir()) and not args.force:
+        sys.stderr.write(f"leafcv demo: {folder} is not empty; choose an empty folder or add --force\n")
+        return EXIT_USAGE
+    path = write_demo(folder, quick=args.quick)
+    print(f"wrote {folder / 'observations.csv'}, {folder / 'truth.csv'} and {path}")
+    if args.no_run:
+        return EXIT_OK
+    return cmd_compare(argparse.Namespace(file=path, out=None, method=None, workers=None, scheduler=None))
+
+
+def _progress(label: str):
+    start = time.perf_counter()
+    last = [0.0]
+
+    def report(done: int, total: int) -> None:
+        now = time.perf_counter()
+        if now - last[0] < 1.0 and done < total:
+            return
+        last[0] = now
+        frac = done / total if total else 0.0
+        eta = (now - start) * (1 - frac) / frac if frac > 0 else float("nan")
+        sys.stderr.write(f"\r{label}: {100 * frac:3.0f}% of iterations, ETA {eta:5.0f} s ")
+        sys.stderr.flush()
+
+    return report
+
+
+COMMANDS = {"check": cmd_check, "fit": cmd_fit, "compare": cmd_compare, "demo": cmd_demo}
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = _parser().parse_args(argv)
+    try:
+        return COMMANDS[args.command](args)
+    except UserInputError as exc:
+        sys.stderr.write(f"leafcv {args.command}: {exc}\n")
+        return EXIT_USER
+    except EngineError as exc:
+        path = _save_details(exc, exc.engine_messages)
+        sys.stderr.write(f"leafcv {args.command}: {exc}\n  details saved to {path}\n")
+        return EXIT_ENGINE
+    except Exception as exc:  # an internal failure: say where the traceback went
+        path = _save_details(exc, traceback.format_exc())
+        sys.stderr.write(f"leafcv {args.command}: internal error: {exc}\n  details saved to {path}\n")
+        return EXIT_ENGINE
+
+
+def _save_details(exc: BaseException, details: str) -> Path:
+    fd, name = tempfile.mkstemp(prefix="leafcv-error-", suffix=".log")
+    with open(fd, "w") as fh:
+        fh.write(f"{type(exc).__name__}: {exc}\n\n{details}\n")
+    return Path(name)
+
+
+if __name__ == "__main__":
+    sys.exit(main())

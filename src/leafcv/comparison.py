@@ -1,0 +1,934 @@
+"""Reading and validating a comparison file (TOML, format 1).
+
+`load_comparison` turns the file into a `Comparison`, collecting every problem it finds into one
+`SpecError`. `check_against_data` adds the problems that can only be seen once the data are loaded
+(a grouping with a single level, a trait that never varies). `describe` writes the summary printed
+by ``leafcv check``.
+"""
+from __future__ import annotations
+
+import difflib
+import math
+import os
+import re
+import tomllib
+from collections.abc import Callable, Sequence
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from .data.dataset import Dataset
+from .errors import SpecError
+from .spec import (
+    CENTRING_CHOICES,
+    LINKS,
+    OPTIONAL_COLUMNS,
+    PARAMETERS,
+    RATIO_PARAMETERS,
+    REQUIRED_COLUMNS,
+    Comparison,
+    CVSpec,
+    DataSpec,
+    ParamSpec,
+    SamplerSpec,
+    Structure,
+)
+
+__all__ = ["FORMAT_VERSION", "load_comparison", "check_against_data", "describe"]
+
+#: The comparison-file format this module reads.
+FORMAT_VERSION = 1
+
+TOP_KEYS: tuple[str, ...] = ("format", "data", "sampler", "cv", "structure")
+DATA_KEYS: tuple[str, ...] = ("file", "columns", "units", "leaf")
+UNITS_KEYS: tuple[str, ...] = ("ci", "pressure_kpa")
+CI_UNITS: tuple[str, ...] = ("umol/mol", "Pa")
+LEAF_KEYS: tuple[str, ...] = ("groups", "traits", "centre", "scale")
+SAMPLER_KEYS: tuple[str, ...] = ("chains", "warmup", "draws", "seed", "adapt_delta", "max_treedepth")
+CV_KEYS: tuple[str, ...] = ("by", "method", "folds")
+CV_METHODS: tuple[str, ...] = ("auto", "exact", "kfold")
+PARAM_KEYS: tuple[str, ...] = ("fixed", "random", "ratio_to", "centring")
+#: The term naming the leaf id in ``random`` (and the default ``cv.by``).
+LEAF_TERM = "leaf"
+#: The only parameter jmax25 and rd25 can be tied to.
+RATIO_TARGET = "vcmax25"
+#: Stan's seeds are unsigned 32-bit integers.
+MAX_SEED = 2**32 - 1
+MAX_TREEDEPTH_LIMIT = 20
+
+_NAME_RE = re.compile(r"[A-Za-z0-9._-]+")
+_TOML_POSITION_RE = re.compile(r"\s*\(at line (\d+), column (\d+)\)\s*$")
+_TOML_END_RE = re.compile(r"\s*\(at end of document\)\s*$")
+
+Problems = list[str]
+
+
+# ----------------------------------------------------------------------------------------------
+# Public functions
+# ----------------------------------------------------------------------------------------------
+
+
+def load_comparison(path: str | os.PathLike[str]) -> Comparison:
+    """Read and validate a comparison file.
+
+    Parameters
+    ----------
+    path
+        The comparison file (TOML, format 1).
+
+    Returns
+    -------
+    Comparison
+        The validated comparison, structures in file order, every parameter of every structure
+        present (a parameter not named in the file is ``ParamSpec()``, shared by all leaves), and
+        the data file resolved against the comparison file's folder.
+
+    Raises
+    ------
+    SpecError
+        With every problem found, when the file cannot be read, is not valid TOML or breaks a
+        rule of format 1. The data file's existence is not checked here.
+    """
+    path = Path(path)
+    raw = _read_toml(path)
+    problems: Problems = []
+    comparison = _parse_comparison(raw, path, problems)
+    if problems or comparison is None:
+        raise SpecError(str(path), problems or ["the comparison file could not be read"])
+    return comparison
+
+
+def check_against_data(comparison: Comparison, dataset: Dataset) -> list[str]:
+    """Problems of a comparison that only show once the data are loaded.
+
+    Parameters
+    ----------
+    comparison
+        A comparison from `load_comparison`.
+    dataset
+        The data it will be fitted to; ``dataset.leaves`` has one row per leaf.
+
+    Returns
+    -------
+    list of str
+        One sentence per problem (empty when there is none): a grouping (fixed or random, other
+        than ``leaf``) with fewer than 2 levels, a fixed trait with the same value for every
+        leaf, a ``cv.by`` grouping with fewer than 2 levels, more K-fold folds than levels.
+    """
+    leaves = dataset.leaves
+    traits = set(comparison.data.traits)
+    problems: Problems = []
+    for structure in comparison.structures:
+        for pname in PARAMETERS:
+            spec = structure.params[pname]
+            for kind, terms in (("fixed", spec.fixed), ("random", spec.random)):
+                for term in terms:
+                    message = _term_data_problem(term, kind, term in traits, leaves)
+                    if message:
+                        problems.append(f"structure {structure.name!r}, {pname}.{kind}: {message}")
+    problems.extend(_cv_data_problems(comparison.cv, leaves))
+    return problems
+
+
+def describe(comparison: Comparison) -> str:
+    """A human-readable summary of a comparison, one line per parameter of each structure.
+
+    Parameters
+    ----------
+    comparison
+        A comparison from `load_comparison`.
+
+    Returns
+    -------
+    str
+        Several lines: data, sampler and cross-validation settings, then for each structure its
+        parameters, e.g. ``vcmax25: log link; intercept + fixed leaf_n, month + random leaf``.
+    """
+    lines = _describe_header(comparison)
+    for structure in comparison.structures:
+        lines.append(f"structure {structure.name!r}")
+        for pname in PARAMETERS:
+            lines.append(f"  {describe_param(pname, structure.params[pname])}")
+    return "\n".join(lines)
+
+
+def describe_param(pname: str, spec: ParamSpec) -> str:
+    """One line saying how a parameter varies, e.g. ``alpha: logit link; shared by all leaves``.
+
+    Parameters
+    ----------
+    pname
+        The parameter's name (one of `PARAMETERS`).
+    spec
+        How it varies in one structure.
+
+    Returns
+    -------
+    str
+        The line, without indentation.
+    """
+    if spec.ratio_to:
+        head = f"{pname}: log({pname}/{spec.ratio_to})"
+        separator = " "
+    else:
+        head = f"{pname}: {LINKS[pname]} link"
+        separator = "; "
+    if not spec.fixed and not spec.random:
+        return f"{head}{separator}shared by all leaves"
+    parts = ["intercept"]
+    if spec.fixed:
+        parts.append("fixed " + ", ".join(spec.fixed))
+    if spec.random:
+        parts.append("random " + ", ".join(spec.random))
+    text = f"{head}; " + " + ".join(parts)
+    if spec.centring:
+        chosen = ", ".join(f"{group} {choice}" for group, choice in spec.centring.items())
+        text += f" (centring: {chosen})"
+    return text
+
+
+# ----------------------------------------------------------------------------------------------
+# Reading the file
+# ----------------------------------------------------------------------------------------------
+
+
+def _read_toml(path: Path) -> dict[str, Any]:
+    """Read the file as TOML; any failure becomes a `SpecError` naming the file (and line)."""
+    try:
+        blob = path.read_bytes()
+    except OSError as exc:
+        reason = exc.strerror or str(exc)
+        raise SpecError(str(path), [f"cannot read the comparison file: {reason}"]) from None
+    try:
+        text = blob.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise SpecError(
+            str(path), [f"the comparison file is not UTF-8 text (byte {exc.start}); save it as UTF-8"]
+        ) from None
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise SpecError(str(path), [_toml_error_message(exc)]) from None
+
+
+def _toml_error_message(exc: tomllib.TOMLDecodeError) -> str:
+    """Say where tomllib found a syntax error: line and column, or the end of the file."""
+    text = str(exc)
+    lineno = getattr(exc, "lineno", None)
+    colno = getattr(exc, "colno", None)
+    if lineno is None:
+        match = _TOML_POSITION_RE.search(text)
+        if match:
+            lineno, colno = int(match.group(1)), int(match.group(2))
+    reason = _TOML_END_RE.sub("", _TOML_POSITION_RE.sub("", getattr(exc, "msg", text)))
+    if lineno is not None:
+        return f"TOML syntax error at line {lineno}, column {colno}: {reason}"
+    if _TOML_END_RE.search(text):
+        return f"TOML syntax error at the end of the file: {reason} (is a bracket or quote left open?)"
+    return f"TOML syntax error: {text}"
+
+
+# ----------------------------------------------------------------------------------------------
+# Small helpers: messages and type checks
+# ----------------------------------------------------------------------------------------------
+
+
+def _suggest(word: str, valid: Sequence[str]) -> str | None:
+    """The closest valid name to ``word`` (ignoring letter case), or None."""
+    lowered = {v.lower(): v for v in valid}
+    match = difflib.get_close_matches(word.lower(), list(lowered), n=1, cutoff=0.6)
+    return lowered[match[0]] if match else None
+
+
+def _unknown(kind: str, word: str, valid: Sequence[str], valid_label: str) -> str:
+    """``unknown key 'samplr'; did you mean 'sampler'? valid keys: ...``."""
+    hint = _suggest(word, valid)
+    did = f"; did you mean {hint!r}?" if hint else ";"
+    listing = ", ".join(valid) if valid else "none"
+    return f"unknown {kind} {word!r}{did} valid {valid_label}: {listing}"
+
+
+def _at(where: str, message: str) -> str:
+    """Prefix a message with its location, if any."""
+    return f"{where}: {message}" if where else message
+
+
+def _show(value: Any) -> str:
+    """Name a TOML value's type, with the value when it is short."""
+    if isinstance(value, bool):
+        return f"true/false ({str(value).lower()})"
+    if isinstance(value, int):
+        return f"an integer ({value})"
+    if isinstance(value, float):
+        return f"a number ({value:g})"
+    if isinstance(value, str):
+        return f"a string ({value!r})"
+    if isinstance(value, list):
+        return "a list"
+    if isinstance(value, dict):
+        return "a table"
+    return f"a date/time ({value})"
+
+
+def _check_keys(table: dict[str, Any], valid: Sequence[str], where: str, problems: Problems) -> None:
+    """Report every key of ``table`` that is not in ``valid``."""
+    for key in table:
+        if key not in valid:
+            problems.append(_at(where, _unknown("key", key, valid, "keys")))
+
+
+def _table(value: Any, where: str, problems: Problems) -> dict[str, Any]:
+    """``value`` if it is a table, else {} after reporting the wrong type."""
+    if isinstance(value, dict):
+        return value
+    problems.append(_at(where, f"expected a table, got {_show(value)}"))
+    return {}
+
+
+def _is_int(value: Any) -> bool:
+    return isinstance(value, int) and not isinstance(value, bool)
+
+
+def _is_number(value: Any) -> bool:
+    return isinstance(value, (int, float)) and not isinstance(value, bool)
+
+
+def _int_value(
+    value: Any, where: str, problems: Problems, low: int, high: int | None, expected: str
+) -> int | None:
+    """An integer within [low, high], or None after reporting why not."""
+    if not _is_int(value):
+        problems.append(f"{where}: expected {expected}, got {_show(value)}")
+        return None
+    if value < low or (high is not None and value > high):
+        problems.append(f"{where}: expected {expected}, got {value}")
+        return None
+    return value
+
+
+def _number_value(
+    value: Any, where: str, problems: Problems, ok: Callable[[float], bool], expected: str
+) -> float | None:
+    """A finite number accepted by ``ok``, or None after reporting why not."""
+    if not _is_number(value):
+        problems.append(f"{where}: expected {expected}, got {_show(value)}")
+        return None
+    if not math.isfinite(value) or not ok(value):
+        problems.append(f"{where}: expected {expected}, got {value:g}")
+        return None
+    return float(value)
+
+
+def _str_value(value: Any, where: str, problems: Problems) -> str | None:
+    """A non-empty string, or None after reporting why not."""
+    if not isinstance(value, str):
+        problems.append(f"{where}: expected a string, got {_show(value)}")
+        return None
+    if not value.strip():
+        problems.append(f"{where}: is empty")
+        return None
+    return value
+
+
+def _choice(value: Any, where: str, choices: Sequence[str], kind: str, problems: Problems) -> str | None:
+    """One of ``choices``, or None after reporting the unknown value (with a suggestion)."""
+    if value in choices:
+        return value
+    if isinstance(value, str):
+        problems.append(f"{where}: " + _unknown(kind, value, choices, f"{kind}s"))
+    else:
+        problems.append(f"{where}: expected one of {', '.join(choices)}, got {_show(value)}")
+    return None
+
+
+def _str_list(value: Any, where: str, problems: Problems) -> list[str]:
+    """The distinct non-empty strings of a list, in order, reporting every bad or repeated entry.
+
+    A lone string is reported and then treated as a one-entry list, so that later checks do not
+    repeat the same mistake as many problems.
+    """
+    if isinstance(value, str):
+        problems.append(f'{where}: expected a list of strings, e.g. ["{value}"], got {_show(value)}')
+        value = [value]
+    elif not isinstance(value, list):
+        problems.append(f"{where}: expected a list of strings, got {_show(value)}")
+        return []
+    items: list[str] = []
+    for item in value:
+        if not isinstance(item, str):
+            problems.append(f"{where}: entries must be strings, got {_show(item)}")
+        elif not item.strip():
+            problems.append(f"{where}: has an empty entry")
+        elif item in items:
+            problems.append(f"{where}: repeated entry {item!r}; list each term once")
+        else:
+            items.append(item)
+    return items
+
+
+# ----------------------------------------------------------------------------------------------
+# The whole file
+# ----------------------------------------------------------------------------------------------
+
+
+def _parse_comparison(raw: dict[str, Any], path: Path, problems: Problems) -> Comparison | None:
+    """Validate every section; return the Comparison when nothing was wrong."""
+    _check_keys(raw, TOP_KEYS, "", problems)
+    fmt = _parse_format(raw, problems)
+    base = Path(os.path.abspath(path)).parent
+    data = _parse_data(raw.get("data"), base, problems)
+    sampler = _parse_sampler(raw.get("sampler", {}), problems)
+    groups = data.groups if data else ()
+    traits = data.traits if data else ()
+    cv = _parse_cv(raw.get("cv", {}), groups, traits, problems)
+    structures = _parse_structures(raw.get("structure"), groups, traits, problems)
+    if problems or data is None or fmt is None:
+        return None
+    return Comparison(
+        path=Path(os.path.abspath(path)),
+        data=data,
+        sampler=sampler,
+        cv=cv,
+        structures=tuple(structures),
+        format=fmt,
+    )
+
+
+def _parse_format(raw: dict[str, Any], problems: Problems) -> int | None:
+    """``format`` must be present and equal to 1."""
+    if "format" not in raw:
+        problems.append(f"format is missing; add `format = {FORMAT_VERSION}` at the top of the file")
+        return None
+    value = raw["format"]
+    if not _is_int(value):
+        problems.append(f"format: expected the integer {FORMAT_VERSION}, got {_show(value)}")
+        return None
+    if value != FORMAT_VERSION:
+        problems.append(
+            f"format = {value} is not supported; this version of leafcv reads format {FORMAT_VERSION} "
+            f"(set `format = {FORMAT_VERSION}` and use only format-{FORMAT_VERSION} keys, or update leafcv)"
+        )
+        return None
+    return value
+
+
+# ----------------------------------------------------------------------------------------------
+# [data]
+# ----------------------------------------------------------------------------------------------
+
+
+def _parse_data(value: Any, base: Path, problems: Problems) -> DataSpec | None:
+    """Validate [data] and its sub-tables; None when it is missing or not a table."""
+    if value is None:
+        problems.append(
+            "[data] is missing; add a [data] table with file = \"<your observations CSV>\" "
+            "and a [data.columns] table"
+        )
+        return None
+    table = _table(value, "data", problems)
+    _check_keys(table, DATA_KEYS, "data", problems)
+    file = _parse_data_file(table.get("file"), base, problems)
+    columns = _parse_columns(table.get("columns"), problems)
+    ci_unit, pressure = _parse_units(table.get("units", {}), problems)
+    groups, traits, centre, scale = _parse_leaf(table.get("leaf", {}), columns, problems)
+    return DataSpec(
+        file=file if file is not None else base,
+        columns=columns,
+        ci_unit=ci_unit,
+        pressure_kpa=pressure,
+        groups=groups,
+        traits=traits,
+        centre=centre,
+        scale=scale,
+    )
+
+
+def _parse_data_file(value: Any, base: Path, problems: Problems) -> Path | None:
+    """The observation file, made absolute relative to the comparison file's folder."""
+    if value is None:
+        problems.append("data.file is missing; add file = \"<your observations CSV>\" (relative to this file)")
+        return None
+    name = _str_value(value, "data.file", problems)
+    if name is None:
+        return None
+    return Path(os.path.abspath(base / Path(name).expanduser()))
+
+
+def _parse_columns(value: Any, problems: Problems) -> dict[str, str]:
+    """[data.columns]: leafcv variable -> the user's column name."""
+    valid = REQUIRED_COLUMNS + OPTIONAL_COLUMNS
+    if value is None:
+        problems.append(
+            "[data.columns] is missing; map leafcv's variables to your columns, "
+            f"at least {', '.join(REQUIRED_COLUMNS)} (e.g. a_net = \"<your column>\")"
+        )
+        return {}
+    table = _table(value, "data.columns", problems)
+    _check_keys(table, valid, "data.columns", problems)
+    columns: dict[str, str] = {}
+    for key, column in table.items():
+        if key in valid:
+            name = _str_value(column, f"data.columns.{key}", problems)
+            if name is not None:
+                columns[key] = name
+    for key in REQUIRED_COLUMNS:
+        if key not in table:
+            problems.append(f"data.columns: required variable {key!r} is missing; add {key} = \"<your column>\"")
+    _check_shared_columns(columns, problems)
+    return columns
+
+
+def _check_shared_columns(columns: dict[str, str], problems: Problems) -> None:
+    """Two leafcv variables may not read the same column of the user's file."""
+    seen: dict[str, str] = {}
+    for key, column in columns.items():
+        if column in seen:
+            problems.append(
+                f"data.columns: {seen[column]} and {key} both name the column {column!r}; "
+                "each variable needs its own column"
+            )
+        else:
+            seen[column] = key
+
+
+def _parse_units(value: Any, problems: Problems) -> tuple[str, float | None]:
+    """[data.units]: the unit of Ci and, for Pa, the air pressure in kPa."""
+    table = _table(value, "data.units", problems)
+    _check_keys(table, UNITS_KEYS, "data.units", problems)
+    ci_unit = "umol/mol"
+    if "ci" in table:
+        raw = table["ci"]
+        if raw in CI_UNITS:
+            ci_unit = raw
+        else:
+            shown = repr(raw) if isinstance(raw, str) else _show(raw)
+            problems.append(f"data.units.ci: must be 'umol/mol' or 'Pa', got {shown}")
+    pressure = None
+    if "pressure_kpa" in table:
+        pressure = _number_value(
+            table["pressure_kpa"], "data.units.pressure_kpa", problems, lambda x: x > 0,
+            "a positive number (air pressure in kPa)",
+        )
+    if ci_unit == "Pa" and "pressure_kpa" not in table:
+        problems.append(
+            "data.units: ci = 'Pa' needs pressure_kpa, the air pressure in kPa (e.g. pressure_kpa = 101.3), "
+            "to convert Ci to umol/mol"
+        )
+    return ci_unit, pressure
+
+
+def _parse_leaf(
+    value: Any, columns: dict[str, str], problems: Problems
+) -> tuple[tuple[str, ...], tuple[str, ...], dict[str, float], dict[str, float]]:
+    """[data.leaf]: leaf-level groups and traits, and optional centring and scaling of traits."""
+    table = _table(value, "data.leaf", problems)
+    _check_keys(table, LEAF_KEYS, "data.leaf", problems)
+    groups = _str_list(table.get("groups", []), "data.leaf.groups", problems)
+    traits = _str_list(table.get("traits", []), "data.leaf.traits", problems)
+    for name in groups:
+        if name in traits:
+            problems.append(
+                f"data.leaf: {name!r} is listed in both groups and traits; a column is either a "
+                "grouping (groups) or a numeric trait (traits)"
+            )
+    _check_reserved(groups, "data.leaf.groups", columns, problems)
+    _check_reserved(traits, "data.leaf.traits", columns, problems)
+    centre = _trait_numbers(
+        table.get("centre", {}), "data.leaf.centre", traits, problems, lambda x: True, "a number"
+    )
+    scale = _trait_numbers(
+        table.get("scale", {}), "data.leaf.scale", traits, problems, lambda x: x > 0, "a positive number"
+    )
+    return tuple(groups), tuple(traits), centre, scale
+
+
+def _check_reserved(names: list[str], where: str, columns: dict[str, str], problems: Problems) -> None:
+    """A leaf-level column may not be called ``leaf`` nor be the leaf id column itself."""
+    for name in names:
+        if name == LEAF_TERM:
+            problems.append(
+                f"{where}: 'leaf' is reserved for the leaf id (random = [\"leaf\"]); "
+                "rename that column in your file and here"
+            )
+        elif name == columns.get("leaf"):
+            problems.append(
+                f"{where}: {name!r} is the leaf id column (data.columns.leaf); "
+                "use random = [\"leaf\"] for leaf effects"
+            )
+
+
+def _trait_numbers(
+    value: Any, where: str, traits: list[str], problems: Problems,
+    ok: Callable[[float], bool], expected: str,
+) -> dict[str, float]:
+    """A table trait -> number (``centre`` or ``scale``), keys restricted to the listed traits."""
+    table = _table(value, where, problems)
+    numbers: dict[str, float] = {}
+    for key, raw in table.items():
+        if key not in traits:
+            hint = _suggest(key, traits)
+            did = f"; did you mean {hint!r}?" if hint else ";"
+            listing = ", ".join(traits) if traits else "none"
+            problems.append(f"{where}: {key!r} is not a listed trait{did} listed traits: {listing}")
+            continue
+        number = _number_value(raw, f"{where}.{key}", problems, ok, expected)
+        if number is not None:
+            numbers[key] = number
+    return numbers
+
+
+# ----------------------------------------------------------------------------------------------
+# [sampler] and [cv]
+# ----------------------------------------------------------------------------------------------
+
+
+def _parse_sampler(value: Any, problems: Problems) -> SamplerSpec:
+    """[sampler]; absent keys keep `SamplerSpec`'s defaults."""
+    table = _table(value, "sampler", problems)
+    _check_keys(table, SAMPLER_KEYS, "sampler", problems)
+    settings: dict[str, Any] = {}
+    for key in ("chains", "warmup", "draws"):
+        if key in table:
+            settings[key] = _int_value(table[key], f"sampler.{key}", problems, 1, None, "a positive integer")
+    if "seed" in table:
+        settings["seed"] = _int_value(
+            table["seed"], "sampler.seed", problems, 0, MAX_SEED, f"an integer from 0 to {MAX_SEED}"
+        )
+    if "adapt_delta" in table:
+        settings["adapt_delta"] = _number_value(
+            table["adapt_delta"], "sampler.adapt_delta", problems, lambda x: 0 < x < 1,
+            "a number strictly between 0 and 1",
+        )
+    if "max_treedepth" in table:
+        settings["max_treedepth"] = _int_value(
+            table["max_treedepth"], "sampler.max_treedepth", problems, 1, MAX_TREEDEPTH_LIMIT,
+            f"an integer from 1 to {MAX_TREEDEPTH_LIMIT}",
+        )
+    return SamplerSpec(**{k: v for k, v in settings.items() if v is not None})
+
+
+def _parse_cv(value: Any, groups: Sequence[str], traits: Sequence[str], problems: Problems) -> CVSpec:
+    """[cv]: what is left out (leaf or a group column), how, and the number of K-fold folds."""
+    table = _table(value, "cv", problems)
+    _check_keys(table, CV_KEYS, "cv", problems)
+    settings: dict[str, Any] = {}
+    if "by" in table:
+        settings["by"] = _parse_cv_by(table["by"], groups, traits, problems)
+    if "method" in table:
+        settings["method"] = _choice(table["method"], "cv.method", CV_METHODS, "method", problems)
+    if "folds" in table:
+        settings["folds"] = _int_value(table["folds"], "cv.folds", problems, 2, None, "an integer >= 2")
+    return CVSpec(**{k: v for k, v in settings.items() if v is not None})
+
+
+def _parse_cv_by(value: Any, groups: Sequence[str], traits: Sequence[str], problems: Problems) -> str | None:
+    """``cv.by`` is ``leaf`` or a declared group column."""
+    choices = (LEAF_TERM, *groups)
+    name = _str_value(value, "cv.by", problems)
+    if name is None:
+        return None
+    if name in choices:
+        return name
+    if name in traits:
+        problems.append(
+            f"cv.by: {name!r} is a trait; folds leave out whole levels of a grouping: {', '.join(choices)}"
+        )
+    else:
+        problems.append("cv.by: " + _unknown("grouping", name, choices, "choices"))
+    return None
+
+
+# ----------------------------------------------------------------------------------------------
+# [[structure]]
+# ----------------------------------------------------------------------------------------------
+
+
+def _parse_structures(
+    value: Any, groups: Sequence[str], traits: Sequence[str], problems: Problems
+) -> list[Structure]:
+    """Every [[structure]], in file order, with unique file-safe names."""
+    if value is None:
+        problems.append("no [[structure]] found; add at least one [[structure]] with a name")
+        return []
+    if isinstance(value, dict):
+        problems.append("structure: write each structure as [[structure]] (double brackets), not [structure]")
+        value = [value]
+    if not isinstance(value, list):
+        problems.append(f"structure: expected [[structure]] tables, got {_show(value)}")
+        return []
+    if not value:
+        problems.append("no [[structure]] found; add at least one [[structure]] with a name")
+    structures: list[Structure] = []
+    names: dict[str, int] = {}
+    for number, item in enumerate(value, start=1):
+        if not isinstance(item, dict):
+            problems.append(f"structure #{number}: expected a table, got {_show(item)}")
+            continue
+        name = _parse_structure_name(item, number, names, problems)
+        label = f"structure {name!r}" if name is not None else f"structure #{number}"
+        params = _parse_structure_params(item, label, groups, traits, problems)
+        if name is not None:
+            structures.append(Structure(name=name, params=params))
+    return structures
+
+
+def _parse_structure_name(
+    item: dict[str, Any], number: int, names: dict[str, int], problems: Problems
+) -> str | None:
+    """The structure's name: present, file-safe and unique (also ignoring letter case).
+
+    Returns the name when it is a non-empty string (even if it breaks a rule, so that later
+    messages can name the structure), else None.
+    """
+    where = f"structure #{number}"
+    if "name" not in item:
+        problems.append(f"{where}: name is missing; add name = \"...\" (letters, digits, '-', '_', '.')")
+        return None
+    name = item["name"]
+    if not isinstance(name, str):
+        problems.append(f"{where}: name: expected a string, got {_show(name)}")
+        return None
+    if not name:
+        problems.append(f"{where}: name is empty; give it a name of letters, digits, '-', '_', '.'")
+        return None
+    _check_name_characters(name, problems)
+    _check_name_unique(name, number, names, problems)
+    names.setdefault(name, number)
+    return name
+
+
+def _check_name_characters(name: str, problems: Problems) -> None:
+    """A name becomes a file name: only ASCII letters, digits, '-', '_' and '.', and not only dots."""
+    bad = sorted({c for c in name if not _NAME_RE.fullmatch(c)})
+    if bad:
+        shown = ", ".join(repr(c) for c in bad)
+        problems.append(
+            f"structure {name!r}: name may only contain letters, digits, '-', '_' and '.' "
+            f"(it becomes a file name); found {shown}"
+        )
+    elif set(name) == {"."}:
+        problems.append(f"structure {name!r}: name cannot be only dots (it becomes a file name)")
+
+
+def _check_name_unique(name: str, number: int, names: dict[str, int], problems: Problems) -> None:
+    """Names must differ, and differ by more than letter case (some file systems ignore case)."""
+    if name in names:
+        problems.append(
+            f"structure {name!r} (#{number}): duplicate name, also used by structure #{names[name]}; "
+            "names must be unique"
+        )
+        return
+    for other, other_number in names.items():
+        if other.lower() == name.lower():
+            problems.append(
+                f"structure {name!r} (#{number}): name differs from structure {other!r} "
+                f"(#{other_number}) only in letter case; names become file names, which some "
+                "file systems do not tell apart"
+            )
+            return
+
+
+def _parse_structure_params(
+    item: dict[str, Any], label: str, groups: Sequence[str], traits: Sequence[str], problems: Problems
+) -> dict[str, ParamSpec]:
+    """Every parameter of one structure; an unnamed parameter is shared by all leaves."""
+    for key in item:
+        if key != "name" and key not in PARAMETERS:
+            message = _unknown("parameter", key, PARAMETERS, "parameters")
+            problems.append(f"{label}: {message} (and 'name')")
+    return {
+        pname: _parse_param(item[pname], label, pname, groups, traits, problems)
+        if pname in item else ParamSpec()
+        for pname in PARAMETERS
+    }
+
+
+def _parse_param(
+    value: Any, label: str, pname: str, groups: Sequence[str], traits: Sequence[str], problems: Problems
+) -> ParamSpec:
+    """One parameter's table: fixed and random terms, ratio_to, centring."""
+    where = f"{label}, {pname}"
+    if not isinstance(value, dict):
+        problems.append(f"{where}: expected a table such as {{ random = [\"leaf\"] }}, got {_show(value)}")
+        return ParamSpec()
+    _check_keys(value, PARAM_KEYS, where, problems)
+    fixed = _parse_fixed(value.get("fixed", []), f"{where}.fixed", groups, traits, problems)
+    random_as_written = _str_list(value.get("random", []), f"{where}.random", problems)
+    random = _filter_random(random_as_written, f"{where}.random", groups, traits, problems)
+    for term in fixed:
+        if term in random:
+            problems.append(f"{where}: {term!r} is both fixed and random; choose one")
+    ratio_to = _parse_ratio_to(value, where, pname, problems)
+    centring = _parse_centring(value.get("centring", {}), f"{where}.centring", pname, random_as_written, problems)
+    return ParamSpec(fixed=tuple(fixed), random=tuple(random), ratio_to=ratio_to, centring=centring)
+
+
+def _parse_fixed(
+    value: Any, where: str, groups: Sequence[str], traits: Sequence[str], problems: Problems
+) -> list[str]:
+    """Fixed terms: declared traits (slopes) or group columns (treatment-coded factors)."""
+    valid = (*traits, *groups)
+    kept: list[str] = []
+    for term in _str_list(value, where, problems):
+        if term in valid:
+            kept.append(term)
+        elif term == LEAF_TERM:
+            problems.append(
+                f"{where}: 'leaf' cannot be a fixed term (it would be one coefficient per leaf); "
+                "use random = [\"leaf\"]"
+            )
+        else:
+            problems.append(f"{where}: " + _unknown("term", term, valid, "terms"))
+    return kept
+
+
+def _filter_random(
+    terms: list[str], where: str, groups: Sequence[str], traits: Sequence[str], problems: Problems
+) -> list[str]:
+    """Random intercepts: ``leaf`` or a declared group column; a trait is a random slope."""
+    valid = (LEAF_TERM, *groups)
+    kept: list[str] = []
+    for term in terms:
+        if term in valid:
+            kept.append(term)
+        elif term in traits:
+            problems.append(
+                f"{where}: {term!r} is a trait; random slopes are not in format 1 "
+                "(put it in fixed for one slope shared by all leaves)"
+            )
+        else:
+            problems.append(f"{where}: " + _unknown("grouping", term, valid, "groupings"))
+    return kept
+
+
+def _parse_ratio_to(value: dict[str, Any], where: str, pname: str, problems: Problems) -> str | None:
+    """``ratio_to = "vcmax25"``, allowed for jmax25 and rd25 only."""
+    if "ratio_to" not in value:
+        return None
+    target = value["ratio_to"]
+    if pname not in RATIO_PARAMETERS:
+        allowed = " and ".join(RATIO_PARAMETERS)
+        problems.append(
+            f"{where}.ratio_to: only {allowed} can be tied to {RATIO_TARGET} as a ratio; remove ratio_to"
+        )
+        return None
+    if target != RATIO_TARGET:
+        shown = repr(target) if isinstance(target, str) else _show(target)
+        problems.append(f"{where}.ratio_to: must be {RATIO_TARGET!r}, got {shown}")
+        return None
+    return RATIO_TARGET
+
+
+def _parse_centring(
+    value: Any, where: str, pname: str, random: list[str], problems: Problems
+) -> dict[str, str]:
+    """``centring``: random grouping -> auto | centred | noncentred."""
+    table = _table(value, where, problems)
+    centring: dict[str, str] = {}
+    for group, choice in table.items():
+        if group not in random:
+            written = ", ".join(f'"{t}"' for t in random)
+            problems.append(
+                f"{where}: {group!r} is not in {pname}.random (random = [{written}]); "
+                "centring applies to random terms only"
+            )
+        else:
+            chosen = _choice(choice, f"{where}.{group}", CENTRING_CHOICES, "choice", problems)
+            if chosen is not None:
+                centring[group] = chosen
+    return centring
+
+
+# ----------------------------------------------------------------------------------------------
+# Checks against the data
+# ----------------------------------------------------------------------------------------------
+
+
+def _levels(leaves: pd.DataFrame, column: str) -> list[str]:
+    """The distinct non-missing values of a leaf-table column, in order of appearance."""
+    return [str(v) for v in pd.unique(leaves[column].dropna())]
+
+
+def _term_data_problem(term: str, kind: str, is_trait: bool, leaves: pd.DataFrame) -> str | None:
+    """Why a fixed or random term cannot be estimated from these leaves, or None."""
+    if term == LEAF_TERM:
+        return None
+    if term not in leaves.columns:
+        return f"column {term!r} is not in the leaf table"
+    if is_trait:
+        return _trait_data_problem(term, leaves)
+    levels = _levels(leaves, term)
+    need = "a random effect" if kind == "random" else "a fixed factor"
+    if not levels:
+        return f"grouping {term!r} has no values in the data; remove it from the structure"
+    if len(levels) < 2:
+        return (
+            f"grouping {term!r} has a single level ({levels[0]!r}) in the data; "
+            f"{need} needs at least 2 levels — remove it from the structure"
+        )
+    return None
+
+
+def _trait_data_problem(term: str, leaves: pd.DataFrame) -> str | None:
+    """A trait used as a slope must vary across leaves."""
+    values = pd.to_numeric(leaves[term], errors="coerce").to_numpy(dtype=float)
+    values = values[np.isfinite(values)]
+    if values.size == 0:
+        return f"trait {term!r} has no values in the data; remove it from the structure"
+    if values.min() == values.max():
+        return (
+            f"trait {term!r} has the same value ({values[0]:g}) for every leaf; "
+            "its slope cannot be estimated — remove it from the structure"
+        )
+    return None
+
+
+def _cv_data_problems(cv: CVSpec, leaves: pd.DataFrame) -> list[str]:
+    """``cv.by`` needs 2 levels or more; K-fold needs at least as many levels as folds."""
+    if cv.by not in leaves.columns:
+        return [f"cv.by: column {cv.by!r} is not in the leaf table"]
+    levels = _levels(leaves, cv.by)
+    if len(levels) < 2:
+        found = f"a single level ({levels[0]!r})" if levels else "no levels"
+        return [
+            f"cv.by: grouping {cv.by!r} has {found} in the data; leaving levels out needs at "
+            "least 2 — choose another cv.by"
+        ]
+    if cv.method == "kfold" and cv.folds > len(levels):
+        return [
+            f"cv.folds: {cv.folds} folds but only {len(levels)} levels of {cv.by!r} in the data; "
+            f"set folds to at most {len(levels)}"
+        ]
+    return []
+
+
+# ----------------------------------------------------------------------------------------------
+# Summary
+# ----------------------------------------------------------------------------------------------
+
+
+def _describe_header(comparison: Comparison) -> list[str]:
+    """Lines on the data, traits, cross-validation and sampler settings."""
+    data, cv, sampler = comparison.data, comparison.cv, comparison.sampler
+    lines = [
+        f"comparison {comparison.path} (format {comparison.format}), "
+        f"{len(comparison.structures)} structure(s)",
+        f"data: {data.file}",
+        "  columns: " + ", ".join(f"{k} = {v!r}" for k, v in data.columns.items()),
+        f"  ci in {data.ci_unit}" + (f", pressure {data.pressure_kpa:g} kPa" if data.pressure_kpa else ""),
+        "  groups: " + (", ".join(data.groups) if data.groups else "none"),
+        "  traits: " + (", ".join(_describe_trait(data, t) for t in data.traits) if data.traits else "none"),
+        f"cv: by {cv.by}, method {cv.method}" + (f", {cv.folds} folds" if cv.method == "kfold" else ""),
+        f"sampler: {sampler.chains} chains, {sampler.warmup} warm-up + {sampler.draws} draws each, "
+        f"seed {sampler.seed}, adapt_delta {sampler.adapt_delta:g}, max_treedepth {sampler.max_treedepth}",
+    ]
+    return lines
+
+
+def _describe_trait(data: DataSpec, trait: str) -> str:
+    """``leaf_n (centred at its leaf-table mean)`` or with the stated centre and scale."""
+    centre = f"centred at {data.centre[trait]:g}" if trait in data.centre else "centred at its leaf-table mean"
+    scale = f", divided by {data.scale[trait]:g}" if trait in data.scale else ""
+    return f"{trait} ({centre}{scale})"

@@ -1,0 +1,33 @@
+"""The validated data a comparison works on."""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+import pandas as pd
+
+
+@dataclass(frozen=True)
+class Dataset:
+    """Observations and the leaf table, in leafcv's own variables and units.
+
+    obs
+        One row per gas-exchange point, columns: ``leaf`` (str), ``leaf_index`` (int, 0-based, into
+        ``leaves``), ``curve`` (str), ``curve_type`` ("aci" or "aq"), ``a_net`` (umol m-2 s-1),
+        ``ci`` (umol mol-1), ``ppfd`` (umol m-2 s-1), ``t_leaf`` (deg C), ``o2`` (mmol mol-1),
+        ``row`` (1-based line number of the point in the user's file, header = line 1).
+    leaves
+        One row per leaf in order of first appearance (row i has leaf_index i): ``leaf`` and every
+        group column (str) and trait column (float), under the user's column names.
+    """
+
+    obs: pd.DataFrame
+    leaves: pd.DataFrame
+    groups: tuple[str, ...]
+    traits: tuple[str, ...]
+    source: Path
+    notes: tuple[str, ...] = ()
+
+    @property
+    def n_leaves(self) -> int:
+        return len(self.leaves)

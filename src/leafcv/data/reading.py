@@ -1,0 +1,627 @@
+"""Read the user's observation CSV into a validated :class:`~leafcv.data.dataset.Dataset`.
+
+The file is read as text first, so every cell that is not a number can be reported with its line.
+All problems found are collected and raised together as one :class:`~leafcv.errors.DataError`.
+"""
+from __future__ import annotations
+
+import difflib
+import re
+from collections.abc import Sequence
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from ..errors import DataError
+from ..spec import OPTIONAL_COLUMNS, REQUIRED_COLUMNS, DataSpec
+from .dataset import Dataset
+
+#: Units accepted for Ci under ``[data.units] ci``.
+CI_UNITS: tuple[str, ...] = ("umol/mol", "Pa")
+#: Leaf temperature (deg C) used when no column is mapped: the reference temperature to which FvCB
+#: parameters are normalised (Bernacchi et al. 2001, Plant Cell Environ 24:253-259).
+DEFAULT_T_LEAF = 25.0
+#: O2 (mmol mol-1) used when no column is mapped: 21 kPa in air (REFERENCES.md, common practice).
+DEFAULT_O2 = 210.0
+
+# Plausibility limits. All are common practice, no source, unless stated.
+CI_RANGE = (0.0, 3000.0)           # umol mol-1; A-Ci curves rarely go past about 2000
+PPFD_RANGE = (0.0, 3000.0)         # umol m-2 s-1; full sunlight is about 2000-2300 (from memory)
+A_NET_RANGE = (-50.0, 100.0)       # umol m-2 s-1; C3 leaves rarely exceed 40 (REFERENCES.md magnitudes)
+T_LEAF_RANGE = (0.0, 50.0)         # deg C
+O2_RANGE = (0.0, 1000.0)           # mmol mol-1; the physical bounds of a mole fraction
+PRESSURE_RANGE_KPA = (30.0, 110.0)  # about 101.3 at sea level, about 34 on the highest summits (from memory)
+PA_LIKE_MEDIAN = 100.0             # umol mol-1: a lower median Ci suggests Pa (ambient 40 Pa ~ 400 umol mol-1)
+UMOL_LIKE_MEDIAN_PA = 200.0        # Pa: a higher median Ci declared in Pa suggests umol mol-1
+KELVIN_LIKE_MEDIAN = 250.0         # a median leaf temperature above this suggests kelvin
+MIN_POINTS_PER_LEAF = 5
+PPFD_LEVEL_TOLERANCE = 0.02        # relative: PPFD values this close form one light level
+PPFD_LEVEL_FLOOR = 1.0             # umol m-2 s-1: absolute tolerance near darkness
+MIN_ACI_POINTS = 4                 # points at one light level that make an A-Ci curve
+CONSTANT_CV = 0.02                 # a curve with both CVs below this does not vary
+CV_MEAN_FLOOR = 1.0                # floor on |mean| in the CV, so dark (PPFD 0) curves stay finite
+MAX_LISTED = 8                     # rows (or leaves) listed in one message before "and N more"
+#: Cell texts read as a missing number (compared in lower case).
+MISSING_TOKENS = frozenset({"", "na", "nan", "n/a", "null", "none"})
+
+_NUMERIC_VARIABLES = ("a_net", "ci", "ppfd", "t_leaf", "o2")
+_TEXT_VARIABLES = ("leaf", "curve")
+_RANGES = {"a_net": A_NET_RANGE, "ci": CI_RANGE, "ppfd": PPFD_RANGE, "t_leaf": T_LEAF_RANGE, "o2": O2_RANGE}
+_UNITS = {"a_net": "umol m-2 s-1", "ci": "umol/mol", "ppfd": "umol m-2 s-1", "t_leaf": "deg C",
+          "o2": "mmol/mol"}
+_RANGE_ADVICE = {
+    "a_net": "net assimilation is expected in umol m-2 s-1; check the column and remove logging errors",
+    "ci": "Ci is intercellular CO2; check the column and [data.units] ci",
+    "ppfd": "PPFD is incident light in umol m-2 s-1; check the column",
+    "t_leaf": "leaf temperature is expected in deg C",
+    "o2": "O2 is expected in mmol/mol (210 in air)",
+}
+
+
+@dataclass(frozen=True)
+class _Table:
+    """The file as stripped text: header names, cells by position, and each record's line number."""
+
+    header: list[str]
+    cells: pd.DataFrame
+    rows: np.ndarray
+
+    def has(self, name: str) -> bool:
+        return name in self.header
+
+    def text(self, name: str) -> pd.Series:
+        """Cells of the first column called ``name``."""
+        return self.cells[self.header.index(name)]
+
+
+def load_dataset(spec: DataSpec) -> Dataset:
+    """Read, check and convert the observation table described by ``spec``.
+
+    Parameters
+    ----------
+    spec
+        Where the file is, how its columns map to leafcv's variables, the Ci unit, and the
+        leaf-level group and trait columns.
+
+    Returns
+    -------
+    Dataset
+        Observations in leafcv's variables and units (Ci in umol/mol) and the leaf table, with
+        notes on every default and inference used.
+
+    Raises
+    ------
+    DataError
+        With every problem found in one pass: missing or unreadable file, unknown or missing
+        columns, cells that are not numbers, missing values, implausible values, leaf-level columns
+        that vary within a leaf, leaves with too few points, duplicated rows, curves that do not vary.
+
+    Notes
+    -----
+    Rows are cited by their line in the file (the header is line 1); blank lines are skipped but
+    keep their place in the count.
+
+    Curves. With a ``curve`` column, a curve is one (leaf, curve id) pair. Without one, each leaf's
+    points are split by light level: PPFD values that agree within 2 % (or 1 umol m-2 s-1 near
+    darkness) form a level; every level with at least 4 points is one curve, and the leaf's
+    remaining points form one more curve. A light-curve point measured at the A-Ci curve's PPFD
+    therefore joins the A-Ci curve. Curve ids are then the curve type, numbered from the second
+    curve of a type in a leaf on ("aci", "aq", "aci-2", ...), in order of first appearance.
+
+    Curve type. Each curve is "aci" when the coefficient of variation (population SD over
+    max(|mean|, 1)) of its Ci exceeds that of its PPFD, else "aq". A curve whose Ci and PPFD
+    both vary by less than 2 % is reported as a problem.
+
+    Examples
+    --------
+    >>> spec = DataSpec(file=Path("/data/obs.csv"), columns={"a_net": "Anet", "ci": "Ci_in",
+    ...                 "ppfd": "Light", "leaf": "LeafID"}, traits=("N_area",))
+    >>> dataset = load_dataset(spec)  # doctest: +SKIP
+    """
+    problems, notes = _check_spec(spec)
+    table, read_problems = _read_table(Path(spec.file))
+    problems += read_problems
+    if table is None:
+        raise DataError(str(spec.file), problems)
+    problems += _check_header(table, spec)
+    present = {var: name for var, name in _valid_mapping(spec).items() if table.has(name)}
+    numbers, texts, found = _parse_cells(table, present, _NUMERIC_VARIABLES, _TEXT_VARIABLES)
+    problems += found
+    trait_values, _, found = _parse_cells(table, {t: t for t in spec.traits if table.has(t)}, spec.traits, (),
+                                         "trait")
+    problems += found
+    _, group_values, found = _parse_cells(table, {g: g for g in spec.groups if table.has(g)}, (), spec.groups,
+                                         "group")
+    problems += found
+
+    if "ci" in numbers:
+        numbers["ci"], found, note = _convert_ci(numbers["ci"], table.rows, present["ci"], spec)
+        problems += found
+        notes += note
+    for var in ("a_net", "ppfd", "t_leaf", "o2"):
+        if var in numbers:
+            problems += _range_problems(numbers[var], table.rows, present[var], var)
+    if "t_leaf" in numbers:
+        problems += _kelvin_hint(numbers["t_leaf"], present["t_leaf"])
+
+    n = len(table.rows)
+    leaf = texts.get("leaf", np.full(n, "", dtype=object))
+    problems += _leaf_size_problems(leaf, table.rows, present.get("leaf", ""))
+    for role, columns in (("trait", trait_values), ("group", group_values)):
+        for name, values in columns.items():
+            problems += _constancy_problems(leaf, values, table.rows, name, role)
+    problems += _duplicate_problems(table)
+
+    curve, curve_type, found, note = _curves(leaf, texts.get("curve"), numbers.get("ci"),
+                                             numbers.get("ppfd"), table.rows, present.get("curve"))
+    problems += found
+    notes += note
+    if problems:
+        raise DataError(str(spec.file), problems)
+
+    for var, default, unit in (("t_leaf", DEFAULT_T_LEAF, "deg C"), ("o2", DEFAULT_O2, "mmol/mol")):
+        if var not in numbers:
+            numbers[var] = np.full(n, default)
+            notes.append(f"no {var} column mapped: {var} set to {default:g} {unit} for every point")
+    leaves, leaf_index = _leaf_table(leaf, group_values, trait_values)
+    obs = pd.DataFrame({
+        "leaf": pd.Series(leaf, dtype=str), "leaf_index": leaf_index,
+        "curve": pd.Series(curve, dtype=str), "curve_type": pd.Series(curve_type, dtype=str),
+        "a_net": numbers["a_net"], "ci": numbers["ci"], "ppfd": numbers["ppfd"],
+        "t_leaf": numbers["t_leaf"], "o2": numbers["o2"], "row": table.rows.astype(np.int64),
+    })
+    return Dataset(obs=obs, leaves=leaves, groups=tuple(spec.groups), traits=tuple(spec.traits),
+                   source=Path(spec.file), notes=tuple(notes))
+
+
+# ---------------------------------------------------------------- message pieces
+
+def _rows(rows: Sequence[int], limit: int = MAX_LISTED) -> str:
+    """'row 5' or 'rows 5, 6, 7 and 12 more'."""
+    rows = [int(r) for r in rows]
+    shown = ", ".join(str(r) for r in rows[:limit])
+    more = f" and {len(rows) - limit} more" if len(rows) > limit else ""
+    return f"{'row' if len(rows) == 1 else 'rows'} {shown}{more}"
+
+
+def _rows_values(rows: Sequence[int], values: Sequence[object]) -> str:
+    """'rows 5 ('abc'), 9 ('1,2') and 3 more'."""
+    pairs = [f"{int(r)} ({_show(v)})" for r, v in zip(rows[:MAX_LISTED], values[:MAX_LISTED])]
+    more = f" and {len(rows) - MAX_LISTED} more" if len(rows) > MAX_LISTED else ""
+    return f"{'row' if len(rows) == 1 else 'rows'} {', '.join(pairs)}{more}"
+
+
+def _show(value: object) -> str:
+    return f"{value:g}" if isinstance(value, float) else repr(value)
+
+
+def _label(name: str, role: str) -> str:
+    return f"column {name!r} ({role})"
+
+
+# ---------------------------------------------------------------- the specification
+
+def _valid_mapping(spec: DataSpec) -> dict[str, str]:
+    """Mapped leafcv variables that are known and have a column name."""
+    known = REQUIRED_COLUMNS + OPTIONAL_COLUMNS
+    return {var: name for var, name in spec.columns.items() if var in known and name}
+
+
+def _check_spec(spec: DataSpec) -> tuple[list[str], list[str]]:
+    """Problems and notes found in the mapping and units alone (no file needed)."""
+    problems: list[str] = []
+    known = REQUIRED_COLUMNS + OPTIONAL_COLUMNS
+    unknown = [v for v in spec.columns if v not in known]
+    if unknown:
+        problems.append(f"[data.columns] has unknown variable(s) {', '.join(map(repr, unknown))}; "
+                        f"valid variables: {', '.join(known)}")
+    for var in REQUIRED_COLUMNS:
+        if not spec.columns.get(var):
+            problems.append(f"[data.columns] must map {var} to a column of the file "
+                            f"(e.g. {var} = \"your column name\")")
+    by_name: dict[str, list[str]] = {}
+    for var, name in _valid_mapping(spec).items():
+        by_name.setdefault(name, []).append(var)
+    for name, variables in by_name.items():
+        if len(variables) > 1:
+            problems.append(f"column {name!r} is mapped to {' and '.join(variables)} under [data.columns]; "
+                            f"each variable needs its own column")
+    problems += _check_leaf_columns(spec)
+    unit_problems, notes = _check_units(spec)
+    return problems + unit_problems, notes
+
+
+def _check_leaf_columns(spec: DataSpec) -> list[str]:
+    problems = []
+    for kind, names in (("groups", spec.groups), ("traits", spec.traits)):
+        for name in sorted({n for n in names if list(names).count(n) > 1}):
+            problems.append(f"column {name!r} is listed twice in [data.leaf] {kind}; list it once")
+    for name in sorted(set(spec.groups) & set(spec.traits)):
+        problems.append(f"column {name!r} is listed both in [data.leaf] groups and traits; a column is "
+                        f"either categorical (groups) or numeric (traits)")
+    if "leaf" in spec.groups or "leaf" in spec.traits:
+        problems.append("[data.leaf] lists a column named 'leaf', which clashes with the leaf table's own "
+                        "'leaf' column (the leaf id); remove it from [data.leaf] or rename it in the file")
+    return problems
+
+
+def _check_units(spec: DataSpec) -> tuple[list[str], list[str]]:
+    problems, notes = [], []
+    unit, pressure = spec.ci_unit, spec.pressure_kpa
+    if unit not in CI_UNITS:
+        close = difflib.get_close_matches(str(unit).lower(), [u.lower() for u in CI_UNITS], n=1, cutoff=0.5)
+        if str(unit).lower() in {"ppm", "µmol/mol", "umol mol-1", "µmol mol-1"}:
+            close = ["umol/mol"]
+        hint = f" (did you mean {next(u for u in CI_UNITS if u.lower() == close[0].lower())!r}?)" if close else ""
+        problems.append(f"[data.units] ci = {unit!r} is not a known unit{hint}; valid units: "
+                        f"{', '.join(map(repr, CI_UNITS))} ('Pa' also needs pressure_kpa)")
+    elif unit == "Pa" and pressure is None:
+        problems.append("[data.units] ci = \"Pa\" needs pressure_kpa, the air pressure in kPa at which Ci "
+                        "was measured (about 101.3 at sea level), to convert Ci to umol/mol")
+    if pressure is not None and unit == "Pa" and not _plausible_pressure(pressure):
+        problems.append(f"[data.units] pressure_kpa = {pressure!r} is not a pressure between "
+                        f"{PRESSURE_RANGE_KPA[0]:g} and {PRESSURE_RANGE_KPA[1]:g} kPa; give the air pressure "
+                        f"in kPa (about 101.3 at sea level)")
+    elif pressure is not None and unit == "umol/mol":
+        notes.append("pressure_kpa is not used: Ci is declared in umol/mol")
+    return problems, notes
+
+
+def _plausible_pressure(pressure: object) -> bool:
+    return isinstance(pressure, (int, float)) and PRESSURE_RANGE_KPA[0] <= pressure <= PRESSURE_RANGE_KPA[1]
+
+
+# ---------------------------------------------------------------- the file
+
+def _read_table(path: Path) -> tuple[_Table | None, list[str]]:
+    """The file as stripped text with line numbers, or None and the reason it cannot be read."""
+    if not path.exists():
+        return None, [f"the observation file {str(path)!r} does not exist; check [data] file "
+                      f"(a relative path is relative to the comparison file)"]
+    if not path.is_file():
+        return None, [f"the observation file {str(path)!r} is not a file; point [data] file at the CSV"]
+    try:
+        grid = pd.read_csv(path, header=None, dtype=str, keep_default_na=False, skip_blank_lines=False,
+                           encoding="utf-8-sig")
+    except pd.errors.EmptyDataError:
+        return None, ["the observation file is empty; it needs a header line and one line per point"]
+    except pd.errors.ParserError as exc:
+        return None, [_parser_problem(exc)]
+    except UnicodeDecodeError as exc:
+        return None, [f"the observation file is not UTF-8 text (byte {exc.start}); save it as UTF-8 CSV"]
+    grid = grid.fillna("")
+    breaks = np.array([grid[c].str.count("\n").to_numpy() for c in grid.columns]).sum(axis=0)
+    starts = 1 + np.arange(len(grid)) + np.concatenate([[0], np.cumsum(breaks)[:-1]])
+    grid = grid.apply(lambda column: column.str.strip())
+    header = [str(h) for h in grid.iloc[0]]
+    body = grid.iloc[1:]
+    filled = ~(body == "").all(axis=1).to_numpy()
+    cells = body[filled].reset_index(drop=True)
+    if cells.empty:
+        return None, ["the observation file has a header line but no data rows; add one line per point"]
+    return _Table(header=header, cells=cells, rows=starts[1:][filled]), []
+
+
+def _parser_problem(exc: Exception) -> str:
+    match = re.search(r"Expected (\d+) fields in line (\d+), saw (\d+)", str(exc))
+    if match:
+        expected, line, seen = match.groups()
+        return (f"line {line} of the observation file has {seen} fields but the header has {expected}; "
+                f"check for an unquoted comma (a decimal comma?) or a missing header name")
+    return f"the observation file is not readable as CSV ({exc}); save it as comma-separated text"
+
+
+def _check_header(table: _Table, spec: DataSpec) -> list[str]:
+    wanted = [(name, var, f"[data.columns] {var}") for var, name in _valid_mapping(spec).items()]
+    wanted += [(name, "group", "[data.leaf] groups") for name in spec.groups]
+    wanted += [(name, "trait", "[data.leaf] traits") for name in spec.traits]
+    problems = []
+    for name, role, section in wanted:
+        count = table.header.count(name)
+        if count == 0:
+            problems.append(_missing_column(name, role, section, table.header))
+        elif count > 1:
+            places = [str(i + 1) for i, h in enumerate(table.header) if h == name]
+            problems.append(f"{_label(name, role)} appears {count} times in the header (columns "
+                            f"{', '.join(places)}); rename the copies so each name is unique")
+    return problems
+
+
+def _missing_column(name: str, role: str, section: str, header: list[str]) -> str:
+    lowered = {h.lower(): h for h in header}
+    close = [lowered[m] for m in difflib.get_close_matches(name.lower(), list(lowered), n=3, cutoff=0.6)]
+    hint = f"; did you mean {' or '.join(map(repr, close))}?" if close else ""
+    listed = ", ".join(map(repr, header[:30])) + (f" and {len(header) - 30} more" if len(header) > 30 else "")
+    separator = ""
+    if len(header) == 1 and any(s in header[0] for s in ";\t|"):
+        separator = " The file seems not to be comma-separated; save it as CSV with ',' between fields."
+    return (f"{_label(name, role)} is not in the file{hint}; the file has columns: {listed}. "
+            f"Correct the name under {section}.{separator}")
+
+
+# ---------------------------------------------------------------- cells
+
+def _parse_cells(table: _Table, names: dict[str, str], numeric: Sequence[str], text: Sequence[str],
+                 role: str | None = None) -> tuple[dict[str, np.ndarray], dict[str, np.ndarray], list[str]]:
+    """Numbers and texts of the columns ``names`` (key -> user's name), with problems found.
+
+    ``role`` names the columns in messages; by default the key (the leafcv variable) does.
+    """
+    numbers: dict[str, np.ndarray] = {}
+    texts: dict[str, np.ndarray] = {}
+    problems: list[str] = []
+    for key, name in names.items():
+        if key in numeric:
+            numbers[key], found = _numeric_column(table, name, role or key)
+        elif key in text:
+            texts[key], found = _text_column(table, name, role or key)
+        else:
+            continue
+        problems += found
+    return numbers, texts, problems
+
+
+def _numeric_column(table: _Table, name: str, role: str) -> tuple[np.ndarray, list[str]]:
+    """Values (NaN where missing or not a finite number) and the problems found."""
+    text = table.text(name)
+    missing = text.str.lower().isin(MISSING_TOKENS).to_numpy()
+    values = pd.to_numeric(text.where(~missing), errors="coerce").to_numpy(dtype=float, copy=True)
+    bad = ~missing & ~np.isfinite(values)
+    values[~np.isfinite(values)] = np.nan
+    problems = []
+    if bad.any():
+        shown = list(text[bad])
+        decimal = " with '.' as the decimal mark" if any(re.fullmatch(r"[-+]?\d*,\d+", v) for v in shown) else ""
+        problems.append(f"{_label(name, role)} has values that are not finite numbers in "
+                        f"{_rows_values(table.rows[bad], shown)}; write plain numbers{decimal}")
+    if missing.any():
+        problems.append(f"{_label(name, role)} has missing values in {_rows(table.rows[missing])}; "
+                        f"{_missing_advice(role)}")
+    return values, problems
+
+
+def _text_column(table: _Table, name: str, role: str) -> tuple[np.ndarray, list[str]]:
+    """Cell texts ('' where empty) and the problems found."""
+    text = table.text(name).to_numpy(dtype=object)
+    empty = text == ""
+    problems = []
+    if empty.any():
+        what = "no leaf id" if role == "leaf" else "empty cells"
+        problems.append(f"{_label(name, role)} has {what} in {_rows(table.rows[empty])}; {_missing_advice(role)}")
+    return text, problems
+
+
+def _missing_advice(role: str) -> str:
+    if role in ("trait", "group"):
+        return "repeat the leaf's value on every row of the leaf"
+    if role == "leaf":
+        return "give every point the id of its leaf"
+    if role == "curve":
+        return "give every point the id of its curve, or remove the curve mapping to infer curves"
+    default = {"t_leaf": f"{DEFAULT_T_LEAF:g} deg C", "o2": f"{DEFAULT_O2:g} mmol/mol"}.get(role)
+    tail = f" (or remove the {role} mapping to use {default} for every point)" if default else ""
+    return f"every point needs a value: fill them in or delete those rows{tail}"
+
+
+# ---------------------------------------------------------------- units and ranges
+
+def _convert_ci(ci: np.ndarray, rows: np.ndarray, name: str,
+                spec: DataSpec) -> tuple[np.ndarray, list[str], list[str]]:
+    """Ci in umol/mol, with unit hints and range problems; unconvertible units skip the checks."""
+    label = _label(name, "ci")
+    finite = ci[np.isfinite(ci)]
+    median = float(np.median(finite)) if finite.size else np.nan
+    if spec.ci_unit == "umol/mol":
+        problems = []
+        if median < PA_LIKE_MEDIAN:
+            problems.append(f"{label} has a median of {median:.3g}, low for umol/mol (air gives a few hundred); "
+                            f"this looks like Pa; set units ci = \"Pa\" and pressure_kpa (the air pressure "
+                            f"in kPa) under [data.units]")
+        return ci, problems + _range_problems(ci, rows, name, "ci"), []
+    if spec.ci_unit != "Pa":
+        return ci, [], []
+    problems = []
+    if median > UMOL_LIKE_MEDIAN_PA:
+        problems.append(f"{label} has a median of {median:.3g}, high for Pa (air gives about 40); this looks "
+                        f"like umol/mol; set units ci = \"umol/mol\" under [data.units]")
+    pressure = spec.pressure_kpa
+    if not _plausible_pressure(pressure):
+        return ci, problems, []     # the pressure problem is reported with the units
+    # Dalton's law: mole fraction = partial pressure / total pressure; Pa / (kPa * 1000) * 1e6 umol/mol.
+    converted = ci * 1000.0 / pressure
+    note = [f"Ci converted from Pa to umol/mol at {pressure:g} kPa (Ci x 1000 / {pressure:g})"]
+    unit = f"umol/mol, i.e. {CI_RANGE[0]:g}-{CI_RANGE[1] * pressure / 1000:g} Pa at {pressure:g} kPa"
+    return converted, problems + _range_problems(converted, rows, name, "ci", unit, shown=ci), note
+
+
+def _range_problems(values: np.ndarray, rows: np.ndarray, name: str, var: str,
+                    unit: str | None = None, shown: np.ndarray | None = None) -> list[str]:
+    low, high = _RANGES[var]
+    outside = np.isfinite(values) & ((values < low) | (values > high))
+    if not outside.any():
+        return []
+    shown = values if shown is None else shown
+    return [f"{_label(name, var)} has {int(outside.sum())} value(s) outside the plausible range {low:g} to "
+            f"{high:g} {unit or _UNITS[var]} in {_rows_values(rows[outside], list(shown[outside]))}; "
+            f"{_RANGE_ADVICE[var]}"]
+
+
+def _kelvin_hint(t_leaf: np.ndarray, name: str) -> list[str]:
+    finite = t_leaf[np.isfinite(t_leaf)]
+    if finite.size and np.median(finite) > KELVIN_LIKE_MEDIAN:
+        return [f"{_label(name, 't_leaf')} looks like kelvin (median {np.median(finite):.4g}); "
+                f"convert it to deg C (subtract 273.15)"]
+    return []
+
+
+# ---------------------------------------------------------------- leaves
+
+def _leaf_size_problems(leaf: np.ndarray, rows: np.ndarray, name: str) -> list[str]:
+    problems = []
+    for leaf_id, index in _indices_by(leaf).items():
+        if len(index) < MIN_POINTS_PER_LEAF:
+            problems.append(f"leaf {leaf_id!r} (column {name!r}) has only {len(index)} point(s) "
+                            f"({_rows(rows[index])}); a leaf needs at least {MIN_POINTS_PER_LEAF}: check its "
+                            f"id or remove it")
+    return problems
+
+
+def _indices_by(keys: np.ndarray) -> dict[object, np.ndarray]:
+    """Row positions of each non-empty key, keys in order of first appearance."""
+    present = np.flatnonzero(keys != "")
+    groups: dict[object, list[int]] = {}
+    for i in present:
+        groups.setdefault(keys[i], []).append(int(i))
+    return {k: np.asarray(v) for k, v in groups.items()}
+
+
+def _constancy_problems(leaf: np.ndarray, values: np.ndarray, rows: np.ndarray, name: str, role: str) -> list[str]:
+    """One problem naming every leaf in which a leaf-level column takes more than one value."""
+    details = []
+    for leaf_id, index in _indices_by(leaf).items():
+        vals = values[index]
+        keep = np.isfinite(vals) if role == "trait" else vals != ""
+        distinct = list(dict.fromkeys(vals[keep].tolist()))
+        if len(distinct) > 1:
+            parts = [f"{_show(v)} in {_rows(rows[index][keep][vals[keep] == v], limit=3)}" for v in distinct[:4]]
+            details.append(f"leaf {leaf_id!r} has " + "; ".join(parts))
+    if not details:
+        return []
+    more = f"; and {len(details) - MAX_LISTED} more leaves" if len(details) > MAX_LISTED else ""
+    return [f"{_label(name, role)} must be constant within a leaf but varies in {len(details)} leaf/leaves: "
+            f"{'. '.join(details[:MAX_LISTED])}{more}. Give each leaf one value"]
+
+
+def _duplicate_problems(table: _Table) -> list[str]:
+    repeated = table.cells.duplicated(keep=False).to_numpy()
+    if not repeated.any():
+        return []
+    first: dict[tuple, int] = {}
+    pairs = []
+    for key, row in zip(table.cells[repeated].itertuples(index=False, name=None), table.rows[repeated]):
+        if key in first:
+            pairs.append(f"row {row} repeats row {first[key]}")
+        else:
+            first[key] = int(row)
+    more = f" and {len(pairs) - MAX_LISTED} more" if len(pairs) > MAX_LISTED else ""
+    return [f"{len(pairs)} row(s) repeat an earlier row exactly: {', '.join(pairs[:MAX_LISTED])}{more}; "
+            f"remove the copies (a point logged twice?)"]
+
+
+def _leaf_table(leaf: np.ndarray, groups: dict[str, np.ndarray],
+                traits: dict[str, np.ndarray]) -> tuple[pd.DataFrame, np.ndarray]:
+    """One row per leaf in order of first appearance, and each point's leaf index."""
+    by_leaf = _indices_by(leaf)
+    firsts = [index[0] for index in by_leaf.values()]
+    columns: dict[str, pd.Series] = {"leaf": pd.Series(list(by_leaf), dtype=str)}
+    for name, values in groups.items():
+        columns[name] = pd.Series(values[firsts].tolist(), dtype=str)
+    for name, values in traits.items():
+        columns[name] = pd.Series(values[firsts], dtype=float)
+    leaf_index = np.empty(len(leaf), dtype=np.int64)
+    for i, index in enumerate(by_leaf.values()):
+        leaf_index[index] = i
+    return pd.DataFrame(columns), leaf_index
+
+
+# ---------------------------------------------------------------- curves
+
+def _cv(values: np.ndarray) -> float:
+    """Coefficient of variation with |mean| floored at CV_MEAN_FLOOR."""
+    return float(np.std(values) / max(abs(float(np.mean(values))), CV_MEAN_FLOOR))
+
+
+def _light_levels(ppfd: np.ndarray) -> np.ndarray:
+    """Level number of each point (-1 where PPFD is unknown): sorted values within tolerance of a level's first."""
+    level = np.full(len(ppfd), -1)
+    known = np.flatnonzero(np.isfinite(ppfd))
+    current, anchor = -1, 0.0
+    for i in known[np.argsort(ppfd[known], kind="stable")]:
+        if current < 0 or ppfd[i] - anchor > max(PPFD_LEVEL_TOLERANCE * abs(anchor), PPFD_LEVEL_FLOOR):
+            current, anchor = current + 1, ppfd[i]
+        level[i] = current
+    return level
+
+
+def _split_leaf(ppfd: np.ndarray) -> list[np.ndarray]:
+    """Positions of each curve of one leaf: one per light level with >= MIN_ACI_POINTS points, then the rest."""
+    level = _light_levels(ppfd)
+    sizes = np.bincount(level[level >= 0], minlength=1)
+    big = [k for k in dict.fromkeys(level[level >= 0].tolist()) if sizes[k] >= MIN_ACI_POINTS]
+    curves = [np.flatnonzero(level == k) for k in big]
+    rest = np.flatnonzero((level >= 0) & ~np.isin(level, big))
+    return curves + ([rest] if rest.size else [])
+
+
+def _curves(leaf: np.ndarray, curve_ids: np.ndarray | None, ci: np.ndarray | None, ppfd: np.ndarray | None,
+            rows: np.ndarray, curve_name: str | None) -> tuple[np.ndarray, np.ndarray, list[str], list[str]]:
+    """Curve id and type of every point, problems with curves, and one note on how they were found."""
+    n = len(leaf)
+    curve = np.full(n, "", dtype=object) if curve_ids is None else curve_ids.copy()
+    kinds = np.full(n, "", dtype=object)
+    if ci is None or ppfd is None:
+        return curve, kinds, [], []
+    problems = []
+    for leaf_id, index in _indices_by(leaf).items():
+        parts = _split_leaf(ppfd[index]) if curve_ids is None else _indices_by(curve_ids[index]).values()
+        seen: dict[str, int] = {}
+        for member in (index[part] for part in parts):
+            kind, constant = _curve_kind(ci[member], ppfd[member])
+            if constant:
+                where = "points grouped by the PPFD rule" if curve_ids is None else f"curve {curve[member[0]]!r}"
+                problems.append(f"leaf {leaf_id!r}, {where} ({_rows(rows[member])}): curve has constant Ci "
+                                f"and PPFD; {_constant_advice(curve_name)}")
+            if kind is None:
+                continue
+            kinds[member] = kind
+            if curve_ids is None:
+                seen[kind] = seen.get(kind, 0) + 1
+                curve[member] = kind if seen[kind] == 1 else f"{kind}-{seen[kind]}"
+            else:
+                problems += _label_problem(leaf_id, curve[member[0]], kind, curve_name)
+    return curve, kinds, problems, [_curve_note(curve, kinds, leaf, curve_name)]
+
+
+def _curve_kind(ci: np.ndarray, ppfd: np.ndarray) -> tuple[str | None, bool]:
+    """("aci" | "aq", _) from the larger CV; (None, True) when neither varies; (None, False) without data."""
+    ok = np.isfinite(ci) & np.isfinite(ppfd)
+    if not ok.any():
+        return None, False
+    cv_ci, cv_ppfd = _cv(ci[ok]), _cv(ppfd[ok])
+    if cv_ci < CONSTANT_CV and cv_ppfd < CONSTANT_CV:
+        return None, True
+    return ("aci" if cv_ci > cv_ppfd else "aq"), False
+
+
+def _constant_advice(curve_name: str | None) -> str:
+    if curve_name is None:
+        return ("within a leaf, points at one PPFD (within 2 %) form an A–Ci curve when there are at least "
+                f"{MIN_ACI_POINTS}, and the rest form one curve; map a curve column under [data.columns] or "
+                "remove these points")
+    return f"a response curve needs Ci or PPFD to vary: check the ids in column {curve_name!r} or remove these points"
+
+
+def _label_problem(leaf_id: object, curve_id: str, kind: str, curve_name: str | None) -> list[str]:
+    """A curve id that names a type ('aci', 'A-Q', ...) must agree with the inferred type."""
+    named = re.sub(r"[^a-z]", "", curve_id.lower())
+    if named in ("aci", "aq") and named != kind:
+        other, reads = ("Ci", "A–Ci") if kind == "aci" else ("PPFD", "A–Q")
+        return [f"leaf {leaf_id!r}, curve {curve_id!r} (column {curve_name!r}) is labelled {curve_id!r} but its "
+                f"{other} varies more, so it reads as an {reads} curve; check the label"]
+    return []
+
+
+def _curve_note(curve: np.ndarray, kinds: np.ndarray, leaf: np.ndarray, curve_name: str | None) -> str:
+    pairs = {(l, c): k for l, c, k in zip(leaf, curve, kinds) if k}
+    n_aci = sum(k == "aci" for k in pairs.values())
+    n_aq = len(pairs) - n_aci
+    if curve_name is None:
+        how = (f"no curve column mapped: within each leaf, points whose PPFD agrees within 2 % form an A–Ci "
+               f"curve when there are at least {MIN_ACI_POINTS} of them, and the remaining points form one more "
+               f"curve; ")
+    else:
+        how = f"curves are the (leaf, {curve_name!r}) pairs; "
+    return (how + f"curve type inferred per curve from the relative spread (coefficient of variation) of Ci and "
+            f"PPFD: {n_aci} A–Ci, {n_aq} A–Q")

@@ -1,0 +1,303 @@
+"""Structure specification + data -> Stan data for the generic program (stan/leafcv.stan).
+
+The Stan program is the same for every structure: this module only builds design matrices, index
+arrays, sizes and flags. A `Design` also keeps the readable description of every coefficient, random
+term, centring choice and prior, so results can be reported by meaning.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from . import fvcb
+from .data.dataset import Dataset
+from .errors import SpecError
+from .priors import PriorSet
+from .spec import LINKS, PARAMETERS, DataSpec, Structure
+
+#: Fewest training points a leaf needs for its effects to be centred (common practice, no source:
+#: a leaf informed by whole curves pins its own parameters; see DESIGN.md for the measured gain).
+MIN_POINTS_CENTRED_LEAF = 5
+#: Fewest leaves per level for a group effect on a parameter that also has leaf effects to be centred.
+MIN_LEAVES_CENTRED_GROUP = 20
+
+
+@dataclass(frozen=True)
+class ModelOptions:
+    """FvCB options of a comparison (the defaults follow DESIGN.md)."""
+
+    electron: str = "4-8"
+    transition: str = "min"
+    smooth_curvature: float = 0.99
+    tpu: bool = False
+    student_t: bool = False
+    sigma_by_curve: bool = False
+    peaked: bool = False
+
+
+@dataclass(frozen=True)
+class Coefficient:
+    param: str
+    term: str          # trait or group column
+    label: str         # e.g. "leaf_n" or "month=2026-07"
+    kind: str          # "trait" or "level"
+    prior_sd: float
+
+
+@dataclass(frozen=True)
+class GroupTerm:
+    param: str
+    grouping: str
+    levels: tuple[str, ...]
+    start: int         # 0-based offset of its first level in the stacked level vector
+    centred: tuple[bool, ...]
+    reason: str
+
+
+@dataclass(frozen=True)
+class LeafTerm:
+    param: str
+    centred_leaves: int
+    noncentred_leaves: int
+    reason: str
+
+
+@dataclass(frozen=True)
+class Design:
+    structure: Structure
+    stan_data: dict
+    params: tuple[str, ...]                 # parameter order in the program
+    ratio: dict[str, bool]
+    coefficients: tuple[Coefficient, ...]
+    group_terms: tuple[GroupTerm, ...]
+    leaf_terms: tuple[LeafTerm, ...]
+    trait_transform: dict[str, tuple[float, float]]   # trait -> (centre, scale)
+    prior_lines: tuple[str, ...]
+    train_leaves: np.ndarray                # bool per leaf
+    obs_index: np.ndarray                   # rows of dataset.obs in the likelihood
+    cen_cells: np.ndarray = field(repr=False, default=None)   # flat cell indices (0-based)
+    nc_cells: np.ndarray = field(repr=False, default=None)
+
+
+def _levels(values) -> tuple[str, ...]:
+    return tuple(sorted(set(map(str, values))))
+
+
+def trait_transforms(dataset: Dataset, spec: DataSpec) -> dict[str, tuple[float, float]]:
+    """Centre (default: leaf-table mean) and scale (default 1) of every trait."""
+    out = {}
+    for t in dataset.traits:
+        x = dataset.leaves[t].to_numpy(float)
+        out[t] = (float(spec.centre.get(t, np.mean(x))), float(spec.scale.get(t, 1.0)))
+    return out
+
+
+def build_design(
+    structure: Structure,
+    dataset: Dataset,
+    spec: DataSpec,
+    options: ModelOptions = ModelOptions(),
+    priors: PriorSet = PriorSet(),
+    train_leaves: np.ndarray | None = None,
+) -> Design:
+    """Turn a structure and data into the Stan data of the generic program.
+
+    Parameters
+    ----------
+    train_leaves
+        Bool per leaf: leaves whose points enter the likelihood (default: all). Held-out leaves keep
+        their cells, always non-centred, so their effects are drawn from the population.
+    """
+    leaves = dataset.leaves
+    L = len(leaves)
+    train = np.ones(L, bool) if train_leaves is None else np.asarray(train_leaves, bool)
+    obs = dataset.obs
+    obs_index = np.flatnonzero(train[obs["leaf_index"].to_numpy()])
+    if obs_index.size == 0:
+        raise SpecError(structure.name, ["no training points left after holding out leaves"])
+    fit_obs = obs.iloc[obs_index]
+    points_per_leaf = np.bincount(fit_obs["leaf_index"].to_numpy(), minlength=L)
+
+    params = PARAMETERS + (("tpu25",) if options.tpu else ())
+    links = dict(LINKS, tpu25="log")
+    P = len(params)
+    transforms = trait_transforms(dataset, spec)
+    ratio = {p: structure.params.get(p) is not None and structure.params[p].ratio_to == "vcmax25"
+             for p in params}
+
+    coefs: list[Coefficient] = []
+    columns: list[np.ndarray] = []
+    fixed_map: list[np.ndarray] = []
+    group_terms: list[GroupTerm] = []
+    re_par, re_lev, re_x, tau_sd, lev_term, lev_centred = [], [], [], [], [], []
+    leaf_terms: list[LeafTerm] = []
+    cen_cell, cen_term, nc_cell, nc_term, leaf_tau_sd = [], [], [], [], []
+    prior_lines: list[str] = []
+
+    for pi, p in enumerate(params):
+        ps = structure.params.get(p)
+        fixed = ps.fixed if ps else ()
+        random = ps.random if ps else ()
+        centring = ps.centring if ps else {}
+        link = links[p]
+        what = f"{p}/vcmax25 at reference" if ratio[p] else f"{p} at reference traits and levels"
+        prior_lines.append(priors.intercept(p, ratio[p]).describe(link, what))
+        for term in fixed:
+            if term in dataset.traits:
+                c, s = transforms[term]
+                columns.append((leaves[term].to_numpy(float) - c) / s)
+                sd = priors.slope_sd(link)
+                coefs.append(Coefficient(p, term, term, "trait", sd))
+                fixed_map.append(np.eye(P)[pi])
+                prior_lines.append(f"{p} slope on {term} (per {s:g} units, centred at {c:.4g}): normal(0, {sd:g}) on the {link} scale")
+            else:
+                levels = _levels(leaves[term])
+                for lev in levels[1:]:
+                    columns.append((leaves[term].astype(str).to_numpy() == lev).astype(float))
+                    coefs.append(Coefficient(p, term, f"{term}={lev}", "level", priors.level_sd))
+                    fixed_map.append(np.eye(P)[pi])
+                prior_lines.append(f"{p} {term} levels vs reference {levels[0]!r}: normal(0, {priors.level_sd:g}) on the {link} scale")
+        for grouping in random:
+            choice = centring.get(grouping, "auto")
+            if grouping == "leaf":
+                rl = len(leaf_tau_sd) + 1
+                leaf_tau_sd.append(priors.leaf_sd_scale)
+                informed = (points_per_leaf >= MIN_POINTS_CENTRED_LEAF) & train
+                centred = informed if choice == "auto" else (np.full(L, choice == "centred") & train)
+                cells = np.arange(L) + pi * L
+                cen_cell += list(cells[centred] + 1)
+                cen_term += [rl] * int(centred.sum())
+                nc_cell += list(cells[~centred] + 1)
+                nc_term += [rl] * int((~centred).sum())
+                reason = (f"{choice}: chosen by the user" if choice != "auto" else
+                          f"auto: centred where a leaf has >= {MIN_POINTS_CENTRED_LEAF} training points "
+                          f"(median {int(np.median(points_per_leaf[train]))})")
+                if (~train).any():
+                    reason += "; held-out leaves non-centred"
+                leaf_terms.append(LeafTerm(p, int(centred.sum()), int((~centred).sum()), reason))
+                prior_lines.append(f"SD of leaf effects on {p}: half-normal(0, {priors.leaf_sd_scale:g}) on the {link} scale")
+                continue
+            levels = _levels(leaves[grouping])
+            lev_of_leaf = np.searchsorted(levels, leaves[grouping].astype(str).to_numpy())
+            leaves_per_level = np.bincount(lev_of_leaf[train], minlength=len(levels))
+            has_leaf_term = "leaf" in random
+            if choice == "auto":
+                need = MIN_LEAVES_CENTRED_GROUP if has_leaf_term else 2
+                cen = leaves_per_level >= need
+                reason = (f"auto: centred where a level has >= {need} training leaves"
+                          + (" (the parameter also has leaf effects)" if has_leaf_term else ""))
+            else:
+                cen = np.full(len(levels), choice == "centred") & (leaves_per_level > 0)
+                reason = f"{choice}: chosen by the user"
+            if (leaves_per_level == 0).any():
+                reason += "; levels without training data non-centred"
+            r = len(re_par)
+            start = len(lev_term)
+            re_par.append(pi + 1)
+            re_lev.append(start + lev_of_leaf + 1)
+            re_x.append(np.ones(L))
+            tau_sd.append(priors.group_sd_scale)
+            lev_term += [r + 1] * len(levels)
+            lev_centred += list(cen)
+            group_terms.append(GroupTerm(p, grouping, levels, start, tuple(bool(c) for c in cen), reason))
+            prior_lines.append(f"SD of {grouping} effects on {p}: half-normal(0, {priors.group_sd_scale:g}) on the {link} scale")
+    prior_lines.append(f"residual SD: half-normal(0, {priors.sigma_scale:g}) umol m-2 s-1")
+    if options.student_t:
+        prior_lines.append(f"Student-t degrees of freedom: gamma({priors.nu_shape:g}, {priors.nu_rate:g}), > 1")
+
+    K = len(columns)
+    X = np.column_stack(columns) if K else np.zeros((L, 0))
+    lev_centred_a = np.asarray(lev_centred, bool)
+    ip = [priors.intercept(p, ratio[p]) for p in params]
+    curve_types = fit_obs["curve_type"].to_numpy()
+    if options.sigma_by_curve:
+        kinds = sorted(set(curve_types))
+        sigma_group = np.searchsorted(kinds, curve_types) + 1
+    else:
+        sigma_group = np.ones(len(fit_obs), int)
+    rset = fvcb.RUBISCO_SETS[fvcb.DEFAULT_RUBISCO_SET]
+    responses = _responses(options)
+    e1, e2 = (4.0, 8.0) if options.electron == "4-8" else (4.5, 10.5)
+    data = {
+        "N": len(fit_obs), "L": L, "leaf": fit_obs["leaf_index"].to_numpy() + 1,
+        "ci": fit_obs["ci"].to_numpy(float), "q": fit_obs["ppfd"].to_numpy(float),
+        "tleaf": fit_obs["t_leaf"].to_numpy(float), "o2": fit_obs["o2"].to_numpy(float),
+        "a": fit_obs["a_net"].to_numpy(float),
+        "S": int(sigma_group.max()), "sigma_group": sigma_group,
+        "use_tpu": int(options.tpu), "smooth": int(options.transition == "smooth"),
+        "smooth_curvature": options.smooth_curvature, "student_t": int(options.student_t),
+        "e1": e1, "e2": e2,
+        "rubisco": np.array([rset.kc25, rset.ko25, rset.gamma25, rset.ha_kc, rset.ha_ko, rset.ha_gamma]),
+        "tresp": np.array([[r.ha, r.hd or 0.0, r.ds or 0.0] for r in responses]),
+        "peaked": [int(r.peaked) for r in responses],
+        "ratio_j": int(ratio["jmax25"]), "ratio_rd": int(ratio["rd25"]),
+        "prior_family": [1 if pr.family == "normal" else 2 for pr in ip],
+        "prior_a": np.array([pr.a for pr in ip]), "prior_b": np.array([pr.b for pr in ip]),
+        "K": K, "X": X, "fixed_map": np.array(fixed_map).reshape(K, P),
+        "beta_sd": np.array([c.prior_sd for c in coefs]),
+        "R": len(re_par), "re_par": re_par, "re_lev": np.array(re_lev, int).reshape(len(re_par), L),
+        "re_x": np.array(re_x).reshape(len(re_par), L), "tau_sd": np.array(tau_sd),
+        "Q": len(lev_term), "lev_term": lev_term,
+        "Qc": int(lev_centred_a.sum()), "cen_lev": list(np.flatnonzero(lev_centred_a) + 1),
+        "nc_lev": list(np.flatnonzero(~lev_centred_a) + 1),
+        "Rl": len(leaf_tau_sd), "leaf_tau_sd": np.array(leaf_tau_sd),
+        "Mc": len(cen_cell), "cen_cell": cen_cell, "cen_term": cen_term,
+        "Mn": len(nc_cell), "nc_cell": nc_cell, "nc_term": nc_term,
+        "sigma_sd": priors.sigma_scale, "nu_shape": priors.nu_shape, "nu_rate": priors.nu_rate,
+    }
+    return Design(structure, data, params, ratio, tuple(coefs), tuple(group_terms), tuple(leaf_terms),
+                  transforms, tuple(prior_lines), train, obs_index,
+                  np.asarray(cen_cell, int) - 1, np.asarray(nc_cell, int) - 1)
+
+
+def _responses(options: ModelOptions) -> list[fvcb.TemperatureResponse]:
+    """Temperature responses of Vcmax, Jmax, Rd and TPU (Bernacchi et al. 2001, 2003)."""
+    if options.peaked:
+        v, j = fvcb.VCMAX_PEAKED_LEUNING2002, fvcb.JMAX_PEAKED_LEUNING2002
+    else:
+        v, j = fvcb.TemperatureResponse(fvcb.VCMAX_HA), fvcb.TemperatureResponse(fvcb.JMAX_HA)
+    return [v, j, fvcb.TemperatureResponse(fvcb.RD_HA), fvcb.TemperatureResponse(fvcb.TPU_HA)]
+
+
+def leaf_link_values(design: Design, draws: dict[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
+    """Population mean and actual link-scale values of every (leaf, parameter) cell, per draw.
+
+    ``draws`` holds the program's parameters flattened over chains: name -> (S, *shape).
+    Returns (mu, eta), each shaped (S, L, P).
+    """
+    d = design.stan_data
+    S = draws["b0"].shape[0]
+    L, P = d["L"], len(design.params)
+    mu = np.repeat(draws["b0"][:, None, :], L, axis=1)
+    if d["K"]:
+        mu = mu + np.einsum("lk,sk,kp->slp", d["X"], draws["beta"], d["fixed_map"])
+    u = np.zeros((S, d["Q"]))
+    if d["Q"]:
+        cen = np.asarray(d["cen_lev"], int) - 1
+        nc = np.asarray(d["nc_lev"], int) - 1
+        u[:, cen] = draws["u_c"]
+        u[:, nc] = draws["tau"][:, np.asarray(d["lev_term"])[nc] - 1] * draws["u_z"]
+    for r in range(d["R"]):
+        mu[:, :, d["re_par"][r] - 1] += u[:, d["re_lev"][r] - 1] * d["re_x"][r]
+    mu_flat = mu.transpose(0, 2, 1).reshape(S, L * P)   # column-major cells: l + p L
+    eta_flat = mu_flat.copy()
+    eta_flat[:, design.cen_cells] = draws["eta_c"]
+    if d["Mn"]:
+        eta_flat[:, design.nc_cells] = (mu_flat[:, design.nc_cells]
+                                        + draws["tau_leaf"][:, np.asarray(d["nc_term"]) - 1] * draws["eta_z"])
+    eta = eta_flat.reshape(S, P, L).transpose(0, 2, 1)
+    return mu, eta
+
+
+def natural_values(design: Design, eta: np.ndarray) -> dict[str, np.ndarray]:
+    """Natural-scale leaf parameters from link-scale cells (..., L, P), ratios resolved."""
+    out = {}
+    v = eta[..., 0]
+    for i, p in enumerate(design.params):
+        x = eta[..., i]
+        if LINKS.get(p, "log") == "logit":
+            out[p] = 1.0 / (1.0 + np.exp(-x))
+        else:
+            out[p] = np.exp(x + v) if design.ratio.get(p) and p != "vcmax25" else np.exp(x)
+    return out

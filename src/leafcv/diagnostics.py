@@ -1,0 +1,91 @@
+"""Convergence diagnostics of one fit: R-hat, bulk and tail ESS, divergences, tree-depth hits, E-BFMI.
+
+Thresholds follow Vehtari, Gelman, Simpson, Carpenter & Buerkner 2021 (Bayesian Analysis 16:667-718:
+R-hat < 1.01, ESS above 100 per chain) and Betancourt 2016 (arXiv:1604.00695, E-BFMI below 0.3 is a
+problem); values recalled from memory. ESS uses ArviZ's rank-normalised estimators.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import arviz as az
+import numpy as np
+
+from .engines.base import Draws
+
+RHAT_MAX = 1.01
+ESS_PER_CHAIN_MIN = 100
+EBFMI_MIN = 0.3
+TREEDEPTH_HIT_FRACTION_MAX = 0.01
+
+
+@dataclass(frozen=True)
+class Diagnostics:
+    max_rhat: float
+    min_ess_bulk: float
+    min_ess_tail: float
+    divergences: int
+    treedepth_hits: int
+    min_ebfmi: float
+    n_draws: int
+    chains: int
+    worst: str              # parameter with the largest R-hat
+    problems: tuple[str, ...]
+
+    @property
+    def converged(self) -> bool:
+        return not self.problems
+
+
+def ebfmi(energy: np.ndarray) -> np.ndarray:
+    """E-BFMI per chain from the energy draws (chains, draws) (Betancourt 2016, eq. for BFMI)."""
+    return np.sum(np.diff(energy, axis=1) ** 2, axis=1) / np.sum((energy - energy.mean(axis=1, keepdims=True)) ** 2, axis=1)
+
+
+def chain_arrays(draws: Draws, names: list[str] | None = None) -> dict[str, np.ndarray]:
+    """Scalar-by-scalar (chains, draws) arrays of the named parameters (all if None)."""
+    out = {}
+    for name in names or list(draws.params):
+        arr = draws.params[name]
+        if arr.ndim == 2:
+            out[name] = arr
+        else:
+            flat = arr.reshape(arr.shape[0], arr.shape[1], -1)
+            for k in range(flat.shape[2]):
+                idx = np.unravel_index(k, arr.shape[2:])
+                out[f"{name}[{','.join(str(i + 1) for i in idx)}]"] = flat[:, :, k]
+    return out
+
+
+def diagnose(draws: Draws, names: list[str] | None = None, max_treedepth: int = 10) -> Diagnostics:
+    """Diagnostics over the named parameters (default: all parameters of the fit)."""
+    arrays = chain_arrays(draws, names)
+    rhat, bulk, tail = {}, {}, {}
+    for k, v in arrays.items():
+        if np.ptp(v) == 0:
+            continue
+        rhat[k] = float(az.rhat(v))
+        bulk[k] = float(az.ess(v, method="bulk"))
+        tail[k] = float(az.ess(v, method="tail"))
+    chains, n = draws.n_chains, draws.n_draws
+    div = int(draws.sampler["divergent__"].sum())
+    hits = int((draws.sampler["treedepth__"] >= max_treedepth).sum())
+    bfmi = ebfmi(draws.sampler["energy__"])
+    max_rhat = max(rhat.values(), default=np.nan)
+    worst = max(rhat, key=rhat.get) if rhat else ""
+    min_bulk = min(bulk.values(), default=np.nan)
+    min_tail = min(tail.values(), default=np.nan)
+    problems = []
+    if max_rhat > RHAT_MAX:
+        problems.append(f"R-hat {max_rhat:.3f} > {RHAT_MAX} (worst: {worst})")
+    if min_bulk < ESS_PER_CHAIN_MIN * chains:
+        problems.append(f"bulk ESS {min_bulk:.0f} < {ESS_PER_CHAIN_MIN * chains}")
+    if min_tail < ESS_PER_CHAIN_MIN * chains:
+        problems.append(f"tail ESS {min_tail:.0f} < {ESS_PER_CHAIN_MIN * chains}")
+    if div:
+        problems.append(f"{div} divergent transition(s)")
+    if hits > TREEDEPTH_HIT_FRACTION_MAX * chains * n:
+        problems.append(f"{hits} iterations hit the maximum tree depth {max_treedepth}")
+    if np.min(bfmi) < EBFMI_MIN:
+        problems.append(f"E-BFMI {np.min(bfmi):.2f} < {EBFMI_MIN} in some chain")
+    return Diagnostics(max_rhat, min_bulk, min_tail, div, hits, float(np.min(bfmi)), n, chains, worst, tuple(problems))

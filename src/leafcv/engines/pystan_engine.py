@@ -1,0 +1,161 @@
+"""PyStan 3 engine (the default: pip-installable, httpstan ships Stan and its compiler).
+
+Models are compiled once per program text and cached by httpstan. Sampling talks to httpstan
+directly so that every fit is deleted from httpstan's on-disk fit cache right after it is read: a
+repeated (program, data, seed, settings) never returns a stale cached fit, and batches do not fill
+the disk.
+"""
+from __future__ import annotations
+
+import asyncio
+import json
+import re
+import time
+from typing import Any, Callable
+
+import numpy as np
+
+from ..errors import EngineError
+from ..spec import SamplerSpec
+from .base import SAMPLER_FIELDS, Draws
+
+_ITER = re.compile(r"Iteration:\s+(\d+)\s+/\s+(\d+)")
+
+
+def _jsonable(obj: Any) -> Any:
+    if isinstance(obj, dict):
+        return {k: _jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_jsonable(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return obj.tolist()
+    if isinstance(obj, np.generic):
+        return obj.item()
+    return obj
+
+
+class PyStanEngine:
+    """Engine backed by PyStan 3 / httpstan."""
+
+    name = "pystan"
+
+    def compile(self, program: str, data: dict[str, Any] | None = None, seed: int | None = None) -> Any:
+        import stan
+
+        try:
+            return stan.build(program, data=_jsonable(data or {}), random_seed=seed)
+        except Exception as exc:  # httpstan reports compile and data errors as plain exceptions
+            raise EngineError(f"PyStan could not build the model: {exc}", str(exc)) from exc
+
+    def fit(
+        self,
+        program: str,
+        data: dict[str, Any],
+        settings: SamplerSpec,
+        seed: int,
+        inits: list[dict[str, Any]],
+        progress: Callable[[int, int], None] | None = None,
+    ) -> Draws:
+        model = self.compile(program, data, seed)
+        if len(inits) != settings.chains:
+            raise ValueError(f"{len(inits)} init sets for {settings.chains} chains")
+        payloads = []
+        for chain in range(1, settings.chains + 1):
+            payloads.append({
+                "function": "stan::services::sample::hmc_nuts_diag_e_adapt",
+                "chain": chain,
+                "data": model.data,
+                "init": _jsonable(inits[chain - 1]),
+                "random_seed": int(seed),
+                "num_warmup": int(settings.warmup),
+                "num_samples": int(settings.draws),
+                "delta": float(settings.adapt_delta),
+                "max_depth": int(settings.max_treedepth),
+                "refresh": max(1, (settings.warmup + settings.draws) // 20),
+            })
+        start = time.perf_counter()
+        try:
+            outputs = asyncio.run(_run_chains(model.model_name, payloads, progress))
+        except EngineError:
+            raise
+        except Exception as exc:
+            raise EngineError(f"PyStan sampling failed: {exc}", repr(exc)) from exc
+        seconds = time.perf_counter() - start
+        return _to_draws(model, outputs, settings, seed, seconds)
+
+
+async def _run_chains(
+    model_name: str, payloads: list[dict[str, Any]], progress: Callable[[int, int], None] | None
+) -> list[bytes]:
+    import stan.common
+
+    async with stan.common.HttpstanClient() as client:
+        operations = []
+        for payload in payloads:
+            resp = await client.post(f"/{model_name}/fits", json=payload)
+            if resp.status != 201:
+                raise EngineError(f"httpstan refused the fit (HTTP {resp.status})", resp.content.decode(errors="replace"))
+            operations.append(resp.json())
+        iters: dict[str, int] = {}
+        total = 0
+        while not all(op["done"] for op in operations):
+            for op in operations:
+                if op["done"]:
+                    continue
+                resp = await client.get(f"/{op['name']}")
+                op.update(resp.json())
+                found = _ITER.findall(op["metadata"].get("progress") or "")
+                if found:
+                    it, total = map(int, found[-1])
+                    iters[op["name"]] = it
+            if progress is not None and total:
+                progress(sum(iters.values()), total * len(operations))
+            await asyncio.sleep(0.1)
+        outputs, errors = [], []
+        for op in operations:
+            fit_name = op["result"].get("name")
+            if fit_name is None:
+                errors.append(str(op["result"].get("message", op["result"])))
+                continue
+            resp = await client.get(f"/{fit_name}")
+            if resp.status != 200:
+                errors.append(resp.content.decode(errors="replace"))
+            else:
+                outputs.append(resp.content)
+            await client.delete(f"/{fit_name}")
+        if errors:
+            raise EngineError("Stan sampling failed in %d chain(s)" % len(errors), "\n".join(errors))
+        return outputs
+
+
+def _to_draws(model: Any, outputs: list[bytes], settings: SamplerSpec, seed: int, seconds: float) -> Draws:
+    import stan.fit
+
+    fit = stan.fit.Fit(
+        tuple(outputs), len(outputs), model.param_names, model.constrained_param_names, model.dims,
+        settings.warmup, settings.draws, 1, False,
+    )
+    messages = []
+    for out in outputs:
+        for line in out.splitlines():
+            if b'"logger"' not in line:
+                continue
+            text = json.loads(line)["values"][0]
+            if text.startswith(("info:Iteration:", "info: Elapsed", "info:" + " " * 15)) or text == "info:":
+                continue
+            messages.append(text.replace("info:", "").strip())
+    raw = fit._draws  # (sampler and flat parameters, draws, chains); flat names in column-major order
+    params = {}
+    for name, dims in zip(model.param_names, model.dims):
+        idx = list(fit._parameter_indexes(name))
+        block = raw[idx, :, :].transpose(2, 1, 0)  # (chains, draws, flat)
+        if dims:
+            block = block.reshape(block.shape[:2] + tuple(reversed(dims)))
+            block = block.transpose((0, 1) + tuple(range(block.ndim - 1, 1, -1)))
+        else:
+            block = block[:, :, 0]
+        params[name] = np.ascontiguousarray(block)
+    sampler = {}
+    for name in SAMPLER_FIELDS:
+        sampler[name] = np.ascontiguousarray(raw[fit.sample_and_sampler_param_names.index(name)].T)
+    return Draws(params, sampler, settings, seed, seconds, "pystan", tuple(m for m in messages if m))

@@ -1,0 +1,646 @@
+"""Vectorised C3 photosynthesis model of Farquhar, von Caemmerer & Berry (FvCB) in NumPy.
+
+Everything here is a pure function of NumPy arrays (or scalars) and broadcasts over them.
+The same equations live in the Stan functions file; this module is used for simulation,
+per-curve least-squares fits (initial values), held-out predictions and figures.
+
+Conventions
+-----------
+- Ci basis (intercellular mole fractions): Ci, Kc and Gamma* in umol mol-1, O2 and Ko in
+  mmol mol-1; rates in umol m-2 s-1; Q (incident PPFD) in umol m-2 s-1; leaf temperature
+  in degrees Celsius.
+- Temperature scaling uses the *normalised* Arrhenius form (equal to 1 at 25 C),
+  exp[Ha (T_K - 298.15) / (R 298.15 T_K)], never the "scaling constant" form
+  exp(c - Ha / (R T_K)); the two differ by 0.3-0.6 % at 25 C (Bernacchi et al. 2001).
+- Energies in kJ mol-1 and entropies in kJ mol-1 K-1, so that ``R_GAS`` is in
+  kJ mol-1 K-1. Published entropy terms in J mol-1 K-1 are divided by 1000 here.
+- Inputs are assumed physical (non-negative rates, 0 <= theta <= 1); only the option
+  strings and the curvature ranges are checked.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import NamedTuple
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+
+#: Gas constant, kJ mol-1 K-1.
+R_GAS: float = 8.314e-3
+#: Reference temperature, K (25 C).
+T_REF: float = 298.15
+#: Offset from degrees Celsius to kelvin.
+KELVIN: float = 273.15
+
+#: Valid values of the ``electron`` option: electrons per CO2 in the J-limited rate.
+ELECTRON_CHOICES: tuple[str, ...] = ("4-8", "4.5-10.5")
+#: Valid values of the ``transition`` option.
+TRANSITION_CHOICES: tuple[str, ...] = ("min", "smooth")
+
+_ELECTRON_COEFFICIENTS: dict[str, tuple[float, float]] = {"4-8": (4.0, 8.0), "4.5-10.5": (4.5, 10.5)}
+
+FloatArray = NDArray[np.float64]
+
+
+# --------------------------------------------------------------------------------------
+# Constant sets
+# --------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class RubiscoSet:
+    """Rubisco kinetic constants at 25 C and their activation energies.
+
+    Parameters
+    ----------
+    name
+        Short identifier of the set.
+    kc25
+        Michaelis constant for CO2 at 25 C, umol mol-1.
+    ko25
+        Michaelis constant for O2 at 25 C, mmol mol-1.
+    gamma25
+        CO2 compensation point in the absence of day respiration (Gamma*) at 25 C, umol mol-1.
+    ha_kc, ha_ko, ha_gamma
+        Activation energies of Kc, Ko and Gamma*, kJ mol-1.
+    """
+
+    name: str
+    kc25: float
+    ko25: float
+    gamma25: float
+    ha_kc: float
+    ha_ko: float
+    ha_gamma: float
+
+
+#: Published Rubisco constant sets on a Ci basis. Bernacchi et al. 2001
+#: (Plant Cell Environ 24:253-259), normalised Arrhenius form.
+RUBISCO_SETS: dict[str, RubiscoSet] = {
+    "bernacchi2001": RubiscoSet(
+        name="bernacchi2001",
+        kc25=404.9,
+        ko25=278.4,
+        gamma25=42.75,
+        ha_kc=79.43,
+        ha_ko=36.38,
+        ha_gamma=37.83,
+    ),
+}
+#: Name of the default Rubisco set.
+DEFAULT_RUBISCO_SET: str = "bernacchi2001"
+
+
+@dataclass(frozen=True)
+class TemperatureResponse:
+    """Temperature response of a rate: plain Arrhenius, or peaked when ``hd`` and ``ds`` are set.
+
+    Parameters
+    ----------
+    ha
+        Activation energy, kJ mol-1.
+    hd
+        Deactivation energy, kJ mol-1 (peaked form only).
+    ds
+        Entropy term, kJ mol-1 K-1 (peaked form only; a published 485 J mol-1 K-1 is 0.485).
+
+    Raises
+    ------
+    ValueError
+        If only one of ``hd`` and ``ds`` is given.
+    """
+
+    ha: float
+    hd: float | None = None
+    ds: float | None = None
+
+    def __post_init__(self) -> None:
+        if (self.hd is None) != (self.ds is None):
+            raise ValueError("TemperatureResponse: give both hd and ds (peaked) or neither (plain Arrhenius)")
+
+    @property
+    def peaked(self) -> bool:
+        """True when the response has a deactivation term."""
+        return self.hd is not None
+
+
+#: Vcmax activation energy, kJ mol-1 (Bernacchi et al. 2001).
+VCMAX_HA: float = 65.33
+#: Jmax activation energy, kJ mol-1 (Bernacchi et al. 2003, Plant Cell Environ 26:1419-1430).
+JMAX_HA: float = 43.54
+#: Day respiration activation energy, kJ mol-1 (Bernacchi et al. 2001).
+RD_HA: float = 46.39
+#: TPU activation energy, kJ mol-1: the Vcmax value reused. An assumption (common practice,
+#: no source) rather than a published TPU estimate.
+TPU_HA: float = VCMAX_HA
+
+#: Peaked Vcmax response: Bernacchi et al. 2001 Ha with Leuning 2002 (Plant Cell Environ
+#: 25:1205-1210) Hd = 149.25 kJ mol-1 and dS = 485 J mol-1 K-1.
+VCMAX_PEAKED_LEUNING2002 = TemperatureResponse(ha=VCMAX_HA, hd=149.25, ds=0.485)
+#: Peaked Jmax response: Bernacchi et al. 2003 Ha with Leuning 2002 Hd = 152.04 kJ mol-1
+#: and dS = 495 J mol-1 K-1.
+JMAX_PEAKED_LEUNING2002 = TemperatureResponse(ha=JMAX_HA, hd=152.04, ds=0.495)
+
+
+def kattge_knorr2007_responses(t_growth_c: float = 25.0) -> tuple[TemperatureResponse, TemperatureResponse]:
+    """Peaked Vcmax and Jmax responses acclimated to growth temperature (Kattge & Knorr 2007).
+
+    Parameters
+    ----------
+    t_growth_c
+        Mean growth temperature, C.
+
+    Returns
+    -------
+    tuple of TemperatureResponse
+        (Vcmax, Jmax): Ha 71.513 and 49.884 kJ mol-1, Hd 200 kJ mol-1,
+        dS = 668.39 - 1.07 t_g and 659.70 - 0.75 t_g J mol-1 K-1
+        (Kattge & Knorr 2007, Plant Cell Environ 30:1176-1190).
+    """
+    vcmax = TemperatureResponse(ha=71.513, hd=200.0, ds=(668.39 - 1.07 * t_growth_c) / 1000.0)
+    jmax = TemperatureResponse(ha=49.884, hd=200.0, ds=(659.70 - 0.75 * t_growth_c) / 1000.0)
+    return vcmax, jmax
+
+
+# --------------------------------------------------------------------------------------
+# Temperature
+# --------------------------------------------------------------------------------------
+def _kelvin(t_leaf_c: ArrayLike) -> FloatArray:
+    return np.asarray(t_leaf_c, dtype=float) + KELVIN
+
+
+def arrhenius(t_leaf_c: ArrayLike, ha: ArrayLike) -> FloatArray:
+    """Normalised Arrhenius factor, 1 at 25 C.
+
+    Parameters
+    ----------
+    t_leaf_c
+        Leaf temperature, C.
+    ha
+        Activation energy, kJ mol-1.
+
+    Returns
+    -------
+    ndarray
+        exp[Ha (T_K - 298.15) / (R 298.15 T_K)].
+    """
+    tk = _kelvin(t_leaf_c)
+    return np.exp(np.asarray(ha, dtype=float) * (tk - T_REF) / (R_GAS * T_REF * tk))
+
+
+def _log1p_exp(x: FloatArray) -> FloatArray:
+    """log(1 + exp(x)) without overflow."""
+    return np.logaddexp(0.0, x)
+
+
+def peaked_arrhenius(t_leaf_c: ArrayLike, ha: ArrayLike, hd: ArrayLike, ds: ArrayLike) -> FloatArray:
+    """Normalised peaked Arrhenius factor, 1 at 25 C (Medlyn et al. 2002, Plant Cell Environ 25:1167-1179).
+
+    Parameters
+    ----------
+    t_leaf_c
+        Leaf temperature, C.
+    ha
+        Activation energy, kJ mol-1.
+    hd
+        Deactivation energy, kJ mol-1.
+    ds
+        Entropy term, kJ mol-1 K-1.
+
+    Returns
+    -------
+    ndarray
+        arrhenius(T, Ha) * [1 + exp((298.15 dS - Hd) / (298.15 R))] / [1 + exp((T_K dS - Hd) / (R T_K))].
+    """
+    tk = _kelvin(t_leaf_c)
+    hd = np.asarray(hd, dtype=float)
+    ds = np.asarray(ds, dtype=float)
+    log_num = _log1p_exp((T_REF * ds - hd) / (R_GAS * T_REF))
+    log_den = _log1p_exp((tk * ds - hd) / (R_GAS * tk))
+    return arrhenius(t_leaf_c, ha) * np.exp(log_num - log_den)
+
+
+def temperature_factor(t_leaf_c: ArrayLike, response: TemperatureResponse) -> FloatArray:
+    """Normalised temperature factor of a rate, plain or peaked as ``response`` says.
+
+    Parameters
+    ----------
+    t_leaf_c
+        Leaf temperature, C.
+    response
+        The rate's temperature response.
+
+    Returns
+    -------
+    ndarray
+        Factor multiplying the rate at 25 C.
+    """
+    if response.peaked:
+        return peaked_arrhenius(t_leaf_c, response.ha, response.hd, response.ds)
+    return arrhenius(t_leaf_c, response.ha)
+
+
+def rubisco_constants(
+    t_leaf_c: ArrayLike, rset: RubiscoSet = RUBISCO_SETS[DEFAULT_RUBISCO_SET]
+) -> tuple[FloatArray, FloatArray, FloatArray]:
+    """Kc, Ko and Gamma* at leaf temperature.
+
+    Parameters
+    ----------
+    t_leaf_c
+        Leaf temperature, C.
+    rset
+        Constant set (default Bernacchi et al. 2001).
+
+    Returns
+    -------
+    tuple of ndarray
+        (Kc umol mol-1, Ko mmol mol-1, Gamma* umol mol-1).
+    """
+    kc = rset.kc25 * arrhenius(t_leaf_c, rset.ha_kc)
+    ko = rset.ko25 * arrhenius(t_leaf_c, rset.ha_ko)
+    gamma_star = rset.gamma25 * arrhenius(t_leaf_c, rset.ha_gamma)
+    return kc, ko, gamma_star
+
+
+def michaelis_km(kc: ArrayLike, ko: ArrayLike, o2: ArrayLike = 210.0) -> FloatArray:
+    """Effective Michaelis constant Km = Kc (1 + O / Ko), umol mol-1.
+
+    Parameters
+    ----------
+    kc
+        Kc, umol mol-1.
+    ko
+        Ko, mmol mol-1.
+    o2
+        O2 mole fraction, mmol mol-1.
+
+    Returns
+    -------
+    ndarray
+        Km, umol mol-1.
+    """
+    return np.asarray(kc, dtype=float) * (1.0 + np.asarray(o2, dtype=float) / np.asarray(ko, dtype=float))
+
+
+# --------------------------------------------------------------------------------------
+# Rates
+# --------------------------------------------------------------------------------------
+def _smaller_root(b: FloatArray, c: FloatArray, curvature: FloatArray) -> FloatArray:
+    """Smaller root of curvature x^2 - b x + c = 0, computed without cancellation.
+
+    For b >= 0 the root is 2c / (b + sqrt(D)) (exact at curvature 0); for b < 0 it is
+    (b - sqrt(D)) / (2 curvature). The discriminant D = b^2 - 4 curvature c is clamped at 0.
+    A zero denominator (b = c = 0) gives 0.
+    """
+    b, c, curvature = np.broadcast_arrays(
+        np.asarray(b, dtype=float), np.asarray(c, dtype=float), np.asarray(curvature, dtype=float)
+    )
+    sq = np.sqrt(np.maximum(b * b - 4.0 * curvature * c, 0.0))
+    positive = b >= 0.0
+    den_pos = b + sq
+    den_neg = 2.0 * curvature
+    with np.errstate(divide="ignore", invalid="ignore"):
+        root_pos = np.where(den_pos != 0.0, 2.0 * c / np.where(den_pos != 0.0, den_pos, 1.0), 0.0)
+        root_neg = (b - sq) / den_neg
+    return np.where(positive, root_pos, root_neg)
+
+
+def electron_transport(alpha: ArrayLike, q: ArrayLike, jmax: ArrayLike, theta: ArrayLike) -> FloatArray:
+    """Electron transport rate J: smaller root of theta J^2 - (alpha Q + Jmax) J + alpha Q Jmax = 0.
+
+    Computed as J = 2c / (b + sqrt(max(b^2 - 4 theta c, 0))) with b = alpha Q + Jmax and
+    c = alpha Q Jmax: exact at theta = 0, stable near it, min(alpha Q, Jmax) at theta = 1,
+    and 0 (not NaN) at Q = 0.
+
+    Parameters
+    ----------
+    alpha
+        Electrons transported per incident photon.
+    q
+        Incident PPFD, umol m-2 s-1.
+    jmax
+        Maximum electron transport rate, umol m-2 s-1.
+    theta
+        Curvature, 0 <= theta <= 1.
+
+    Returns
+    -------
+    ndarray
+        J, umol m-2 s-1.
+
+    Raises
+    ------
+    ValueError
+        If any theta lies outside [0, 1].
+    """
+    theta = np.asarray(theta, dtype=float)
+    if np.any((theta < 0.0) | (theta > 1.0)):
+        raise ValueError("electron_transport: theta must lie in [0, 1]")
+    aq = np.asarray(alpha, dtype=float) * np.asarray(q, dtype=float)
+    jmax = np.asarray(jmax, dtype=float)
+    return _smaller_root(aq + jmax, aq * jmax, theta)
+
+
+def rubisco_limited(
+    vcmax: ArrayLike, ci: ArrayLike, kc: ArrayLike, ko: ArrayLike, gamma_star: ArrayLike, o2: ArrayLike = 210.0
+) -> FloatArray:
+    """Rubisco-limited gross rate Wc = Vcmax (Ci - Gamma*) / (Ci + Kc (1 + O / Ko)).
+
+    Parameters
+    ----------
+    vcmax
+        Vcmax at leaf temperature, umol m-2 s-1.
+    ci
+        Intercellular CO2, umol mol-1.
+    kc, ko, gamma_star
+        Kc (umol mol-1), Ko (mmol mol-1), Gamma* (umol mol-1) at leaf temperature.
+    o2
+        O2, mmol mol-1.
+
+    Returns
+    -------
+    ndarray
+        Wc, umol m-2 s-1.
+    """
+    ci = np.asarray(ci, dtype=float)
+    return np.asarray(vcmax, dtype=float) * (ci - gamma_star) / (ci + michaelis_km(kc, ko, o2))
+
+
+def _electron_coefficients(electron: str) -> tuple[float, float]:
+    try:
+        return _ELECTRON_COEFFICIENTS[electron]
+    except (KeyError, TypeError):
+        raise ValueError(f"electron must be one of {list(ELECTRON_CHOICES)}, got {electron!r}") from None
+
+
+def electron_limited(j: ArrayLike, ci: ArrayLike, gamma_star: ArrayLike, electron: str = "4-8") -> FloatArray:
+    """Electron-transport-limited gross rate Wj.
+
+    Parameters
+    ----------
+    j
+        Electron transport rate, umol m-2 s-1.
+    ci
+        Intercellular CO2, umol mol-1.
+    gamma_star
+        Gamma*, umol mol-1.
+    electron
+        "4-8": J (Ci - G) / (4 Ci + 8 G); "4.5-10.5": J (Ci - G) / (4.5 Ci + 10.5 G).
+
+    Returns
+    -------
+    ndarray
+        Wj, umol m-2 s-1.
+
+    Raises
+    ------
+    ValueError
+        For an unknown ``electron`` option.
+    """
+    a, b = _electron_coefficients(electron)
+    ci = np.asarray(ci, dtype=float)
+    return np.asarray(j, dtype=float) * (ci - gamma_star) / (a * ci + b * np.asarray(gamma_star, dtype=float))
+
+
+def tpu_limited(tpu: ArrayLike) -> FloatArray:
+    """Triose-phosphate-utilisation-limited rate Wp = 3 TPU.
+
+    Parameters
+    ----------
+    tpu
+        TPU at leaf temperature, umol m-2 s-1.
+
+    Returns
+    -------
+    ndarray
+        Wp, umol m-2 s-1.
+    """
+    return 3.0 * np.asarray(tpu, dtype=float)
+
+
+def colimit(w1: ArrayLike, w2: ArrayLike, curvature: ArrayLike) -> FloatArray:
+    """Smooth co-limitation: smaller root of curvature A^2 - (w1 + w2) A + w1 w2 = 0.
+
+    The root is never above min(w1, w2) and equals it at curvature 1. It is computed
+    without cancellation for rates of either sign (below Gamma* both rates are negative).
+
+    Parameters
+    ----------
+    w1, w2
+        The two limiting rates.
+    curvature
+        Co-limitation curvature, 0 < curvature <= 1 (leafcv's option defaults to 0.99).
+
+    Returns
+    -------
+    ndarray
+        The co-limited rate.
+
+    Raises
+    ------
+    ValueError
+        If any curvature lies outside (0, 1].
+    """
+    curvature = np.asarray(curvature, dtype=float)
+    if np.any((curvature <= 0.0) | (curvature > 1.0)):
+        raise ValueError("colimit: curvature must lie in (0, 1]")
+    w1 = np.asarray(w1, dtype=float)
+    w2 = np.asarray(w2, dtype=float)
+    return _smaller_root(w1 + w2, w1 * w2, curvature)
+
+
+def crossover_ci(
+    vcmax: ArrayLike, j: ArrayLike, km: ArrayLike, gamma_star: ArrayLike, electron: str = "4-8"
+) -> FloatArray:
+    """Ci (other than Gamma*) at which Wc = Wj.
+
+    Setting Vcmax (Ci - G) / (Ci + Km) = J (Ci - G) / (a Ci + b G) and dividing by Ci - G gives
+    Ci = (J Km - b Vcmax G) / (a Vcmax - J), with (a, b) = (4, 8) or (4.5, 10.5).
+    Where a Vcmax = J there is no crossover and NaN is returned; a negative value means the
+    two curves do not cross at a positive Ci.
+
+    Parameters
+    ----------
+    vcmax
+        Vcmax at leaf temperature, umol m-2 s-1.
+    j
+        Electron transport rate, umol m-2 s-1.
+    km
+        Kc (1 + O / Ko), umol mol-1.
+    gamma_star
+        Gamma*, umol mol-1.
+    electron
+        "4-8" or "4.5-10.5".
+
+    Returns
+    -------
+    ndarray
+        Crossover Ci, umol mol-1.
+    """
+    a, b = _electron_coefficients(electron)
+    vcmax = np.asarray(vcmax, dtype=float)
+    j = np.asarray(j, dtype=float)
+    num = j * np.asarray(km, dtype=float) - b * vcmax * np.asarray(gamma_star, dtype=float)
+    den = a * vcmax - j
+    num, den = np.broadcast_arrays(num, den)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(den != 0.0, num / np.where(den != 0.0, den, 1.0), np.nan)
+
+
+# --------------------------------------------------------------------------------------
+# Net assimilation
+# --------------------------------------------------------------------------------------
+class LimitingRates(NamedTuple):
+    """Rates at leaf temperature, umol m-2 s-1 (``km`` and ``gamma_star`` in umol mol-1).
+
+    ``wp`` and ``tpu`` are None when TPU limitation is off; ``a`` is net assimilation.
+    """
+
+    wc: FloatArray
+    wj: FloatArray
+    wp: FloatArray | None
+    j: FloatArray
+    rd: FloatArray
+    a: FloatArray
+    vcmax: FloatArray
+    jmax: FloatArray
+    tpu: FloatArray | None
+    gamma_star: FloatArray
+    km: FloatArray
+
+
+def _check_transition(transition: str) -> None:
+    if transition not in TRANSITION_CHOICES:
+        raise ValueError(f"transition must be one of {list(TRANSITION_CHOICES)}, got {transition!r}")
+
+
+def _combine(
+    wc: FloatArray, wj: FloatArray, wp: FloatArray | None, transition: str, smooth_curvature: float
+) -> FloatArray:
+    """Gross assimilation from the limiting rates: hard minimum or nested smooth co-limitation."""
+    if transition == "min":
+        gross = np.minimum(wc, wj)
+        return gross if wp is None else np.minimum(gross, wp)
+    gross = colimit(wc, wj, smooth_curvature)
+    return gross if wp is None else colimit(gross, wp, smooth_curvature)
+
+
+def limiting_rates(
+    ci: ArrayLike,
+    q: ArrayLike,
+    t_leaf_c: ArrayLike,
+    vcmax25: ArrayLike,
+    jmax25: ArrayLike,
+    alpha: ArrayLike,
+    theta: ArrayLike,
+    rd25: ArrayLike,
+    *,
+    o2: ArrayLike = 210.0,
+    tpu25: ArrayLike | None = None,
+    electron: str = "4-8",
+    transition: str = "min",
+    smooth_curvature: float = 0.99,
+    vcmax_response: TemperatureResponse = TemperatureResponse(VCMAX_HA),
+    jmax_response: TemperatureResponse = TemperatureResponse(JMAX_HA),
+    rd_response: TemperatureResponse = TemperatureResponse(RD_HA),
+    tpu_response: TemperatureResponse = TemperatureResponse(TPU_HA),
+    rset: RubiscoSet = RUBISCO_SETS[DEFAULT_RUBISCO_SET],
+) -> LimitingRates:
+    """FvCB limiting rates and net assimilation at leaf temperature.
+
+    Parameters
+    ----------
+    ci
+        Intercellular CO2, umol mol-1.
+    q
+        Incident PPFD, umol m-2 s-1.
+    t_leaf_c
+        Leaf temperature, C.
+    vcmax25, jmax25, rd25
+        Vcmax, Jmax and day respiration at 25 C, umol m-2 s-1.
+    alpha
+        Electrons transported per incident photon.
+    theta
+        Curvature of the light response of J, in [0, 1].
+    o2
+        O2, mmol mol-1.
+    tpu25
+        TPU at 25 C, umol m-2 s-1; None switches TPU limitation off.
+    electron
+        "4-8" or "4.5-10.5" electron requirement of the J-limited rate.
+    transition
+        "min" (hard minimum, the default) or "smooth" (quadratic co-limitation of Wc and Wj,
+        then of that with Wp, with curvature ``smooth_curvature``).
+    smooth_curvature
+        Curvature of the smooth transition, in (0, 1].
+    vcmax_response, jmax_response, rd_response, tpu_response
+        Temperature responses (defaults: normalised Arrhenius with Bernacchi et al. 2001/2003 Ha;
+        TPU reuses the Vcmax Ha).
+    rset
+        Rubisco constant set.
+
+    Returns
+    -------
+    LimitingRates
+        wc, wj, wp, j, rd, a and the temperature-scaled parameters.
+
+    Raises
+    ------
+    ValueError
+        For an unknown ``electron`` or ``transition`` option.
+    """
+    _check_transition(transition)
+    _electron_coefficients(electron)
+    kc, ko, gamma_star = rubisco_constants(t_leaf_c, rset)
+    km = michaelis_km(kc, ko, o2)
+    vcmax = np.asarray(vcmax25, dtype=float) * temperature_factor(t_leaf_c, vcmax_response)
+    jmax = np.asarray(jmax25, dtype=float) * temperature_factor(t_leaf_c, jmax_response)
+    rd = np.asarray(rd25, dtype=float) * temperature_factor(t_leaf_c, rd_response)
+    j = electron_transport(alpha, q, jmax, theta)
+    wc = rubisco_limited(vcmax, ci, kc, ko, gamma_star, o2)
+    wj = electron_limited(j, ci, gamma_star, electron)
+    tpu = wp = None
+    if tpu25 is not None:
+        tpu = np.asarray(tpu25, dtype=float) * temperature_factor(t_leaf_c, tpu_response)
+        wp = tpu_limited(tpu)
+    a = _combine(wc, wj, wp, transition, smooth_curvature) - rd
+    return LimitingRates(wc=wc, wj=wj, wp=wp, j=j, rd=rd, a=a, vcmax=vcmax, jmax=jmax, tpu=tpu,
+                         gamma_star=gamma_star, km=km)
+
+
+def net_assimilation(
+    ci: ArrayLike,
+    q: ArrayLike,
+    t_leaf_c: ArrayLike,
+    vcmax25: ArrayLike,
+    jmax25: ArrayLike,
+    alpha: ArrayLike,
+    theta: ArrayLike,
+    rd25: ArrayLike,
+    *,
+    o2: ArrayLike = 210.0,
+    tpu25: ArrayLike | None = None,
+    electron: str = "4-8",
+    transition: str = "min",
+    smooth_curvature: float = 0.99,
+    vcmax_response: TemperatureResponse = TemperatureResponse(VCMAX_HA),
+    jmax_response: TemperatureResponse = TemperatureResponse(JMAX_HA),
+    rd_response: TemperatureResponse = TemperatureResponse(RD_HA),
+    tpu_response: TemperatureResponse = TemperatureResponse(TPU_HA),
+    rset: RubiscoSet = RUBISCO_SETS[DEFAULT_RUBISCO_SET],
+) -> FloatArray:
+    """Net CO2 assimilation A (umol m-2 s-1) of the FvCB model.
+
+    With ``transition="min"``: A = min(Wc, Wj[, Wp]) - Rd; with ``"smooth"``:
+    colimit(colimit(Wc, Wj), Wp) - Rd. Parameters are those of `limiting_rates`.
+
+    Returns
+    -------
+    ndarray
+        A, broadcast over all array arguments.
+    """
+    return limiting_rates(
+        ci, q, t_leaf_c, vcmax25, jmax25, alpha, theta, rd25,
+        o2=o2, tpu25=tpu25, electron=electron, transition=transition,
+        smooth_curvature=smooth_curvature, vcmax_response=vcmax_response,
+        jmax_response=jmax_response, rd_response=rd_response, tpu_response=tpu_response, rset=rset,
+    ).a

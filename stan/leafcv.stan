@@ -1,0 +1,175 @@
+// leafcv's generic hierarchical FvCB program. Every structure is data: design matrices, index arrays,
+// sizes and flags built by leafcv.design. Adding a structure never needs a compile.
+//
+// Parameters are indexed p = 1 vcmax25, 2 jmax25, 3 alpha, 4 theta, 5 rd25, 6 tpu25 (when use_tpu).
+// Each has a linear predictor on its link scale (log for rates, logit for alpha and theta):
+//   eta[l, p] = b0[p] + X[l] * beta (columns mapped to p) + sum of group effects + leaf effect.
+// jmax25 and rd25 may be tied to vcmax25: their predictor is then log(ratio to vcmax25).
+// A leaf effect is written centred (the leaf's own eta is the parameter, eta ~ normal(mu, tau)) or
+// non-centred (eta = mu + tau z), per (leaf, parameter) cell; group effects likewise per level.
+// Points outside the training set are simply not passed in; their leaves' cells must be non-centred.
+functions {
+#include fvcb_functions.stan
+}
+data {
+  int<lower=1> N;                          // points in the likelihood
+  int<lower=1> L;                          // leaves (all leaves of the data set)
+  array[N] int<lower=1, upper=L> leaf;     // leaf of each point
+  vector[N] ci;                            // intercellular CO2, umol mol-1
+  vector<lower=0>[N] q;                    // incident PPFD, umol m-2 s-1
+  vector[N] tleaf;                         // leaf temperature, deg C
+  vector<lower=0>[N] o2;                   // O2, mmol mol-1
+  vector[N] a;                             // net assimilation, umol m-2 s-1
+  int<lower=1> S;                          // residual SD groups (1, or one per curve type)
+  array[N] int<lower=1, upper=S> sigma_group;
+
+  // model options
+  int<lower=0, upper=1> use_tpu;           // add Wp = 3 TPU to the limitations
+  int<lower=0, upper=1> smooth;            // 0: hard minimum; 1: smooth co-limitation
+  real<lower=0, upper=1> smooth_curvature; // curvature of the smooth co-limitation
+  int<lower=0, upper=1> student_t;         // 0: normal likelihood; 1: Student-t with estimated df
+  real<lower=0> e1;                        // electron requirement, Wj = J (Ci - G*) / (e1 Ci + e2 G*)
+  real<lower=0> e2;
+  vector[6] rubisco;                       // Kc25, Ko25, Gamma*25, Ha(Kc), Ha(Ko), Ha(Gamma*)
+  matrix[4, 3] tresp;                      // rows vcmax, jmax, rd, tpu: Ha, Hd, dS
+  array[4] int<lower=0, upper=1> peaked;   // peaked Arrhenius per row of tresp
+  int<lower=0, upper=1> ratio_j;           // jmax25 = vcmax25 * exp(eta_jmax)
+  int<lower=0, upper=1> ratio_rd;          // rd25 = vcmax25 * exp(eta_rd)
+
+  // priors of the intercepts (parameter values at reference traits and reference levels)
+  array[5 + use_tpu] int<lower=1, upper=2> prior_family;  // 1: normal on link scale (a, b = mean, sd)
+  vector[5 + use_tpu] prior_a;                            // 2: beta(a, b) on the natural scale (logit links)
+  vector<lower=0>[5 + use_tpu] prior_b;
+
+  // fixed terms (leaf-level design matrix; each column belongs to one parameter)
+  int<lower=0> K;
+  matrix[L, K] X;
+  matrix[K, 5 + use_tpu] fixed_map;        // 0/1: column k enters parameter p
+  vector<lower=0>[K] beta_sd;              // normal(0, beta_sd) priors
+
+  // random terms by groupings other than the leaf: R terms, Q levels stacked over terms
+  int<lower=0> R;
+  array[R] int<lower=1, upper=5 + use_tpu> re_par;
+  array[R, L] int<lower=1> re_lev;         // stacked level index of each leaf, per term
+  array[R] vector[L] re_x;                 // covariate multiplying the effect (1: intercept)
+  vector<lower=0>[R] tau_sd;               // half-normal(0, tau_sd) priors on the SDs
+  int<lower=0> Q;
+  array[Q] int<lower=1, upper=R> lev_term;
+  int<lower=0, upper=Q> Qc;
+  array[Qc] int<lower=1, upper=Q> cen_lev; // centred levels
+  array[Q - Qc] int<lower=1, upper=Q> nc_lev;
+
+  // leaf effects: Rl terms (one per parameter with a leaf effect), cells flattened as l + (p - 1) L
+  int<lower=0> Rl;
+  vector<lower=0>[Rl] leaf_tau_sd;
+  int<lower=0> Mc;
+  array[Mc] int<lower=1> cen_cell;
+  array[Mc] int<lower=1, upper=Rl> cen_term;
+  int<lower=0> Mn;
+  array[Mn] int<lower=1> nc_cell;
+  array[Mn] int<lower=1, upper=Rl> nc_term;
+
+  real<lower=0> sigma_sd;                  // half-normal(0, sigma_sd) on residual SDs
+  real<lower=0> nu_shape;                  // gamma(nu_shape, nu_rate) on Student-t df
+  real<lower=0> nu_rate;
+}
+transformed data {
+  int P = 5 + use_tpu;
+  vector[N] tk = tleaf + 273.15;
+  vector[N] kc = rubisco[1] * fvcb_arrhenius(rubisco[4], tk);
+  vector[N] ko = rubisco[2] * fvcb_arrhenius(rubisco[5], tk);
+  vector[N] gstar = rubisco[3] * fvcb_arrhenius(rubisco[6], tk);
+  vector[N] fc = fvcb_rubisco_factor(ci, gstar, kc, ko, o2);
+  vector[N] fe = fvcb_electron_factor(ci, gstar, e1, e2);
+  vector[N] fv = fvcb_temperature(tresp[1], peaked[1], tk);
+  vector[N] fj = fvcb_temperature(tresp[2], peaked[2], tk);
+  vector[N] fr = fvcb_temperature(tresp[3], peaked[3], tk);
+  vector[N] ft = fvcb_temperature(tresp[4], peaked[4], tk);
+}
+parameters {
+  vector[P] b0;
+  vector[K] beta;
+  vector<lower=0>[R] tau;
+  vector[Qc] u_c;
+  vector[Q - Qc] u_z;
+  vector<lower=0>[Rl] tau_leaf;
+  vector[Mc] eta_c;
+  vector[Mn] eta_z;
+  vector<lower=0>[S] sigma;
+  array[student_t] real<lower=1> nu;
+}
+model {
+  vector[Q] u;
+  matrix[L, P] mu = rep_matrix(b0', L);
+  vector[L * P] mu_flat;
+  vector[L * P] eta;
+  u[cen_lev] = u_c;
+  u[nc_lev] = tau[lev_term[nc_lev]] .* u_z;
+  if (K > 0) {
+    mu += X * diag_pre_multiply(beta, fixed_map);
+  }
+  for (r in 1:R) {
+    mu[:, re_par[r]] += u[re_lev[r]] .* re_x[r];
+  }
+  mu_flat = to_vector(mu);
+  eta = mu_flat;
+  eta[cen_cell] = eta_c;
+  eta[nc_cell] = mu_flat[nc_cell] + tau_leaf[nc_term] .* eta_z;
+
+  {
+    vector[L] lv = eta[1:L];
+    vector[L] vc25 = exp(lv);
+    vector[L] jm25 = exp(eta[(L + 1):(2 * L)] + ratio_j * lv);
+    vector[L] alpha = inv_logit(eta[(2 * L + 1):(3 * L)]);
+    vector[L] theta = inv_logit(eta[(3 * L + 1):(4 * L)]);
+    vector[L] rd25 = exp(eta[(4 * L + 1):(5 * L)] + ratio_rd * lv);
+    vector[N] j = fvcb_electron_transport(alpha[leaf] .* q, jm25[leaf] .* fj, theta[leaf]);
+    vector[N] wc = vc25[leaf] .* fv .* fc;
+    vector[N] wj = j .* fe;
+    vector[N] gross;
+    vector[N] mu_a;
+    if (smooth == 1) {
+      gross = fvcb_colimit(wc, wj, smooth_curvature);
+    } else {
+      gross = fmin(wc, wj);
+    }
+    if (use_tpu == 1) {
+      vector[L] tpu25 = exp(eta[(5 * L + 1):(6 * L)]);
+      vector[N] wp = 3 * tpu25[leaf] .* ft;
+      gross = smooth == 1 ? fvcb_colimit(gross, wp, smooth_curvature) : fmin(gross, wp);
+    }
+    mu_a = gross - rd25[leaf] .* fr;
+    if (student_t == 1) {
+      if (S == 1) {
+        a ~ student_t(nu[1], mu_a, sigma[1]);
+      } else {
+        a ~ student_t(nu[1], mu_a, sigma[sigma_group]);
+      }
+    } else {
+      if (S == 1) {
+        a ~ normal(mu_a, sigma[1]);
+      } else {
+        a ~ normal(mu_a, sigma[sigma_group]);
+      }
+    }
+  }
+
+  for (p in 1:P) {
+    if (prior_family[p] == 1) {
+      b0[p] ~ normal(prior_a[p], prior_b[p]);
+    } else {
+      // beta prior on inv_logit(b0), with the Jacobian of the logit transform
+      target += beta_lpdf(inv_logit(b0[p]) | prior_a[p], prior_b[p])
+                + log_inv_logit(b0[p]) + log1m_inv_logit(b0[p]);
+    }
+  }
+  beta ~ normal(0, beta_sd);
+  tau ~ normal(0, tau_sd);
+  u_c ~ normal(0, tau[lev_term[cen_lev]]);
+  u_z ~ std_normal();
+  tau_leaf ~ normal(0, leaf_tau_sd);
+  eta_c ~ normal(mu_flat[cen_cell], tau_leaf[cen_term]);
+  eta_z ~ std_normal();
+  sigma ~ normal(0, sigma_sd);
+  nu ~ gamma(nu_shape, nu_rate);
+}
