@@ -539,3 +539,10 @@ def test_every_problem_reported_at_once(tmp_path):
     the_problem(found, "'N_area' (trait)", "leaf 'L1'")
     the_problem(found, f"row {line(108)} repeats row {line(0)}")
     assert len(found) == 6
+
+
+def test_user_columns_may_share_leafcv_names(tmp_path):
+    table = make_table().rename(columns={v: k for k, v in COLUMNS.items()})
+    table.loc[4, "a_net"] = 150.0
+    found = problems_of(make_spec(write(tmp_path, table), columns={k: k for k in COLUMNS}))
+    assert f"row {line(4)} (150)" in the_problem(found, "'a_net' (a_net)", "plausible range")

@@ -46,7 +46,7 @@ class DemoSize:
     draws: int
 
 
-SIZES = {"default": DemoSize(48, 4, 500, 500), "quick": DemoSize(16, 2, 250, 250)}
+SIZES = {"default": DemoSize(48, 4, 1000, 1000), "quick": DemoSize(16, 4, 500, 1000)}
 
 
 def simulate(n_leaves: int, seed: int = 20261202) -> tuple[pd.DataFrame, pd.DataFrame]:
@@ -124,6 +124,7 @@ chains = {chains}
 warmup = {warmup}
 draws = {draws}
 seed = 20261202
+adapt_delta = 0.95
 
 [cv]
 by = "leaf"

@@ -51,8 +51,8 @@ def fit_structure(
 ) -> StructureFit:
     """Fit ``structure`` with chains started from per-leaf least-squares fits, dispersed."""
     engine = engine or default_engine()
-    design = build_design(structure, dataset, data_spec, options, priors, train_leaves)
     leaf_fits = leaf_fits or fit_leaves(dataset)
+    design = build_design(structure, dataset, data_spec, options, priors, train_leaves, leaf_fits)
     seed = sampler.seed if seed is None else seed
     inits = structure_inits(design, leaf_fits, dataset, sampler.chains, seed)
     draws = engine.fit(program_text(), design.stan_data, sampler, seed, inits, progress)

@@ -30,6 +30,21 @@ class LeafFits:
     values: dict[str, np.ndarray]
     rmse: float
     failed: tuple[int, ...]
+    cov: np.ndarray        # (L, 4, 4) covariance of (log Vcmax25, log Jmax25, logit alpha, log Rd25)
+
+    def link_se(self, param: str, ratio: bool) -> np.ndarray:
+        """Per-leaf standard error of a parameter on its link scale (ratio: log of the ratio to Vcmax25).
+
+        theta is not estimated per leaf: its standard error is infinite.
+        """
+        k = {"vcmax25": 0, "jmax25": 1, "alpha": 2, "rd25": 3}.get(param)
+        if k is None:
+            return np.full(len(self.cov), np.inf)
+        if ratio and k in (1, 3):
+            var = self.cov[:, k, k] + self.cov[:, 0, 0] - 2 * self.cov[:, 0, k]
+        else:
+            var = self.cov[:, k, k]
+        return np.sqrt(np.clip(var, 0, None))
 
 
 def fit_leaves(dataset: Dataset) -> LeafFits:
@@ -38,6 +53,7 @@ def fit_leaves(dataset: Dataset) -> LeafFits:
     L = dataset.n_leaves
     out = {k: np.empty(L) for k in ("vcmax25", "jmax25", "alpha", "rd25")}
     sq, n, failed = 0.0, 0, []
+    cov = np.full((L, 4, 4), np.nan)
     start = np.log([60.0, 110.0]).tolist() + [logit(0.3), np.log(1.0)]
     lo = np.log([_BOUNDS["vcmax25"][0], _BOUNDS["jmax25"][0]]).tolist() + [logit(0.03), np.log(0.01)]
     hi = np.log([_BOUNDS["vcmax25"][1], _BOUNDS["jmax25"][1]]).tolist() + [logit(0.9), np.log(10.0)]
@@ -51,14 +67,17 @@ def fit_leaves(dataset: Dataset) -> LeafFits:
         try:
             res = least_squares(resid, start, bounds=(lo, hi), method="trf", max_nfev=400)
             x, r = res.x, res.fun
-        except (ValueError, FloatingPointError):
+            s2 = float(np.sum(r**2)) / max(len(r) - 4, 1)
+            cov[leaf] = s2 * np.linalg.pinv(res.jac.T @ res.jac)
+        except (ValueError, FloatingPointError, np.linalg.LinAlgError):
             failed.append(int(leaf))
             x, r = np.array(start), resid(np.array(start))
+            cov[leaf] = np.diag(np.full(4, np.inf))
         out["vcmax25"][leaf], out["jmax25"][leaf] = np.exp(x[0]), np.exp(x[1])
         out["alpha"][leaf], out["rd25"][leaf] = 1 / (1 + np.exp(-x[2])), np.exp(x[3])
         sq += float(np.sum(r**2))
         n += len(r)
-    return LeafFits(out, float(np.sqrt(sq / max(n, 1))), tuple(failed))
+    return LeafFits(out, float(np.sqrt(sq / max(n, 1))), tuple(failed), cov)
 
 
 def structure_inits(design: Design, fits: LeafFits, dataset: Dataset, chains: int, seed: int,
