@@ -125,8 +125,8 @@ def _progress(label: str):
             return
         last[0] = now
         frac = done / total if total else 0.0
-        eta = (now - start) * (1 - frac) / frac if frac > 0 else float("nan")
-        sys.stderr.write(f"\r{label}: {100 * frac:3.0f}% of iterations, ETA {eta:5.0f} s ")
+        eta = f"ETA {(now - start) * (1 - frac) / frac:5.0f} s" if frac > 0.02 else "ETA ..."
+        sys.stderr.write(f"\r{label}: {100 * frac:3.0f}% of iterations, {eta}   ")
         sys.stderr.flush()
 
     return report

@@ -8,7 +8,10 @@ the disk.
 from __future__ import annotations
 
 import asyncio
+import contextlib
+import io
 import json
+import sys
 import re
 import time
 from typing import Any, Callable
@@ -39,13 +42,31 @@ class PyStanEngine:
 
     name = "pystan"
 
+    def __init__(self, log: Callable[[str], None] | None = None):
+        self.log = log or (lambda text: sys.stderr.write(text + "\n"))
+        self.compiler_messages: dict[str, str] = {}
+
+    def is_compiled(self, program: str) -> bool:
+        """Whether httpstan already holds a compiled module for this program text."""
+        from httpstan.cache import list_model_names
+        from httpstan.models import calculate_model_name
+
+        return calculate_model_name(program) in list_model_names()
+
     def compile(self, program: str, data: dict[str, Any] | None = None, seed: int | None = None) -> Any:
+        """Build the model for ``data`` (compiling once per program text; PyStan's chatter is kept, not printed)."""
         import stan
 
+        if not self.is_compiled(program):
+            self.log("compiling the Stan program (once per program version on this machine; 1-2 minutes)...")
+        out, err = io.StringIO(), io.StringIO()
         try:
-            return stan.build(program, data=_jsonable(data or {}), random_seed=seed)
+            with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+                model = stan.build(program, data=_jsonable(data or {}), random_seed=seed)
         except Exception as exc:  # httpstan reports compile and data errors as plain exceptions
-            raise EngineError(f"PyStan could not build the model: {exc}", str(exc)) from exc
+            raise EngineError(f"PyStan could not build the model: {exc}", out.getvalue() + err.getvalue() + str(exc)) from exc
+        self.compiler_messages[model.model_name] = out.getvalue() + err.getvalue()
+        return model
 
     def fit(
         self,
