@@ -87,17 +87,18 @@ def cmd_fit(args) -> int:
 
 
 def cmd_compare(args) -> int:
-    from .fitting import fit_structure, format_fit
-    from .inits import fit_leaves
+    from .compare import run_comparison
 
+    if args.scheduler:
+        sys.stderr.write("leafcv compare: --scheduler (Dask) is not available in this version; run without it\n")
+        return EXIT_USAGE
+    if args.workers not in (None, 1):
+        sys.stderr.write("leafcv compare: note: structures run one after another; each fit already uses every "
+                         "core through its chains (--workers is accepted for the record)\n")
     comparison, dataset = load(args.file)
-    leaf_fits = fit_leaves(dataset)
-    for k, structure in enumerate(comparison.structures, 1):
-        fit = fit_structure(structure, dataset, comparison.data, comparison.sampler, leaf_fits=leaf_fits,
-                            progress=_progress(f"[{k}/{len(comparison.structures)}] {structure.name}"))
-        sys.stderr.write("\n")
-        print(format_fit(fit, f"structure {structure.name!r} on {dataset.n_leaves} leaves"))
-        print()
+    out = args.out or comparison.path.parent / "runs" / comparison.path.stem
+    run_comparison(comparison, dataset, out, method=args.method)
+    print(f"run folder: {out}")
     return EXIT_OK
 
 

@@ -82,6 +82,7 @@ class Design:
     obs_index: np.ndarray                   # rows of dataset.obs in the likelihood
     cen_cells: np.ndarray = field(repr=False, default=None)   # flat cell indices (0-based)
     nc_cells: np.ndarray = field(repr=False, default=None)
+    options: ModelOptions = ModelOptions()
 
 
 def _levels(values) -> tuple[str, ...]:
@@ -226,7 +227,7 @@ def build_design(
     else:
         sigma_group = np.ones(len(fit_obs), int)
     rset = fvcb.RUBISCO_SETS[fvcb.DEFAULT_RUBISCO_SET]
-    responses = _responses(options)
+    resp = responses(options)
     e1, e2 = (4.0, 8.0) if options.electron == "4-8" else (4.5, 10.5)
     data = {
         "N": len(fit_obs), "L": L, "leaf": fit_obs["leaf_index"].to_numpy() + 1,
@@ -238,8 +239,8 @@ def build_design(
         "smooth_curvature": options.smooth_curvature, "student_t": int(options.student_t),
         "e1": e1, "e2": e2,
         "rubisco": np.array([rset.kc25, rset.ko25, rset.gamma25, rset.ha_kc, rset.ha_ko, rset.ha_gamma]),
-        "tresp": np.array([[r.ha, r.hd or 0.0, r.ds or 0.0] for r in responses]),
-        "peaked": [int(r.peaked) for r in responses],
+        "tresp": np.array([[r.ha, r.hd or 0.0, r.ds or 0.0] for r in resp]),
+        "peaked": [int(r.peaked) for r in resp],
         "ratio_j": int(ratio["jmax25"]), "ratio_rd": int(ratio["rd25"]),
         "prior_family": [1 if pr.family == "normal" else 2 for pr in ip],
         "prior_a": np.array([pr.a for pr in ip]), "prior_b": np.array([pr.b for pr in ip]),
@@ -257,7 +258,7 @@ def build_design(
     }
     return Design(structure, data, params, ratio, tuple(coefs), tuple(group_terms), tuple(leaf_terms),
                   transforms, tuple(prior_lines), train, obs_index,
-                  np.asarray(cen_cell, int) - 1, np.asarray(nc_cell, int) - 1)
+                  np.asarray(cen_cell, int) - 1, np.asarray(nc_cell, int) - 1, options)
 
 
 def _informed_leaves(param, ratio, leaf_fits, points_per_leaf, train) -> tuple[np.ndarray, str]:
@@ -289,7 +290,7 @@ def _link_estimates(leaf_fits, param, ratio) -> np.ndarray:
     return np.log(v[param])
 
 
-def _responses(options: ModelOptions) -> list[fvcb.TemperatureResponse]:
+def responses(options: ModelOptions) -> list[fvcb.TemperatureResponse]:
     """Temperature responses of Vcmax, Jmax, Rd and TPU (Bernacchi et al. 2001, 2003)."""
     if options.peaked:
         v, j = fvcb.VCMAX_PEAKED_LEUNING2002, fvcb.JMAX_PEAKED_LEUNING2002

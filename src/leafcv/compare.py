@@ -1,0 +1,167 @@
+"""The main job: cross-validate every structure of a comparison, rank them, write the run folder.
+
+Run folder (default ``runs/<file stem>/`` beside the comparison file):
+  manifest.json            versions, data and specification hashes, seeds, settings actually used
+  results/<structure>.json one per structure, written atomically; reused on a re-run when its inputs match
+  ranking.csv, ranking.txt the ranking (columns as in DESIGN.md)
+  pointwise.csv            per-leaf elpd (and Pareto k-hat) of every structure
+"""
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import platform
+import sys
+import tempfile
+import time
+from dataclasses import asdict
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+import pandas as pd
+
+from .cv.methods import CVDetails, cross_validate
+from .cv.result import CVResult
+from .data.dataset import Dataset
+from .inits import fit_leaves
+from .ranking import format_ranking, rank, summary_notes
+from .spec import Comparison, Structure
+
+RESULT_VERSION = 1
+
+
+def file_hash(path: Path) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 20), b""):
+            h.update(chunk)
+    return h.hexdigest()
+
+
+def write_atomic(path: Path, text: str) -> None:
+    """Write ``text`` to ``path`` so that a reader sees the old file or the new one, never a part."""
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
+    try:
+        with os.fdopen(fd, "w") as fh:
+            fh.write(text)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+
+
+def _versions() -> dict[str, str]:
+    from importlib.metadata import PackageNotFoundError, version
+
+    out = {"python": platform.python_version()}
+    for pkg in ("leafcv", "pystan", "httpstan", "arviz", "numpy", "scipy", "pandas"):
+        try:
+            out[pkg] = version(pkg)
+        except PackageNotFoundError:
+            out[pkg] = "not installed"
+    return out
+
+
+def _program_hash() -> str:
+    from .engines.program import program_text
+
+    return hashlib.sha256(program_text().encode()).hexdigest()
+
+
+def structure_key(structure: Structure, comparison: Comparison, data_hash: str, settings: dict) -> str:
+    """Hash of everything a structure's result depends on."""
+    payload = json.dumps({"structure": repr(structure), "data": repr(comparison.data), "data_hash": data_hash,
+                          "settings": settings, "program": _program_hash(), "version": RESULT_VERSION},
+                         sort_keys=True, default=str)
+    return hashlib.sha256(payload.encode()).hexdigest()
+
+
+def _result_to_json(result: CVResult, details: CVDetails, key: str) -> str:
+    return json.dumps({
+        "key": key, "structure": result.structure, "method": result.method, "leaves": list(result.leaves),
+        "elpd_i": result.elpd_i.tolist(), "n_draws": result.n_draws,
+        "pareto_k": None if result.pareto_k is None else result.pareto_k.tolist(),
+        "n_refits": result.n_refits, "converged": result.converged, "warnings": list(result.warnings),
+        "rmse": result.rmse, "r2": result.r2, "details": asdict(details),
+    }, indent=1)
+
+
+def _result_from_json(text: str) -> tuple[str, CVResult, dict]:
+    d = json.loads(text)
+    res = CVResult(d["structure"], d["method"], tuple(d["leaves"]), np.asarray(d["elpd_i"]), d["n_draws"],
+                   pareto_k=None if d["pareto_k"] is None else np.asarray(d["pareto_k"]),
+                   n_refits=d["n_refits"], converged=d["converged"], warnings=tuple(d["warnings"]),
+                   rmse=d["rmse"], r2=d["r2"])
+    return d["key"], res, d["details"]
+
+
+def run_comparison(comparison: Comparison, dataset: Dataset, out: Path, *, method: str | None = None,
+                   engine=None, log: Callable[[str], None] = print, spot_checks: int = 3,
+                   sampler=None) -> pd.DataFrame:
+    """Cross-validate every structure (reusing finished results whose inputs match) and rank them."""
+    out = Path(out)
+    method = method or comparison.cv.method
+    sampler = sampler or comparison.sampler
+    data_hash = file_hash(comparison.data.file)
+    settings = {"method": method, "by": comparison.cv.by, "folds": comparison.cv.folds,
+                "spot_checks": spot_checks, "sampler": asdict(sampler)}
+    manifest = {
+        "comparison": str(comparison.path), "comparison_sha256": file_hash(comparison.path),
+        "data": str(comparison.data.file), "data_sha256": data_hash, "settings": settings,
+        "seeds": {"sampler": sampler.seed, "refits": f"{sampler.seed} + 1 + fold index; auto refits start at {sampler.seed + 1001}",
+                  "spot_checks": sampler.seed, "kfold_assignment": sampler.seed},
+        "versions": _versions(), "started": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
+        "command": " ".join(sys.argv),
+    }
+    write_atomic(out / "manifest.json", json.dumps(manifest, indent=1))
+    leaf_fits = None
+    results: list[CVResult] = []
+    all_details: dict[str, dict] = {}
+    n = len(comparison.structures)
+    for k, s in enumerate(comparison.structures, 1):
+        key = structure_key(s, comparison, data_hash, settings)
+        path = out / "results" / f"{s.name}.json"
+        if path.exists():
+            try:
+                old_key, res, det = _result_from_json(path.read_text())
+            except (ValueError, KeyError):
+                old_key = None
+            if old_key == key:
+                log(f"[{k}/{n}] {s.name}: reusing the finished result in {path}")
+                results.append(res)
+                all_details[s.name] = det
+                continue
+        if leaf_fits is None:
+            leaf_fits = fit_leaves(dataset)
+        t = time.perf_counter()
+        log(f"[{k}/{n}] {s.name}: cross-validating ({method}, by {comparison.cv.by})")
+        res, det = cross_validate(s, dataset, comparison, method=method, by=comparison.cv.by,
+                                  folds=comparison.cv.folds, spot_checks=spot_checks, engine=engine,
+                                  leaf_fits=leaf_fits, sampler=sampler)
+        write_atomic(path, _result_to_json(res, det, key))
+        log(f"[{k}/{n}] {s.name}: elpd {res.elpd:.1f} (SE {res.se:.1f}), {res.n_refits} refits, "
+            f"{time.perf_counter() - t:.0f} s" + ("" if res.converged else " - NOT CONVERGED"))
+        results.append(res)
+        all_details[s.name] = asdict(det)
+    table = rank(results)
+    write_atomic(out / "ranking.csv", table.to_csv(index=False))
+    notes = summary_notes(table, dataset.n_leaves)
+    spot = [f"spot check {s['leaf']}: auto {s['elpd_auto']:.2f} vs exact {s['elpd_exact']:.2f} nats "
+            f"(k-hat {s['khat']:.2f}) in {name}" for name, d in all_details.items() for s in d.get("spot_checks", [])]
+    text = format_ranking(table) + "\n\n" + "\n".join(notes + spot) + "\n"
+    write_atomic(out / "ranking.txt", text)
+    point = {"leaf": list(results[0].leaves)}
+    for r in results:
+        point[f"elpd:{r.structure}"] = r.elpd_i
+        if r.pareto_k is not None:
+            point[f"khat:{r.structure}"] = r.pareto_k
+    write_atomic(out / "pointwise.csv", pd.DataFrame(point).to_csv(index=False))
+    manifest["finished"] = time.strftime("%Y-%m-%dT%H:%M:%S%z")
+    write_atomic(out / "manifest.json", json.dumps(manifest, indent=1))
+    log(text)
+    return table

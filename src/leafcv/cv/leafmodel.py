@@ -1,0 +1,120 @@
+"""One leaf's FvCB likelihood as a function of its own link-scale parameter values, per posterior draw.
+
+Feeds the quadrature of `leafcv.cv.quadrature`: the leaf's effects b are the link-scale values of the
+parameters that have leaf effects (e.g. log Vcmax25 and logit alpha); every other quantity is taken
+from the posterior draw (population values, group effects known from training, sigma).
+"""
+from __future__ import annotations
+
+import numpy as np
+from scipy import stats
+
+from .. import fvcb
+from ..data.dataset import Dataset
+from ..design import Design, leaf_link_values, responses
+from ..spec import LINKS
+
+
+def flatten_draws(params: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+    """(chains, draws, *shape) -> (chains * draws, *shape)."""
+    return {k: v.reshape((v.shape[0] * v.shape[1],) + v.shape[2:]) for k, v in params.items()}
+
+
+class LeafModel:
+    """Per-draw likelihood of one leaf's points and its population distribution of effects."""
+
+    def __init__(self, design: Design, dataset: Dataset, draws: dict[str, np.ndarray],
+                 link_values: tuple[np.ndarray, np.ndarray], leaf: int):
+        self.design, self.leaf = design, leaf
+        d = design.stan_data
+        obs = dataset.obs[dataset.obs["leaf_index"] == leaf]
+        self.points = obs
+        self.y = obs["a_net"].to_numpy(float)
+        ci, q, t, o2 = (obs[c].to_numpy(float) for c in ("ci", "ppfd", "t_leaf", "o2"))
+        kc, ko, gstar = fvcb.rubisco_constants(t)
+        self.q = q
+        self.fc = (ci - gstar) / (ci + kc * (1 + o2 / ko))
+        self.fe = (ci - gstar) / (d["e1"] * ci + d["e2"] * gstar)
+        rv, rj, rr, rt = responses(design.options)
+        self.fv, self.fj = fvcb.temperature_factor(t, rv), fvcb.temperature_factor(t, rj)
+        self.fr, self.ft = fvcb.temperature_factor(t, rr), fvcb.temperature_factor(t, rt)
+        mu, eta = link_values
+        self.mu, self.eta = mu[:, leaf, :], eta[:, leaf, :]          # (S, P)
+        self.effect_params = [design.params.index(lt.param) for lt in design.leaf_terms]
+        self.sd = draws["tau_leaf"] if d["Rl"] else np.zeros((len(self.mu), 0))
+        sig = draws["sigma"]
+        if d["S"] > 1:
+            kinds = sorted(set(dataset.obs["curve_type"]))
+            self.sigma = sig[:, np.searchsorted(kinds, obs["curve_type"].to_numpy())]
+        else:
+            self.sigma = np.repeat(sig[:, :1], len(self.y), axis=1)
+        self.nu = draws["nu"][:, 0] if d["student_t"] else None
+
+    @property
+    def dim(self) -> int:
+        return len(self.effect_params)
+
+    def mean_sd(self) -> tuple[np.ndarray, np.ndarray]:
+        """Population mean and SD of the leaf's effects per draw, (S, d)."""
+        return self.mu[:, self.effect_params], self.sd
+
+    def own_values(self) -> np.ndarray:
+        """The leaf's effect values in each draw, (S, d)."""
+        return self.eta[:, self.effect_params]
+
+    def assimilation(self, eta: np.ndarray) -> np.ndarray:
+        """Predicted A at the leaf's points for link-scale values eta (..., P) -> (..., n)."""
+        e = eta[..., None]
+        ratio = self.design.ratio
+        P = self.design.params
+        v25 = np.exp(e[..., 0, :])
+        j25 = np.exp(e[..., 1, :] + (e[..., 0, :] if ratio["jmax25"] else 0.0))
+        alpha = 1 / (1 + np.exp(-e[..., 2, :]))
+        theta = 1 / (1 + np.exp(-e[..., 3, :]))
+        r25 = np.exp(e[..., 4, :] + (e[..., 0, :] if ratio["rd25"] else 0.0))
+        j = fvcb.electron_transport(alpha, self.q, j25 * self.fj, np.clip(theta, 0, 1))
+        wc = v25 * self.fv * self.fc
+        wj = j * self.fe
+        opts = self.design.options
+        gross = fvcb.colimit(wc, wj, opts.smooth_curvature) if opts.transition == "smooth" else np.minimum(wc, wj)
+        if len(P) > 5:
+            wp = 3 * np.exp(e[..., 5, :]) * self.ft
+            gross = fvcb.colimit(gross, wp, opts.smooth_curvature) if opts.transition == "smooth" else np.minimum(gross, wp)
+        return gross - r25 * self.fr
+
+    def loglik_rows(self, rows: np.ndarray):
+        """b (len(rows), Q, d) -> log-likelihood of the leaf's points (len(rows), Q)."""
+        base = self.eta[rows]
+        sigma = self.sigma[rows][:, None, :]
+        nu = None if self.nu is None else self.nu[rows][:, None, None]
+        eff = self.effect_params
+
+        def ll(b: np.ndarray) -> np.ndarray:
+            eta = np.repeat(base[:, None, :], b.shape[1], axis=1)
+            eta[..., eff] = b
+            a_hat = self.assimilation(eta)
+            if nu is None:
+                z = (self.y - a_hat) / sigma
+                return np.sum(-0.5 * z**2 - np.log(sigma) - 0.5 * np.log(2 * np.pi), axis=-1)
+            return np.sum(stats.t.logpdf(self.y, nu, a_hat, sigma), axis=-1)
+
+        return ll
+
+    def pointwise_loglik(self) -> np.ndarray:
+        """log p(y_i | theta_s, the leaf's own values in draw s), (S, n): the conditional likelihood."""
+        a_hat = self.assimilation(self.eta)
+        return stats.norm.logpdf(self.y, a_hat, self.sigma) if self.nu is None else \
+            stats.t.logpdf(self.y, self.nu[:, None], a_hat, self.sigma)
+
+    def predictive_mean(self, n_nodes: int = 7) -> np.ndarray:
+        """E[A_i | theta_s] with the leaf's effects integrated over N(mu_s, sd_s), (S, n)."""
+        from .quadrature import gh_grid
+
+        if self.dim == 0:
+            return self.assimilation(self.eta)
+        z, lw = gh_grid(n_nodes, self.dim)
+        mean, sd = self.mean_sd()
+        b = mean[:, None, :] + sd[:, None, :] * z[None, :, :]
+        eta = np.repeat(self.eta[:, None, :], len(z), axis=1)
+        eta[..., self.effect_params] = b
+        return np.einsum("q,sqn->sn", np.exp(lw), self.assimilation(eta))

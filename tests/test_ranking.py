@@ -1,0 +1,381 @@
+"""Tests of the cross-validation result type, the ArviZ bridge and the ranking of structures.
+
+Outside references: ArviZ 0.23's ``loo`` and ``compare`` (called directly, not through
+leafcv), SciPy's SLSQP on the simplex, closed forms of the stacking objective
+(Yao, Vehtari, Simpson & Gelman 2018, Bayesian Analysis 13:917-1007, eq. 4), the k-hat
+threshold min(1 - 1/log10 S, 0.7) (Vehtari et al. 2024, JMLR 25(72)), |Δelpd| < 4 as small
+(Sivula, Magnusson, Matamoros & Vehtari 2020) and the many-structures caveat
+(McLatchie & Vehtari 2024). All per-leaf values are simulated here.
+"""
+from __future__ import annotations
+
+import arviz as az
+import numpy as np
+import pandas as pd
+import pytest
+from scipy.optimize import check_grad, minimize
+
+from leafcv.cv.arviz_bridge import compare_results, to_elpd_data
+from leafcv.cv.result import CVResult
+from leafcv.ranking import (
+    COLUMNS, NOT_RANKED, SMALL_DIFF_WARNING, WITHIN_SE_WARNING, _negative_mean_log_score,
+    format_ranking, rank, stacking_weights, summary_notes,
+)
+
+# ArviZ 0.23's compare, called directly below as the reference, uses an inplace sort that pandas 3.1 deprecates
+pytestmark = pytest.mark.filterwarnings("ignore:The inplace keyword")
+
+G = 30
+LEAVES = tuple(f"leaf{i:02d}" for i in range(G))
+
+
+def make(name: str, elpd_i, **kwargs) -> CVResult:
+    """A result over LEAVES with method auto and 4000 draws unless told otherwise."""
+    kwargs.setdefault("n_draws", 4000)
+    kwargs.setdefault("method", "auto")
+    leaves = kwargs.pop("leaves", LEAVES)
+    return CVResult(structure=name, leaves=leaves, elpd_i=np.asarray(elpd_i, dtype=float), **kwargs)
+
+
+def results_from(matrix: np.ndarray) -> dict[str, CVResult]:
+    """One result per column of a (G, K) matrix of per-leaf elpd, named m0, m1, ..."""
+    leaves = tuple(f"leaf{i:02d}" for i in range(matrix.shape[0]))
+    return {f"m{k}": make(f"m{k}", matrix[:, k], leaves=leaves) for k in range(matrix.shape[1])}
+
+
+# ------------------------------------------------------------------------------------------
+# independent reference: the stacking objective optimised by SLSQP on the simplex
+
+def log_score(weights: np.ndarray, elpd: np.ndarray) -> float:
+    """Σ_g log Σ_k w_k exp(elpd_gk), computed with a per-leaf shift (Yao et al. 2018, eq. 4)."""
+    top = elpd.max(axis=1)
+    return float(np.sum(top + np.log(np.maximum(np.exp(elpd - top[:, None]) @ weights, 1e-300))))
+
+
+def slsqp_weights(elpd: np.ndarray) -> np.ndarray:
+    """Stacking weights by SLSQP with bounds [0, 1] and the constraint Σ w = 1."""
+    k = elpd.shape[1]
+    dens = np.exp(elpd - elpd.max(axis=1, keepdims=True))
+
+    def fun(w):
+        return -np.sum(np.log(np.maximum(dens @ w, 1e-300)))
+
+    def jac(w):
+        return -np.sum(dens / np.maximum(dens @ w, 1e-300)[:, None], axis=0)
+
+    fit = minimize(fun, np.full(k, 1.0 / k), jac=jac, method="SLSQP", bounds=[(0.0, 1.0)] * k,
+                   constraints={"type": "eq", "fun": lambda w: np.sum(w) - 1.0, "jac": lambda w: np.ones(k)},
+                   options={"ftol": 1e-14, "maxiter": 1000})
+    assert fit.success, fit.message
+    return fit.x
+
+
+def random_matrix(seed: int) -> np.ndarray:
+    """Per-leaf elpd of three overlapping structures on 40 leaves."""
+    rng = np.random.default_rng(seed)
+    base = rng.normal(-25.0, 3.0, size=(40, 1))
+    return base + rng.normal(0.0, 1.5, size=(40, 3))
+
+
+def dominant_matrix() -> np.ndarray:
+    """Structure m0 better than m1 and m2 by 2 to 4 nats on every leaf."""
+    rng = np.random.default_rng(7)
+    base = rng.normal(-25.0, 3.0, size=(40, 1))
+    return base + np.column_stack([np.zeros(40), -rng.uniform(2, 4, 40), -rng.uniform(2, 4, 40)])
+
+
+def complementary_matrix() -> np.ndarray:
+    """m0 better on the first half of the leaves, m1 on the second, by 3 to 6 nats."""
+    rng = np.random.default_rng(11)
+    base = rng.normal(-25.0, 3.0, size=40)
+    gap = rng.uniform(3, 6, 40)
+    first = np.arange(40) < 20
+    return np.column_stack([base - np.where(first, 0.0, gap), base - np.where(first, gap, 0.0)])
+
+
+def arviz_weights(matrix: np.ndarray) -> np.ndarray:
+    """Stacking weights through the ArviZ bridge, in column order."""
+    table = compare_results(results_from(matrix))
+    return table.loc[[f"m{k}" for k in range(matrix.shape[1])], "weight"].to_numpy()
+
+
+# ------------------------------------------------------------------------------------------
+# (b) stacking weights: ArviZ path vs a direct SciPy optimisation
+
+@pytest.mark.parametrize("matrix", [random_matrix(1), random_matrix(2), dominant_matrix(), complementary_matrix()],
+                         ids=["random1", "random2", "dominant", "complementary"])
+def test_stacking_weights_arviz_path_match_scipy_slsqp(matrix):
+    reference = slsqp_weights(matrix)
+    np.testing.assert_allclose(arviz_weights(matrix), reference, atol=1e-3)
+    np.testing.assert_allclose(stacking_weights(matrix), reference, atol=1e-3)
+    # whatever the optimiser, no weights found may score below the SLSQP optimum by more than noise
+    assert log_score(stacking_weights(matrix), matrix) >= log_score(reference, matrix) - 1e-6
+
+
+def test_dominant_structure_takes_all_weight():
+    weights = arviz_weights(dominant_matrix())
+    assert weights[0] > 0.99
+    assert np.isclose(weights.sum(), 1.0, atol=1e-6)
+
+
+def test_complementary_structures_get_interior_weights_beating_every_vertex():
+    matrix = complementary_matrix()
+    weights = arviz_weights(matrix)
+    assert np.all(weights > 0.05) and np.all(weights < 0.95)
+    found = log_score(weights, matrix)
+    for k in range(matrix.shape[1]):
+        vertex = np.eye(matrix.shape[1])[k]
+        assert found >= log_score(vertex, matrix)
+
+
+def test_symmetric_complementary_case_has_equal_weights():
+    # closed form: half the leaves (0, -d), half (-d, 0); the concave objective is symmetric in
+    # w and 1 - w, so its maximum is at w = 1/2 (Yao et al. 2018, eq. 4)
+    matrix = np.array([[0.0, -3.0]] * 10 + [[-3.0, 0.0]] * 10) - 20.0
+    np.testing.assert_allclose(arviz_weights(matrix), [0.5, 0.5], atol=1e-3)
+    np.testing.assert_allclose(stacking_weights(matrix), [0.5, 0.5], atol=1e-6)
+
+
+def test_two_structures_closed_form_weight():
+    # leaves where m0 has density ratio r = exp(e0 - e1) in {a, b} (n each): the stationarity
+    # condition Σ_g (r_g - 1) / (w r_g + 1 - w) = 0 gives w = -(a + b - 2) / (2 (a - 1)(b - 1))
+    a, b = np.exp(2.0), np.exp(-1.0)
+    w_exact = -(a + b - 2) / (2 * (a - 1) * (b - 1))
+    matrix = np.array([[2.0, 0.0]] * 6 + [[-1.0, 0.0]] * 6) - 15.0
+    np.testing.assert_allclose(stacking_weights(matrix)[0], w_exact, atol=1e-6)
+    np.testing.assert_allclose(arviz_weights(matrix)[0], w_exact, atol=1e-3)
+
+
+def test_stacking_survives_very_negative_leaf_elpd():
+    # a leaf scored jointly over many points can have elpd far below log(smallest double) ~ -745
+    matrix = random_matrix(1)                    # weights far from uniform
+    shifted = matrix - 900.0
+    np.testing.assert_allclose(arviz_weights(shifted), slsqp_weights(matrix), atol=1e-3)
+    np.testing.assert_allclose(stacking_weights(shifted), stacking_weights(matrix), atol=1e-6)
+
+
+def test_stacking_gradient_matches_finite_differences():
+    matrix = random_matrix(3)
+    matrix = matrix - matrix.max(axis=1, keepdims=True)
+    z = np.array([0.3, -0.2, 0.1])
+    error = check_grad(lambda v: _negative_mean_log_score(v, matrix)[0],
+                       lambda v: _negative_mean_log_score(v, matrix)[1], z)
+    assert error < 1e-6
+
+
+def test_single_structure_has_weight_one():
+    np.testing.assert_array_equal(stacking_weights(np.full((5, 1), -3.0)), [1.0])
+
+
+# ------------------------------------------------------------------------------------------
+# result type and bridge vs ArviZ itself
+
+def test_se_and_elpd_match_arviz_loo():
+    rng = np.random.default_rng(5)
+    log_lik = rng.normal(-20.0, 1.0, size=(1, 1000, G)) + rng.normal(0.0, 2.0, size=(1, 1, G))
+    idata = az.from_dict(log_likelihood={"y": log_lik})
+    loo = az.loo(idata, pointwise=True, reff=1.0)
+    res = make("m", loo["loo_i"].values, pareto_k=loo["pareto_k"].values, n_draws=1000)
+    assert res.elpd == pytest.approx(float(loo["elpd_loo"]), rel=1e-12)
+    assert res.se == pytest.approx(float(loo["se"]), rel=1e-12)
+    assert res.khat_threshold == pytest.approx(float(loo["good_k"]), rel=1e-12)
+
+
+def test_elpd_data_is_accepted_by_arviz_compare():
+    rng = np.random.default_rng(6)
+    a = make("a", rng.normal(-20, 2, G), pareto_k=rng.uniform(0, 0.5, G))
+    b = make("b", a.elpd_i + rng.normal(-0.5, 1, G))
+    table = az.compare({"a": to_elpd_data(a), "b": to_elpd_data(b)}, ic="loo", method="stacking", scale="log")
+    assert table.loc["a", "elpd_loo"] == pytest.approx(a.elpd)
+    assert table.loc["b", "se"] == pytest.approx(b.se)
+    assert list(to_elpd_data(a)["loo_i"].coords["leaf"].values) == list(LEAVES)
+
+
+def test_table_diffs_and_se_diff_agree_with_arviz_compare():
+    rng = np.random.default_rng(8)
+    base = rng.normal(-20, 2, G)
+    results = [make(f"s{k}", base + rng.normal(-0.3 * k, 1.0, G)) for k in range(4)]
+    table = rank(results).set_index("structure")
+    ref = az.compare({r.structure: to_elpd_data(r) for r in results}, ic="loo", method="stacking", scale="log")
+    assert list(table.index) == list(ref.index)
+    np.testing.assert_allclose(table["elpd_diff"], -ref["elpd_diff"].astype(float), atol=1e-9)
+    np.testing.assert_allclose(table["se_diff"], ref["dse"].astype(float), atol=1e-9)
+    np.testing.assert_allclose(table["se"], ref["se"].astype(float), atol=1e-9)
+    np.testing.assert_allclose(table["weight"], ref["weight"].astype(float), atol=1e-3)
+
+
+def test_bridge_converts_arviz_difference_to_structure_minus_best():
+    rng = np.random.default_rng(14)
+    base = rng.normal(-20, 2, G)
+    results = {f"s{k}": make(f"s{k}", base + rng.normal(-0.5 * k, 1.0, G)) for k in range(3)}
+    table = compare_results(results)
+    ref = az.compare({k: to_elpd_data(r) for k, r in results.items()}, ic="loo", method="stacking", scale="log")
+    assert list(table.index) == list(ref.index)
+    np.testing.assert_allclose(table["elpd_diff"], -ref["elpd_diff"].astype(float), atol=1e-9)
+    np.testing.assert_allclose(table["se_diff"], ref["dse"].astype(float), atol=1e-9)
+    assert table["elpd_diff"].iloc[0] == 0.0 and (table["elpd_diff"].iloc[1:] < 0).all()
+    assert not np.signbit(table["elpd_diff"].iloc[0])
+
+
+def test_constant_per_leaf_difference_has_zero_se():
+    base = np.linspace(-30, -10, G)
+    table = rank([make("a", base), make("b", base - 0.25)])
+    row = table.iloc[1]
+    assert row["elpd_diff"] == pytest.approx(-0.25 * G)
+    assert row["se_diff"] == pytest.approx(0.0, abs=1e-9)
+
+
+def test_sign_convention_and_order():
+    rng = np.random.default_rng(9)
+    base = rng.normal(-20, 2, G)
+    results = [make(f"s{k}", base + rng.normal(0, 1, G)) for k in range(5)]
+    table = rank(results)
+    assert list(table.columns) == COLUMNS
+    assert table["elpd"].is_monotonic_decreasing
+    assert table["elpd_diff"].iloc[0] == 0.0 and table["se_diff"].iloc[0] == 0.0
+    assert (table["elpd_diff"] <= 0).all()
+    assert list(table["rank"]) == [1, 2, 3, 4, 5]
+    expected = {r.structure: r.elpd for r in results}
+    best = max(expected.values())
+    for _, row in table.iterrows():
+        assert row["elpd_diff"] == pytest.approx(expected[row["structure"]] - best)
+
+
+def test_ties_share_a_rank_and_keep_input_order():
+    base = np.arange(-40.0, -40.0 + G)           # dyadic values: totals are exact
+    results = [make("first", base), make("second", base[::-1]), make("worse", base - 1.0)]
+    table = rank(results)
+    assert list(table["structure"]) == ["first", "second", "worse"]
+    assert list(table["rank"]) == [1, 1, 3]
+    assert table["elpd_diff"].iloc[1] == 0.0
+    assert SMALL_DIFF_WARNING in table["warnings"].iloc[1]
+    assert summary_notes(table, G)[0] == "first and second are tied for the best elpd."
+
+
+# ------------------------------------------------------------------------------------------
+# convergence and comparability
+
+def test_non_converged_structure_is_placed_last_without_rank_or_weight():
+    rng = np.random.default_rng(10)
+    base = rng.normal(-20, 2, G)
+    results = [
+        make("failed", base + 5.0, converged=False, warnings=("R-hat 1.08 for sigma",)),
+        make("good", base), make("fair", base - rng.uniform(0, 1, G)),
+    ]
+    table = rank(results)
+    assert list(table["structure"]) == ["good", "fair", "failed"]
+    last = table.iloc[-1]
+    assert last["rank"] is pd.NA
+    assert not last["converged"] and np.isnan(last["weight"])
+    assert last["warnings"].startswith(f"{NOT_RANKED}; R-hat 1.08 for sigma")
+    assert table["weight"].iloc[:2].sum() == pytest.approx(1.0, abs=1e-6)
+    assert list(table["rank"].iloc[:2]) == [1, 2]
+    notes = summary_notes(table, G)
+    assert any("failed" in n and "did not converge" in n for n in notes)
+
+
+def test_all_non_converged_are_ranked_but_flagged():
+    base = np.linspace(-30, -10, G)
+    table = rank([make("a", base, converged=False), make("b", base - 0.5, converged=False)])
+    assert list(table["rank"]) == [1, 2]
+    assert table["weight"].notna().all()
+    assert all("did not converge" in w for w in table["warnings"])
+    assert any("No structure" in n for n in summary_notes(table, G))
+
+
+def test_mismatched_leaves_raise_naming_structures():
+    base = np.zeros(G)
+    other = tuple(f"x{i}" for i in range(G))
+    with pytest.raises(ValueError, match="odd_one"):
+        rank([make("ref", base), make("fine", base), make("odd_one", base, leaves=other)])
+    with pytest.raises(ValueError, match="reordered"):
+        rank([make("ref", base), make("reordered", base, leaves=LEAVES[::-1])])
+    with pytest.raises(ValueError, match=r"exact_one \(exact\)"):
+        rank([make("ref", base), make("exact_one", base, method="exact")])
+
+
+def test_result_rejects_inconsistent_shapes():
+    with pytest.raises(ValueError, match="elpd_i has 3 values"):
+        make("m", [1.0, 2.0, 3.0])
+    with pytest.raises(ValueError, match="method"):
+        make("m", np.zeros(G), method="loo")
+
+
+# ------------------------------------------------------------------------------------------
+# warnings and notes
+
+def test_small_difference_warning_exactly_below_four():
+    # Sivula et al. 2020: |Δelpd| < 4 is small. One leaf shifted by a dyadic amount: exact totals.
+    base = -np.arange(10.0, 10.0 + G)
+    shifts = {"d3.75": 3.75, "d4.00": 4.0, "d4.25": 4.25, "d8.00": 8.0}
+    results = [make("best", base)]
+    for name, shift in shifts.items():
+        elpd = base.copy()
+        elpd[0] -= shift
+        results.append(make(name, elpd))
+    table = rank(results).set_index("structure")
+    assert SMALL_DIFF_WARNING not in table.loc["best", "warnings"]
+    for name, shift in shifts.items():
+        assert table.loc[name, "elpd_diff"] == -shift
+        assert (SMALL_DIFF_WARNING in table.loc[name, "warnings"]) == (shift < 4.0)
+
+
+def test_within_two_se_warning_follows_paired_se():
+    rng = np.random.default_rng(12)
+    base = rng.normal(-20, 2, G)
+    results = [make("best", base + 0.5)] + [make(f"s{k}", base + rng.normal(-0.2 * k, 1.0, G)) for k in range(5)]
+    table = rank(results).set_index("structure")
+    best = table["elpd"].idxmax()
+    for r in results:
+        if r.structure == best:
+            continue
+        d = r.elpd_i - next(x for x in results if x.structure == best).elpd_i
+        within = abs(d.sum()) < 2 * np.sqrt(G * np.var(d))
+        assert (WITHIN_SE_WARNING in table.loc[r.structure, "warnings"]) == within
+
+
+def test_khat_warning_uses_draw_dependent_threshold():
+    # Vehtari et al. 2024: threshold min(1 - 1/log10 S, 0.7): 0.5 for S = 100, 0.7 for S = 4000
+    base = np.linspace(-30, -10, G)
+    k = np.full(G, 0.2)
+    k[3] = 0.6
+    few = rank([make("few", base, pareto_k=k, n_draws=100), make("other", base - 5.0, n_draws=100)])
+    many = rank([make("many", base, pareto_k=k), make("other", base - 5.0)])
+    assert "k-hat above 0.50 for 1 of 30 leaves (max 0.60" in few["warnings"].iloc[0]
+    assert "k-hat" not in many["warnings"].iloc[0]
+    assert many["max_khat"].iloc[0] == 0.6 and np.isnan(many["max_khat"].iloc[1])
+
+
+def test_summary_notes_for_few_leaves_and_many_structures():
+    rng = np.random.default_rng(13)
+    base = rng.normal(-20, 2, G)
+    small = rank([make("a", base + 2.0), make("b", base)])
+    notes = summary_notes(small, G)
+    assert notes[0].startswith("a predicts new leaves best") and "clear" in notes[0]
+    assert any("fewer than 100 leaves" in n and "Sivula" in n for n in notes)
+    assert not any("Sivula" in n for n in summary_notes(small, 120))
+    assert not any("McLatchie" in n for n in notes)
+    many = rank([make(f"s{k:02d}", base - 0.01 * k) for k in range(12)])
+    assert any("McLatchie & Vehtari 2024" in n for n in summary_notes(many, G))
+    eleven = rank([make(f"s{k:02d}", base - 0.01 * k) for k in range(11)])
+    assert not any("McLatchie" in n for n in summary_notes(eleven, G))
+    assert "not clear" in summary_notes(eleven, G)[0]
+
+
+def test_rmse_and_r2_cells():
+    base = np.linspace(-30, -10, G)
+    only_all = rank([make("a", base, rmse={"all": 0.5}, r2={"all": 0.9}), make("b", base - 1)])
+    assert only_all["rmse"].iloc[0] == 0.5 and np.isnan(only_all["rmse"].iloc[1])
+    by_type = rank([make("a", base, rmse={"all": 0.55, "aq": 0.42, "aci": 0.61}), make("b", base - 1, rmse={"all": 0.7})])
+    assert list(by_type["rmse"]) == ["aci 0.61; aq 0.42; all 0.55", "all 0.7"]
+
+
+def test_format_ranking_lists_every_structure_and_warning():
+    base = np.linspace(-30, -10, G)
+    table = rank([make("alpha_leaf", base), make("vcmax_leaf", base - 1.0, converged=False)])
+    text = format_ranking(table)
+    lines = text.splitlines()
+    assert lines[0].split()[:3] == ["structure", "rank", "elpd"]
+    assert lines[1].startswith("alpha_leaf") and lines[2].startswith("vcmax_leaf")
+    assert f"vcmax_leaf: {NOT_RANKED}" in text
+    assert lines[1].split()[1] == "1" and lines[2].split()[1] == "-"
