@@ -22,7 +22,7 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
-from .cv.methods import CVDetails, cross_validate
+from .cv.methods import KFOLD_FALLBACK, CVDetails, cross_validate
 from .cv.result import CVResult
 from .data.dataset import Dataset
 from .inits import fit_leaves
@@ -119,13 +119,12 @@ def run_comparison(comparison: Comparison, dataset: Dataset, out: Path, *, metho
         "command": " ".join(sys.argv),
     }
     write_atomic(out / "manifest.json", json.dumps(manifest, indent=1))
-    leaf_fits = None
-    results: list[CVResult] = []
-    all_details: dict[str, dict] = {}
-    n = len(comparison.structures)
-    for k, s in enumerate(comparison.structures, 1):
-        key = structure_key(s, comparison, data_hash, settings)
-        path = out / "results" / f"{s.name}.json"
+    state = {"leaf_fits": None}
+
+    def one(k: int, s: Structure, how: str) -> tuple[CVResult, dict]:
+        how_settings = dict(settings, method=how)
+        key = structure_key(s, comparison, data_hash, how_settings)
+        path = out / "results" / (f"{s.name}.json" if how == method else f"{s.name}.{how}.json")
         if path.exists():
             try:
                 old_key, res, det = _result_from_json(path.read_text())
@@ -133,21 +132,30 @@ def run_comparison(comparison: Comparison, dataset: Dataset, out: Path, *, metho
                 old_key = None
             if old_key == key:
                 log(f"[{k}/{n}] {s.name}: reusing the finished result in {path}")
-                results.append(res)
-                all_details[s.name] = det
-                continue
-        if leaf_fits is None:
-            leaf_fits = fit_leaves(dataset)
+                return res, det
+        if state["leaf_fits"] is None:
+            state["leaf_fits"] = fit_leaves(dataset)
         t = time.perf_counter()
-        log(f"[{k}/{n}] {s.name}: cross-validating ({method}, by {comparison.cv.by})")
-        res, det = cross_validate(s, dataset, comparison, method=method, by=comparison.cv.by,
-                                  folds=comparison.cv.folds, spot_checks=spot_checks, engine=engine,
-                                  leaf_fits=leaf_fits, sampler=sampler)
+        log(f"[{k}/{n}] {s.name}: cross-validating ({how}, by {comparison.cv.by})")
+        res, det = cross_validate(s, dataset, comparison, method=how, by=comparison.cv.by,
+                                  folds=KFOLD_FALLBACK if (how == "kfold" and method == "auto") else comparison.cv.folds,
+                                  spot_checks=spot_checks, engine=engine,
+                                  leaf_fits=state["leaf_fits"], sampler=sampler)
         write_atomic(path, _result_to_json(res, det, key))
         log(f"[{k}/{n}] {s.name}: elpd {res.elpd:.1f} (SE {res.se:.1f}), {res.n_refits} refits, "
             f"{time.perf_counter() - t:.0f} s" + ("" if res.converged else " - NOT CONVERGED"))
-        results.append(res)
-        all_details[s.name] = asdict(det)
+        return res, asdict(det)
+
+    n = len(comparison.structures)
+    done = [one(k, s, method) for k, s in enumerate(comparison.structures, 1)]
+    if len({r.method for r, _ in done}) > 1 and any(r.method == "kfold" for r, _ in done):
+        # CROSS-VALIDATION.md: when auto falls back to K-fold, every structure uses the same folds
+        log("some structures fell back to grouped K-fold: scoring every structure on the same folds")
+        done = [d if d[0].method == "kfold" else one(k, s, "kfold")
+                for k, (s, d) in enumerate(zip(comparison.structures, done), 1)]
+        settings["method_used"] = "kfold"
+    results = [r for r, _ in done]
+    all_details = {r.structure: d for r, d in done}
     table = rank(results)
     write_atomic(out / "ranking.csv", table.to_csv(index=False))
     notes = summary_notes(table, dataset.n_leaves)
