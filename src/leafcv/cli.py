@@ -36,6 +36,8 @@ def _parser() -> argparse.ArgumentParser:
     m.add_argument("--method", choices=("auto", "exact", "kfold"))
     m.add_argument("--workers", type=int)
     m.add_argument("--scheduler")
+    r = sub.add_parser("report", help="rewrite the ranking of a run folder from its results")
+    r.add_argument("rundir", type=Path)
     return p
 
 
@@ -102,6 +104,13 @@ def cmd_compare(args) -> int:
     return EXIT_OK
 
 
+def cmd_report(args) -> int:
+    from .compare import rewrite_report
+
+    print(rewrite_report(args.rundir))
+    return EXIT_OK
+
+
 def cmd_demo(args) -> int:
     from .demo import write_demo
 
@@ -133,7 +142,7 @@ def _progress(label: str):
     return report
 
 
-COMMANDS = {"check": cmd_check, "fit": cmd_fit, "compare": cmd_compare, "demo": cmd_demo}
+COMMANDS = {"check": cmd_check, "fit": cmd_fit, "compare": cmd_compare, "demo": cmd_demo, "report": cmd_report}
 
 
 def main(argv: list[str] | None = None) -> int:

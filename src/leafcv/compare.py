@@ -100,6 +100,48 @@ def _result_from_json(text: str) -> tuple[str, CVResult, dict]:
     return d["key"], res, d["details"]
 
 
+def write_ranking(out: Path, results: list[CVResult], all_details: dict[str, dict], n_leaves: int
+                  ) -> tuple[str, pd.DataFrame]:
+    """Rank the results and write ranking.csv, ranking.txt and pointwise.csv into ``out``."""
+    table = rank(results)
+    write_atomic(out / "ranking.csv", table.to_csv(index=False))
+    notes = summary_notes(table, n_leaves)
+    spot = [f"spot check {s['leaf']}: auto {s['elpd_auto']:.2f} vs exact {s['elpd_exact']:.2f} nats "
+            f"(k-hat {s['khat']:.2f}) in {name}" for name, d in all_details.items() for s in d.get("spot_checks", [])]
+    text = format_ranking(table) + "\n\n" + "\n".join(notes + spot) + "\n"
+    write_atomic(out / "ranking.txt", text)
+    point = {"leaf": list(results[0].leaves)}
+    for r in results:
+        point[f"elpd:{r.structure}"] = r.elpd_i
+        if r.pareto_k is not None:
+            point[f"khat:{r.structure}"] = r.pareto_k
+    write_atomic(out / "pointwise.csv", pd.DataFrame(point).to_csv(index=False))
+    return text, table
+
+
+def rewrite_report(run_dir: Path) -> str:
+    """Re-rank a run from the result files of its manifest's method; returns the ranking text."""
+    from .errors import UserInputError
+
+    run_dir = Path(run_dir)
+    manifest_path = run_dir / "manifest.json"
+    if not manifest_path.exists():
+        raise UserInputError(str(run_dir), ["no manifest.json here: give the run folder written by `leafcv compare`"])
+    manifest = json.loads(manifest_path.read_text())
+    results, details = [], {}
+    for name, filename in manifest.get("results", {}).items():
+        path = run_dir / "results" / filename
+        if not path.exists():
+            raise UserInputError(str(run_dir), [f"result file {path} of structure {name!r} is missing; re-run `leafcv compare`"])
+        _, res, det = _result_from_json(path.read_text())
+        results.append(res)
+        details[res.structure] = det
+    if not results:
+        raise UserInputError(str(run_dir), ["no finished structure results in results/"])
+    text, _ = write_ranking(run_dir, results, details, len(results[0].leaves))
+    return text
+
+
 def run_comparison(comparison: Comparison, dataset: Dataset, out: Path, *, method: str | None = None,
                    engine=None, log: Callable[[str], None] = print, spot_checks: int = 3,
                    sampler=None) -> pd.DataFrame:
@@ -121,10 +163,13 @@ def run_comparison(comparison: Comparison, dataset: Dataset, out: Path, *, metho
     write_atomic(out / "manifest.json", json.dumps(manifest, indent=1))
     state = {"leaf_fits": None}
 
+    files: dict[str, str] = {}
+
     def one(k: int, s: Structure, how: str) -> tuple[CVResult, dict]:
         how_settings = dict(settings, method=how)
         key = structure_key(s, comparison, data_hash, how_settings)
         path = out / "results" / (f"{s.name}.json" if how == method else f"{s.name}.{how}.json")
+        files[s.name] = path.name
         if path.exists():
             try:
                 old_key, res, det = _result_from_json(path.read_text())
@@ -156,19 +201,8 @@ def run_comparison(comparison: Comparison, dataset: Dataset, out: Path, *, metho
         settings["method_used"] = "kfold"
     results = [r for r, _ in done]
     all_details = {r.structure: d for r, d in done}
-    table = rank(results)
-    write_atomic(out / "ranking.csv", table.to_csv(index=False))
-    notes = summary_notes(table, dataset.n_leaves)
-    spot = [f"spot check {s['leaf']}: auto {s['elpd_auto']:.2f} vs exact {s['elpd_exact']:.2f} nats "
-            f"(k-hat {s['khat']:.2f}) in {name}" for name, d in all_details.items() for s in d.get("spot_checks", [])]
-    text = format_ranking(table) + "\n\n" + "\n".join(notes + spot) + "\n"
-    write_atomic(out / "ranking.txt", text)
-    point = {"leaf": list(results[0].leaves)}
-    for r in results:
-        point[f"elpd:{r.structure}"] = r.elpd_i
-        if r.pareto_k is not None:
-            point[f"khat:{r.structure}"] = r.pareto_k
-    write_atomic(out / "pointwise.csv", pd.DataFrame(point).to_csv(index=False))
+    text, table = write_ranking(out, results, all_details, dataset.n_leaves)
+    manifest["results"] = files
     manifest["finished"] = time.strftime("%Y-%m-%dT%H:%M:%S%z")
     write_atomic(out / "manifest.json", json.dumps(manifest, indent=1))
     log(text)

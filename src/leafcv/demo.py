@@ -46,7 +46,7 @@ class DemoSize:
     draws: int
 
 
-SIZES = {"default": DemoSize(32, 4, 500, 750), "quick": DemoSize(16, 4, 500, 1000)}
+SIZES = {"default": DemoSize(32, 4, 500, 1000), "quick": DemoSize(16, 4, 500, 1000)}
 
 
 def simulate(n_leaves: int, seed: int = 20261202) -> tuple[pd.DataFrame, pd.DataFrame]:

@@ -102,3 +102,14 @@ def test_run_folder_and_resume(demo_run):
     again = run_comparison(comp, dataset, out, log=logs.append)
     assert sum("reusing" in line for line in logs) == 2
     np.testing.assert_allclose(again["elpd"].to_numpy(float), table["elpd"].to_numpy(float))
+
+
+def test_report_rewrites_the_ranking_from_results(demo_run):
+    from leafcv.compare import rewrite_report
+
+    _, _, out, table = demo_run
+    before = (out / "ranking.csv").read_text()
+    (out / "ranking.csv").unlink()
+    text = rewrite_report(out)
+    assert "traits-month-fixed" in text
+    assert (out / "ranking.csv").read_text() == before

@@ -9,7 +9,7 @@ Every held-out leaf is scored jointly over its points, with its effects integrat
 from __future__ import annotations
 
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 from scipy.special import logsumexp
@@ -26,6 +26,7 @@ from .result import CVResult
 
 FLAGGED_FRACTION_MAX = 0.2
 KFOLD_FALLBACK = 10
+RETRY_SEED_OFFSET = 7919
 
 
 @dataclass
@@ -128,6 +129,20 @@ def _fit(structure, dataset, comparison, sampler, leaf_fits, train, seed, engine
         kwargs["priors"] = priors
     fit = fit_structure(structure, dataset, comparison.data, sampler, engine=engine, train_leaves=train,
                         leaf_fits=leaf_fits, seed=seed, **kwargs)
+    if not fit.diagnostics.converged:
+        # one retry with a new seed, aimed at the cause: a higher adapt_delta for divergences, twice the
+        # draws for R-hat or ESS; the first attempt's problems are reported
+        dg = fit.diagnostics
+        first = "; ".join(dg.problems)
+        mixing = any(p.startswith(("R-hat", "bulk ESS", "tail ESS")) for p in dg.problems)
+        retry = replace(sampler, draws=2 * sampler.draws if mixing else sampler.draws,
+                        adapt_delta=max(0.99, sampler.adapt_delta) if dg.divergences else sampler.adapt_delta)
+        fit = fit_structure(structure, dataset, comparison.data, retry, engine=engine, train_leaves=train,
+                            leaf_fits=leaf_fits, seed=seed + RETRY_SEED_OFFSET, **kwargs)
+        details.notes.append(f"a fit ({'full data' if train is None else 'refit'}) failed its diagnostics ({first}) "
+                             f"and was retried with seed {seed + RETRY_SEED_OFFSET}, {retry.draws} draws per chain, "
+                             f"adapt_delta {retry.adapt_delta:g}: "
+                             + ("converged" if fit.diagnostics.converged else "; ".join(fit.diagnostics.problems)))
     details.fits_converged.append(fit.diagnostics.converged)
     if not fit.diagnostics.converged:
         details.fit_problems.append("; ".join(fit.diagnostics.problems))
