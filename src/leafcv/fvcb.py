@@ -337,7 +337,11 @@ def electron_transport(alpha: ArrayLike, q: ArrayLike, jmax: ArrayLike, theta: A
         raise ValueError("electron_transport: theta must lie in [0, 1]")
     aq = np.asarray(alpha, dtype=float) * np.asarray(q, dtype=float)
     jmax = np.asarray(jmax, dtype=float)
-    return _smaller_root(aq + jmax, aq * jmax, theta)
+    b, c = aq + jmax, aq * jmax
+    if np.all(b > 0.0):
+        # b > 0 (the usual case): only the cancellation-free branch of _smaller_root is needed
+        return 2.0 * c / (b + np.sqrt(np.maximum(b * b - 4.0 * theta * c, 0.0)))
+    return _smaller_root(b, c, theta)
 
 
 def rubisco_limited(

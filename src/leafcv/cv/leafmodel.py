@@ -106,8 +106,12 @@ class LeafModel:
         return stats.norm.logpdf(self.y, a_hat, self.sigma) if self.nu is None else \
             stats.t.logpdf(self.y, self.nu[:, None], a_hat, self.sigma)
 
-    def predictive_mean(self, n_nodes: int = 7) -> np.ndarray:
-        """E[A_i | theta_s] with the leaf's effects integrated over N(mu_s, sd_s), (S, n)."""
+    def predictive_mean(self, n_nodes: int = 5) -> np.ndarray:
+        """E[A_i | theta_s] with the leaf's effects integrated over N(mu_s, sd_s), (S, n).
+
+        A is smooth in the effects away from the kink of the minimum; 5 Gauss-Hermite nodes per
+        dimension (exact for polynomials of degree 9) are ample for held-out RMSE and R^2.
+        """
         from .quadrature import gh_grid
 
         if self.dim == 0:

@@ -42,6 +42,33 @@ def gh_grid(n: int, d: int) -> tuple[np.ndarray, np.ndarray]:
     return nodes, lw
 
 
+#: Largest dimension integrated by tensor Gauss-Hermite; beyond it a scrambled Sobol rule is used.
+MAX_TENSOR_DIM = 3
+#: Points of the quasi-Monte Carlo rule (main, check, fallback) beyond MAX_TENSOR_DIM dimensions.
+QMC_POINTS = (1024, 256, 4096)
+#: Draws per block, so that (draws x nodes x points) arrays stay small.
+BLOCK = 250
+
+
+def qmc_grid(n_points: int, d: int, seed: int = 20261202) -> tuple[np.ndarray, np.ndarray]:
+    """Scrambled Sobol points mapped to the standard normal, with log weights log(1/n).
+
+    Returned as (nodes, log w) so that the Gauss-Hermite formula applies unchanged: for
+    int g(z) phi(z) dz, Gauss-Hermite gives sum_q w_q g(z_q) and randomised quasi-Monte Carlo the
+    plain mean (1/n) sum_q g(z_q) over normal-mapped Sobol points (Owen 2003; from memory).
+    """
+    from scipy.stats import norm, qmc
+
+    u = qmc.Sobol(d, scramble=True, seed=seed).random(n_points)
+    z = norm.ppf(np.clip(u, 1e-12, 1 - 1e-12))
+    return z, np.full(n_points, -np.log(n_points))
+
+
+def rule(n: int, d: int, kind: int = 0) -> tuple[np.ndarray, np.ndarray]:
+    """Gauss-Hermite with n nodes per dimension up to MAX_TENSOR_DIM, else QMC (kind 0 main, 1 check, 2 fallback)."""
+    return gh_grid(n, d) if d <= MAX_TENSOR_DIM else qmc_grid(QMC_POINTS[kind], d, seed=20261202 + kind)
+
+
 def _log_prior(b: np.ndarray, mean: np.ndarray, sd: np.ndarray) -> np.ndarray:
     """log N(b | mean, diag sd^2) summed over the last axis; b (S, Q, d), mean and sd (S, d)."""
     z = (b - mean[:, None, :]) / sd[:, None, :]
@@ -54,15 +81,25 @@ def log_integrand(loglik: LogLik, b: np.ndarray, mean: np.ndarray, sd: np.ndarra
 
 
 def quadrature(loglik: LogLik, mean: np.ndarray, sd: np.ndarray, centre: np.ndarray, chol: np.ndarray,
-               n_nodes: int) -> np.ndarray:
+               n_nodes: int, kind: int = 0) -> np.ndarray:
     """log m per draw on the grid centre + chol z; centre (S, d), chol (S, d, d) lower triangular."""
     S, d = centre.shape
-    z, lw = gh_grid(n_nodes, d)
+    z, lw = rule(n_nodes, d, kind)
     b = centre[:, None, :] + np.einsum("sij,qj->sqi", chol, z)
     h = log_integrand(loglik, b, mean, sd)
     log_phi = -0.5 * np.sum(z**2, axis=1) - 0.5 * d * _LOG_2PI
     logdet = np.sum(np.log(np.abs(np.diagonal(chol, axis1=1, axis2=2))), axis=1)
     return logdet + logsumexp(lw[None, :] + h - log_phi[None, :], axis=1)
+
+
+def blocked_quadrature(loglik_rows, rows: np.ndarray, mean, sd, centre, chol, n_nodes: int, kind: int = 0
+                       ) -> np.ndarray:
+    """`quadrature` over the draws ``rows`` in blocks of BLOCK draws (bounded memory)."""
+    out = np.empty(len(rows))
+    for i in range(0, len(rows), BLOCK):
+        r = rows[i:i + BLOCK]
+        out[i:i + BLOCK] = quadrature(loglik_rows(r), mean[r], sd[r], centre[r], chol[r], n_nodes, kind)
+    return out
 
 
 def _stencil(d: int, eps: float) -> np.ndarray:
@@ -180,18 +217,20 @@ def leaf_log_marginal(
         Grid for cells that fail the checks: (d,) and (d, d), or per draw (S, d) and (S, d, d).
     """
     S, d = mean.shape
-    mode, chol, ok = laplace_mode(loglik_rows, mean, sd, start)
-    full = loglik_rows(np.arange(S))
-    lm = quadrature(full, mean, sd, mode, chol, n_nodes)
-    lm_check = quadrature(full, mean, sd, mode, chol, n_check)
+    rows = np.arange(S)
+    mode, chol, ok = np.empty((S, d)), np.empty((S, d, d)), np.empty(S, bool)
+    for i in range(0, S, BLOCK):
+        r = rows[i:i + BLOCK]
+        mode[r], chol[r], ok[r] = laplace_mode(lambda sub, r=r: loglik_rows(r[sub]), mean[r], sd[r], start[r])
+    lm = blocked_quadrature(loglik_rows, rows, mean, sd, mode, chol, n_nodes, 0)
+    lm_check = blocked_quadrature(loglik_rows, rows, mean, sd, mode, chol, n_check, 1)
     gap = np.abs(lm - lm_check)
     gap = np.where(np.isfinite(gap), gap, np.inf)
     redo = ~ok | (gap > tol) | ~np.isfinite(lm)
     max_gap = float(np.max(np.where(ok, gap, 0.0))) if ok.any() else float("inf")
     if redo.any():
-        rows = np.flatnonzero(redo)
-        fc = np.broadcast_to(fallback_centre, (S, d))[rows]
-        fch = np.broadcast_to(fallback_chol, (S, d, d))[rows]
-        lm[rows] = quadrature(loglik_rows(rows), mean[rows], sd[rows], fc, fch, n_fallback if d <= 2 else 9)
+        r = np.flatnonzero(redo)
+        fc = np.array(np.broadcast_to(fallback_centre, (S, d)))
+        fch = np.array(np.broadcast_to(fallback_chol, (S, d, d)))
+        lm[r] = blocked_quadrature(loglik_rows, r, mean, sd, fc, fch, n_fallback if d <= 2 else 9, 2)
     return lm, QuadratureInfo(S, int(redo.sum()), max_gap)
-
