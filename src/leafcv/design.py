@@ -268,7 +268,7 @@ def _informed_leaves(param, ratio, leaf_fits, points_per_leaf, train) -> tuple[n
         return enough, (f"centred where a leaf has >= {MIN_POINTS_CENTRED_LEAF} training points "
                         f"(median {int(np.median(points_per_leaf[train]))})")
     se = leaf_fits.link_se(param, ratio)
-    est = _link_estimates(leaf_fits, param, ratio)
+    est = leaf_fits.link_values(param, ratio)
     ok = train & np.isfinite(se) & np.isfinite(est)
     if ok.sum() < 2:
         return np.zeros_like(train), "non-centred: per-leaf fits do not inform this parameter"
@@ -277,17 +277,6 @@ def _informed_leaves(param, ratio, leaf_fits, points_per_leaf, train) -> tuple[n
     centred = enough & np.isfinite(se) & (se < CENTRED_SE_FRACTION * between)
     return centred, (f"centred where the leaf's least-squares SE on the link scale is below {CENTRED_SE_FRACTION:g} x the between-leaf SD "
                      f"({between:.3g}; median SE {np.median(se[ok]):.3g})")
-
-
-def _link_estimates(leaf_fits, param, ratio) -> np.ndarray:
-    v = leaf_fits.values
-    if param not in v:
-        return np.full(len(leaf_fits.cov), np.nan)
-    if param == "alpha":
-        return np.log(v["alpha"] / (1 - v["alpha"]))
-    if ratio:
-        return np.log(v[param] / v["vcmax25"])
-    return np.log(v[param])
 
 
 def responses(options: ModelOptions) -> list[fvcb.TemperatureResponse]:

@@ -32,6 +32,22 @@ class LeafFits:
     failed: tuple[int, ...]
     cov: np.ndarray        # (L, 4, 4) covariance of (log Vcmax25, log Jmax25, logit alpha, log Rd25)
 
+    def link_values(self, param: str, ratio: bool) -> np.ndarray:
+        """Per-leaf estimate of a parameter on its link scale (ratio: log of the ratio to Vcmax25).
+
+        theta is held at THETA_INIT in these fits; parameters not fitted per leaf give NaN.
+        """
+        L = len(self.cov)
+        if param == "theta":
+            return np.full(L, logit(THETA_INIT))
+        if param not in self.values:
+            return np.full(L, np.nan)
+        if param == "alpha":
+            return logit(self.values["alpha"])
+        if ratio:
+            return np.log(self.values[param] / self.values["vcmax25"])
+        return np.log(self.values[param])
+
     def link_se(self, param: str, ratio: bool) -> np.ndarray:
         """Per-leaf standard error of a parameter on its link scale (ratio: log of the ratio to Vcmax25).
 

@@ -106,20 +106,9 @@ def score_leaves(fit: StructureFit, dataset: Dataset, leaves: np.ndarray, leaf_f
 
 
 def _ls_link(fit: StructureFit, leaf_fits: LeafFits, g: int) -> np.ndarray:
-    """Least-squares estimate of the leaf's effect parameters on the link scale."""
-    out = []
-    v = leaf_fits.values
-    for lt in fit.design.leaf_terms:
-        p = lt.param
-        if p == "alpha":
-            out.append(np.log(v["alpha"][g] / (1 - v["alpha"][g])))
-        elif p == "theta":
-            out.append(np.log(0.7 / 0.3))
-        elif fit.design.ratio.get(p):
-            out.append(np.log(v[p][g] / v["vcmax25"][g]))
-        else:
-            out.append(np.log(v.get(p, np.full(len(v["vcmax25"]), 10.0))[g]))
-    return np.array(out)
+    """Least-squares estimate of the leaf's effect parameters on the link scale (log 10 where not fitted)."""
+    vals = [leaf_fits.link_values(lt.param, fit.design.ratio.get(lt.param, False))[g] for lt in fit.design.leaf_terms]
+    return np.nan_to_num(np.array(vals, float), nan=np.log(10.0))
 
 
 def _fit(structure, dataset, comparison, sampler, leaf_fits, train, seed, engine, details, options, priors):
