@@ -182,14 +182,13 @@ def _population_inits(design: Design, link: np.ndarray, train: np.ndarray) -> di
         # held-out leaves have no data: start them at the population mean
         cell_leaf = design.nc_cells % L
         eta_z[held_out[cell_leaf]] = 0.0
-    sigma = np.full(d["S"], 1.0)
     leaf_params = {lt.param for lt in design.leaf_terms}
     cells = np.column_stack([link[:, i] if p in leaf_params else mu[:, i] for i, p in enumerate(design.params)])
     return {
         "b0": b0, "beta": beta, "tau": tau,
         "u_c": u[cen_lev], "u_z": u[nc_lev] / tau[lev_term[nc_lev]] if len(nc_lev) else np.zeros(0),
         "tau_leaf": tau_leaf, "eta_c": flat_link[design.cen_cells], "eta_z": np.clip(eta_z, -3, 3),
-        "sigma": sigma, "nu": np.array([10.0])[: d["student_t"]],
+        "nu": np.array([10.0])[: d["student_t"]],
     }, cells
 
 

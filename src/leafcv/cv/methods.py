@@ -12,7 +12,6 @@ import time
 from dataclasses import dataclass, field, replace
 
 import numpy as np
-from scipy.special import logsumexp
 
 from ..data.dataset import Dataset
 from ..design import leaf_link_values
@@ -243,7 +242,3 @@ def _prediction_scores(dataset: Dataset, preds: dict[int, np.ndarray]) -> tuple[
         rmse[name] = float(np.sqrt(np.mean(e**2)))
         r2[name] = float(1 - np.sum(e**2) / np.sum((y[mask] - y[mask].mean()) ** 2))
     return rmse, r2
-
-
-def log_mean_exp(x: np.ndarray, axis: int = 0) -> np.ndarray:
-    return logsumexp(x, axis=axis) - np.log(x.shape[axis])
