@@ -68,6 +68,10 @@ data {
   int<lower=0> Mn;
   array[Mn] int<lower=1> nc_cell;
   array[Mn] int<lower=1, upper=Rl> nc_term;
+  // correlated leaf effects (LKJ prior on their correlation): cells then come leaf by leaf, Rl
+  // consecutive cells per leaf in term order, and every leaf is wholly centred or wholly non-centred
+  int<lower=0, upper=1> leaf_corr;
+  real<lower=0> lkj_eta;
 
   real<lower=0> sigma_sd;                  // half-normal(0, sigma_sd) on residual SDs
   real<lower=0> nu_shape;                  // gamma(nu_shape, nu_rate) on Student-t df
@@ -97,6 +101,7 @@ parameters {
   vector[Mn] eta_z;
   vector<lower=0>[S] sigma;
   array[student_t] real<lower=1> nu;
+  array[leaf_corr] cholesky_factor_corr[Rl] leaf_chol;
 }
 model {
   vector[Q] u;
@@ -114,7 +119,17 @@ model {
   mu_flat = to_vector(mu);
   eta = mu_flat;
   eta[cen_cell] = eta_c;
-  eta[nc_cell] = mu_flat[nc_cell] + tau_leaf[nc_term] .* eta_z;
+  if (leaf_corr == 1) {
+    matrix[Rl, Rl] chol = diag_pre_multiply(tau_leaf, leaf_chol[1]);
+    eta[nc_cell] = mu_flat[nc_cell] + to_vector(chol * to_matrix(eta_z, Rl, Mn %/% Rl));
+    // centred leaves: multi_normal_cholesky(mu, chol) per leaf, written out and vectorised
+    target += -0.5 * dot_self(to_vector(mdivide_left_tri_low(chol, to_matrix(eta_c - mu_flat[cen_cell], Rl, Mc %/% Rl))))
+              - (Mc %/% Rl) * sum(log(diagonal(chol)));
+    leaf_chol[1] ~ lkj_corr_cholesky(lkj_eta);
+  } else {
+    eta[nc_cell] = mu_flat[nc_cell] + tau_leaf[nc_term] .* eta_z;
+    eta_c ~ normal(mu_flat[cen_cell], tau_leaf[cen_term]);
+  }
 
   {
     vector[L] lv = eta[1:L];
@@ -168,7 +183,6 @@ model {
   u_c ~ normal(0, tau[lev_term[cen_lev]]);
   u_z ~ std_normal();
   tau_leaf ~ normal(0, leaf_tau_sd);
-  eta_c ~ normal(mu_flat[cen_cell], tau_leaf[cen_term]);
   eta_z ~ std_normal();
   sigma ~ normal(0, sigma_sd);
   nu ~ gamma(nu_shape, nu_rate);

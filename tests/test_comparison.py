@@ -163,7 +163,10 @@ def test_describe_example(example) -> None:
     assert "jmax25: log(jmax25/vcmax25) shared by all leaves" in blocks["pooled"]
     assert "alpha: logit link; shared by all leaves" in blocks["pooled"]
     assert "vcmax25: log link; intercept + fixed leaf_n + random leaf, month" in blocks["traits-month-random"]
-    assert all(len(b) == len(PARAMETERS) for b in blocks.values())
+    assert all(len([x for x in b if not x.startswith("model:")]) == len(PARAMETERS) for b in blocks.values())
+    # DESIGN.md "The model": hard minimum, 4/8 electrons, Arrhenius, normal likelihood by default
+    assert all("model: hard minimum, 4/8 electrons per CO2, Arrhenius, normal likelihood, one residual SD" in b
+               for b in blocks.values())
 
 
 # ----------------------------------------------------------------------------------------------
@@ -223,7 +226,7 @@ rd25 = { ratio_to = "vcmax25", random = ["leaf"] }
 BAD_CASES = {
     "unknown top-level key with suggestion": (
         compose(extra="samplr = 3\n"),
-        ["unknown key 'samplr'; did you mean 'sampler'? valid keys: format, data, sampler, cv, structure"],
+        ["unknown key 'samplr'; did you mean 'sampler'? valid keys: format, data, sampler, cv, model, priors, structure, grid"],
     ),
     "unknown key in a nested table": (
         compose(data=DATA + '[data.units]\ncii = "Pa"\n'),
@@ -265,11 +268,15 @@ BAD_CASES = {
     ),
     "format missing": (
         compose(fmt=""),
-        ["format is missing; add `format = 1`"],
+        ["format is missing; add `format = 2`"],
     ),
-    "format 2": (
-        compose(fmt="format = 2\n"),
-        ["format = 2 is not supported", "reads format 1"],
+    "format 3": (
+        compose(fmt="format = 3\n"),
+        ["format = 3 is not supported", "reads formats 1, 2"],
+    ),
+    "format-2 keys in a format-1 file": (
+        compose(extra='[model]\ntpu = true\n'),
+        ["format 1 has no model; set `format = 2`"],
     ),
     "bad method": (
         compose(cv=CV.replace('"auto"', '"loo"')),
@@ -338,7 +345,7 @@ BAD_CASES = {
     ),
     "trait as a random term": (
         compose(structures=STRUCTURE + 'alpha = { random = ["leaf", "chl"] }\n'),
-        ["structure 'traits', alpha.random: 'chl' is a trait; random slopes are not in format 1"],
+        ["structure 'traits', alpha.random: 'chl' is a trait; random lists groupings", 'slopes = { chl = "<grouping>" }'],
     ),
     "unknown random grouping": (
         compose(structures=STRUCTURE + 'alpha = { random = ["plant"] }\n'),
@@ -394,7 +401,7 @@ BAD_CASES = {
     ),
     "no structure": (
         compose(structures=""),
-        ["no [[structure]] found"],
+        ["no [[structure]] or [[grid]] found"],
     ),
 }
 

@@ -12,6 +12,7 @@ import math
 import os
 import re
 import tomllib
+from dataclasses import replace
 from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any
@@ -23,7 +24,13 @@ from .data.dataset import Dataset
 from .errors import SpecError
 from .spec import (
     CENTRING_CHOICES,
+    ELECTRON_CHOICES,
+    LIKELIHOOD_CHOICES,
     LINKS,
+    SIGMA_CHOICES,
+    TEMPERATURE_CHOICES,
+    TRANSITION_CHOICES,
+    ModelOptions,
     OPTIONAL_COLUMNS,
     PARAMETERS,
     RATIO_PARAMETERS,
@@ -38,10 +45,23 @@ from .spec import (
 
 __all__ = ["FORMAT_VERSION", "load_comparison", "check_against_data", "describe"]
 
-#: The comparison-file format this module reads.
-FORMAT_VERSION = 1
+#: The newest comparison-file format this module reads; format 1 files are read too.
+FORMAT_VERSION = 2
+SUPPORTED_FORMATS: tuple[int, ...] = (1, 2)
 
-TOP_KEYS: tuple[str, ...] = ("format", "data", "sampler", "cv", "structure")
+TOP_KEYS: tuple[str, ...] = ("format", "data", "sampler", "cv", "model", "priors", "structure", "grid")
+#: Keys that format 2 added (a format-1 file using them is told to say format = 2).
+FORMAT2_TOP_KEYS: tuple[str, ...] = ("model", "priors", "grid")
+FORMAT2_PARAM_KEYS: tuple[str, ...] = ("slopes", "split")
+FORMAT2_STRUCTURE_KEYS: tuple[str, ...] = ("model", "priors", "leaf_correlation", "lkj_eta")
+STRUCTURE_KEYS: tuple[str, ...] = ("name", *FORMAT2_STRUCTURE_KEYS)
+MODEL_KEYS: tuple[str, ...] = ("tpu", "likelihood", "sigma", "transition", "smooth_curvature", "electron",
+                               "temperature")
+#: [priors] keys: intercepts on the natural scale, then the scales of the other priors.
+PRIOR_INTERCEPT_KEYS: tuple[str, ...] = (*PARAMETERS, "tpu25", "jmax25_ratio", "rd25_ratio")
+PRIOR_SCALE_KEYS: tuple[str, ...] = ("slope_sd_log", "slope_sd_logit", "level_sd", "group_sd", "leaf_sd", "sigma_sd")
+PRIOR_KEYS: tuple[str, ...] = (*PRIOR_INTERCEPT_KEYS, *PRIOR_SCALE_KEYS, "nu")
+GRID_KEYS: tuple[str, ...] = ("name", "base", "leaf_effects", "choices")
 DATA_KEYS: tuple[str, ...] = ("file", "columns", "units", "leaf")
 UNITS_KEYS: tuple[str, ...] = ("ci", "pressure_kpa")
 CI_UNITS: tuple[str, ...] = ("umol/mol", "Pa")
@@ -49,7 +69,7 @@ LEAF_KEYS: tuple[str, ...] = ("groups", "traits", "centre", "scale")
 SAMPLER_KEYS: tuple[str, ...] = ("chains", "warmup", "draws", "seed", "adapt_delta", "max_treedepth")
 CV_KEYS: tuple[str, ...] = ("by", "method", "folds")
 CV_METHODS: tuple[str, ...] = ("auto", "exact", "kfold")
-PARAM_KEYS: tuple[str, ...] = ("fixed", "random", "ratio_to", "centring")
+PARAM_KEYS: tuple[str, ...] = ("fixed", "random", "ratio_to", "centring", "slopes", "split")
 #: The term naming the leaf id in ``random`` (and the default ``cv.by``).
 LEAF_TERM = "leaf"
 #: The only parameter jmax25 and rd25 can be tied to.
@@ -128,8 +148,36 @@ def check_against_data(comparison: Comparison, dataset: Dataset) -> list[str]:
                     message = _term_data_problem(term, kind, term in traits, leaves)
                     if message:
                         problems.append(f"structure {structure.name!r}, {pname}.{kind}: {message}")
+            for kind, pairs in (("slopes", spec.slopes), ("split", spec.split)):
+                for trait, group in pairs:
+                    where = f"structure {structure.name!r}, {pname}.{kind}.{trait}"
+                    message = _term_data_problem(group, "random", False, leaves) or _trait_data_problem(trait, leaves)
+                    if message:
+                        problems.append(f"{where}: {message}")
+                    elif kind == "split":
+                        problems += [f"{where}: {m}" for m in _split_data_problems(trait, group, leaves)]
+        if structure.options.sigma_by_curve and dataset.obs["curve_type"].nunique() < 2:
+            problems.append(f"structure {structure.name!r}: model.sigma = \"by_curve\" does not apply: the data have "
+                            f"one curve type only ({dataset.obs['curve_type'].iloc[0]}); use sigma = \"shared\"")
     problems.extend(_cv_data_problems(comparison.cv, leaves))
     return problems
+
+
+def _split_data_problems(trait: str, group: str, leaves: pd.DataFrame) -> list[str]:
+    """A within/between split needs groups of 2+ leaves whose trait varies, and 2+ group means."""
+    x = pd.to_numeric(leaves[trait], errors="coerce")
+    by = leaves[group].astype(str)
+    sizes = by.value_counts()
+    out = []
+    if (sizes < 2).all():
+        out.append(f"every level of {group!r} has one leaf, so there is no within-{group} variation of {trait!r}; "
+                   f"split by a grouping with several leaves per level, or use {trait!r} in fixed")
+    elif float((x - x.groupby(by).transform("mean")).abs().max()) == 0:
+        out.append(f"{trait!r} does not vary within any level of {group!r}; its within-{group} slope cannot be "
+                   f"estimated — use {trait!r} in fixed")
+    elif x.groupby(by).mean().nunique() < 2:
+        out.append(f"the {group} means of {trait!r} are all equal; its between-{group} slope cannot be estimated")
+    return out
 
 
 def describe(comparison: Comparison) -> str:
@@ -148,10 +196,43 @@ def describe(comparison: Comparison) -> str:
     """
     lines = _describe_header(comparison)
     for structure in comparison.structures:
-        lines.append(f"structure {structure.name!r}")
+        lines.append(f"structure {structure.name!r}" + (f"  [{structure.origin}]" if structure.origin else ""))
         for pname in PARAMETERS:
             lines.append(f"  {describe_param(pname, structure.params[pname])}")
+        if structure.options.tpu:
+            lines.append("  tpu25: log link; shared by all leaves (TPU limitation on)")
+        if structure.leaf_correlation:
+            leaf = [p for p in PARAMETERS if LEAF_TERM in structure.params[p].random]
+            lines.append(f"  leaf effects on {', '.join(leaf)} correlated (LKJ({structure.lkj_eta:g}) prior)")
+        lines.append(f"  model: {describe_options(structure.options)}")
+        if structure.priors is not None:
+            changed = _changed_priors(structure.priors)
+            if changed:
+                lines.append(f"  priors changed from the defaults: {', '.join(changed)}")
     return "\n".join(lines)
+
+
+def describe_options(options: ModelOptions) -> str:
+    """The model options in words, e.g. ``hard minimum, 4/8 electrons, Arrhenius, normal likelihood``."""
+    parts = ["hard minimum" if options.transition == "min" else f"smooth co-limitation (curvature {options.smooth_curvature:g})",
+             f"{options.electron.replace('-', '/')} electrons per CO2",
+             "peaked Arrhenius for Vcmax and Jmax" if options.peaked else "Arrhenius",
+             "Student-t likelihood" if options.student_t else "normal likelihood",
+             "one residual SD per curve type" if options.sigma_by_curve else "one residual SD"]
+    if options.tpu:
+        parts.append("TPU limitation")
+    return ", ".join(parts)
+
+
+def _changed_priors(priors) -> list[str]:
+    from .priors import PriorSet
+
+    default = PriorSet()
+    out = [p for p in priors.intercepts if priors.intercepts[p] != default.intercepts.get(p)]
+    out += [f"{p}_ratio" for p in priors.ratio_intercepts if priors.ratio_intercepts[p] != default.ratio_intercepts.get(p)]
+    out += [k for k in ("slope_sd_log", "slope_sd_logit", "level_sd", "group_sd_scale", "leaf_sd_scale", "sigma_scale",
+                        "nu_shape", "nu_rate") if getattr(priors, k) != getattr(default, k)]
+    return out
 
 
 def describe_param(pname: str, spec: ParamSpec) -> str:
@@ -175,13 +256,17 @@ def describe_param(pname: str, spec: ParamSpec) -> str:
     else:
         head = f"{pname}: {LINKS[pname]} link"
         separator = "; "
-    if not spec.fixed and not spec.random:
+    if not spec.fixed and not spec.random and not spec.split:
         return f"{head}{separator}shared by all leaves"
     parts = ["intercept"]
     if spec.fixed:
         parts.append("fixed " + ", ".join(spec.fixed))
+    if spec.split:
+        parts.append("split " + ", ".join(f"{t} within/between {g}" for t, g in spec.split))
     if spec.random:
         parts.append("random " + ", ".join(spec.random))
+    if spec.slopes:
+        parts.append("random slopes " + ", ".join(f"{t} by {g}" for t, g in spec.slopes))
     text = f"{head}; " + " + ".join(parts)
     if spec.centring:
         chosen = ", ".join(f"{group} {choice}" for group, choice in spec.centring.items())
@@ -383,7 +468,17 @@ def _parse_comparison(raw: dict[str, Any], path: Path, problems: Problems) -> Co
     groups = data.groups if data else ()
     traits = data.traits if data else ()
     cv = _parse_cv(raw.get("cv", {}), groups, traits, problems)
-    structures = _parse_structures(raw.get("structure"), groups, traits, problems)
+    model = _parse_model(raw.get("model", {}), "model", ModelOptions(), problems)
+    priors = _parse_priors(raw.get("priors", {}), "priors", None, problems)
+    items = raw.get("structure")
+    if items is None and "grid" not in raw:
+        problems.append("no [[structure]] or [[grid]] found; add at least one [[structure]] with a name")
+        items = []
+    items = [] if items is None else items
+    structures = _parse_structures(items, groups, traits, problems, model, priors)
+    if "grid" in raw:
+        taken = {s.name.lower() for s in structures}
+        structures += _parse_grids(raw["grid"], groups, traits, problems, model, priors, taken)
     if problems or data is None or fmt is None:
         return None
     return Comparison(
@@ -397,7 +492,7 @@ def _parse_comparison(raw: dict[str, Any], path: Path, problems: Problems) -> Co
 
 
 def _parse_format(raw: dict[str, Any], problems: Problems) -> int | None:
-    """``format`` must be present and equal to 1."""
+    """``format`` must be present and one of SUPPORTED_FORMATS; format 1 may not use format-2 keys."""
     if "format" not in raw:
         problems.append(f"format is missing; add `format = {FORMAT_VERSION}` at the top of the file")
         return None
@@ -405,12 +500,23 @@ def _parse_format(raw: dict[str, Any], problems: Problems) -> int | None:
     if not _is_int(value):
         problems.append(f"format: expected the integer {FORMAT_VERSION}, got {_show(value)}")
         return None
-    if value != FORMAT_VERSION:
+    if value not in SUPPORTED_FORMATS:
         problems.append(
-            f"format = {value} is not supported; this version of leafcv reads format {FORMAT_VERSION} "
-            f"(set `format = {FORMAT_VERSION}` and use only format-{FORMAT_VERSION} keys, or update leafcv)"
+            f"format = {value} is not supported; this version of leafcv reads formats "
+            f"{', '.join(map(str, SUPPORTED_FORMATS))} (set `format = {FORMAT_VERSION}`, or update leafcv)"
         )
         return None
+    if value == 1:
+        used = [k for k in FORMAT2_TOP_KEYS if k in raw]
+        items = raw.get("structure") if isinstance(raw.get("structure"), list) else []
+        for item in items:
+            if isinstance(item, dict):
+                used += [f"structure {item.get('name', '?')!r}: {k}" for k in FORMAT2_STRUCTURE_KEYS if k in item]
+                used += [f"structure {item.get('name', '?')!r}, {p}.{k}" for p in PARAMETERS
+                         if isinstance(item.get(p), dict) for k in FORMAT2_PARAM_KEYS if k in item[p]]
+        if used:
+            problems.append("format 1 has no " + "; ".join(used) + "; set `format = 2` to use them")
+            return None
     return value
 
 
@@ -646,7 +752,8 @@ def _parse_cv_by(value: Any, groups: Sequence[str], traits: Sequence[str], probl
 
 
 def _parse_structures(
-    value: Any, groups: Sequence[str], traits: Sequence[str], problems: Problems
+    value: Any, groups: Sequence[str], traits: Sequence[str], problems: Problems,
+    model: ModelOptions = ModelOptions(), priors=None,
 ) -> list[Structure]:
     """Every [[structure]], in file order, with unique file-safe names."""
     if value is None:
@@ -658,8 +765,6 @@ def _parse_structures(
     if not isinstance(value, list):
         problems.append(f"structure: expected [[structure]] tables, got {_show(value)}")
         return []
-    if not value:
-        problems.append("no [[structure]] found; add at least one [[structure]] with a name")
     structures: list[Structure] = []
     names: dict[str, int] = {}
     for number, item in enumerate(value, start=1):
@@ -668,10 +773,38 @@ def _parse_structures(
             continue
         name = _parse_structure_name(item, number, names, problems)
         label = f"structure {name!r}" if name is not None else f"structure #{number}"
-        params = _parse_structure_params(item, label, groups, traits, problems)
-        if name is not None:
-            structures.append(Structure(name=name, params=params))
+        structure = _parse_structure_body(item, name, label, groups, traits, problems, model, priors)
+        if structure is not None:
+            structures.append(structure)
     return structures
+
+
+def _parse_structure_body(item: dict[str, Any], name: str | None, label: str, groups, traits,
+                          problems: Problems, model: ModelOptions, priors, origin: str = "") -> Structure | None:
+    """Parameters, model options, priors and leaf correlation of one structure (written or expanded)."""
+    params = _parse_structure_params(item, label, groups, traits, problems)
+    options = _parse_model(item.get("model", {}), f"{label}: model", model, problems)
+    structure_priors = _parse_priors(item.get("priors", {}), f"{label}: priors", priors, problems)
+    corr = item.get("leaf_correlation", False)
+    if not isinstance(corr, bool):
+        problems.append(f"{label}: leaf_correlation: expected true or false, got {_show(corr)}")
+        corr = False
+    leaf_params = [p for p in PARAMETERS if LEAF_TERM in params[p].random]
+    if corr and len(leaf_params) < 2:
+        problems.append(f"{label}: leaf_correlation applies only with leaf effects on two or more parameters "
+                        f"(leaf effects here: {', '.join(leaf_params) or 'none'}); add random = [\"leaf\"] to "
+                        "another parameter or remove leaf_correlation")
+    lkj = 2.0
+    if "lkj_eta" in item:
+        if not corr:
+            problems.append(f"{label}: lkj_eta applies only with leaf_correlation = true; remove it or switch the "
+                            "correlation on")
+        value = _number_value(item["lkj_eta"], f"{label}: lkj_eta", problems, lambda x: x > 0, "a number > 0")
+        lkj = float(value) if value is not None else lkj
+    if name is None:
+        return None
+    return Structure(name=name, params=params, options=options, priors=structure_priors,
+                     leaf_correlation=corr, lkj_eta=lkj, origin=origin)
 
 
 def _parse_structure_name(
@@ -735,9 +868,13 @@ def _parse_structure_params(
 ) -> dict[str, ParamSpec]:
     """Every parameter of one structure; an unnamed parameter is shared by all leaves."""
     for key in item:
-        if key != "name" and key not in PARAMETERS:
+        if key not in STRUCTURE_KEYS and key not in PARAMETERS:
+            if key == "tpu25":
+                problems.append(f"{label}: tpu25 cannot vary by structure terms in this version; it is one value "
+                                "shared by all leaves when [model] tpu = true")
+                continue
             message = _unknown("parameter", key, PARAMETERS, "parameters")
-            problems.append(f"{label}: {message} (and 'name')")
+            problems.append(f"{label}: {message} (and {', '.join(repr(k) for k in STRUCTURE_KEYS)})")
     return {
         pname: _parse_param(item[pname], label, pname, groups, traits, problems)
         if pname in item else ParamSpec()
@@ -761,8 +898,232 @@ def _parse_param(
         if term in random:
             problems.append(f"{where}: {term!r} is both fixed and random; choose one")
     ratio_to = _parse_ratio_to(value, where, pname, problems)
-    centring = _parse_centring(value.get("centring", {}), f"{where}.centring", pname, random_as_written, problems)
-    return ParamSpec(fixed=tuple(fixed), random=tuple(random), ratio_to=ratio_to, centring=centring)
+    slopes = _parse_trait_by_group(value.get("slopes", {}), f"{where}.slopes", groups, traits, problems)
+    split = _parse_trait_by_group(value.get("split", {}), f"{where}.split", groups, traits, problems)
+    for trait, group in slopes:
+        if trait not in fixed:
+            problems.append(f"{where}.slopes: the {group}-specific slopes on {trait!r} vary around a mean slope; "
+                            f"add {trait!r} to {pname}.fixed too")
+    split_traits = [t for t, _ in split]
+    for trait in split_traits:
+        if trait in fixed:
+            problems.append(f"{where}: {trait!r} is both in fixed and in split; split already estimates its "
+                            "within- and between-group slopes — remove it from fixed")
+        if split_traits.count(trait) > 1:
+            problems.append(f"{where}.split: {trait!r} is split by more than one grouping; choose one")
+            break
+    for trait, group in slopes:
+        if trait in split_traits:
+            problems.append(f"{where}: {trait!r} is in both slopes and split; choose one")
+    random_terms = list(random_as_written) + [f"{t}|{g}" for t, g in slopes]
+    centring = _parse_centring(value.get("centring", {}), f"{where}.centring", pname, random_terms, problems)
+    return ParamSpec(fixed=tuple(fixed), random=tuple(random), ratio_to=ratio_to, centring=centring,
+                     slopes=tuple(slopes), split=tuple(split))
+
+
+def _parse_trait_by_group(value: Any, where: str, groups: Sequence[str], traits: Sequence[str],
+                          problems: Problems) -> list[tuple[str, str]]:
+    """``{ trait = "grouping" }`` or ``{ trait = ["grouping", ...] }`` -> [(trait, grouping), ...]."""
+    table = _table(value, where, problems)
+    out: list[tuple[str, str]] = []
+    for trait, target in table.items():
+        if trait not in traits:
+            if trait in groups or trait == LEAF_TERM:
+                problems.append(f"{where}: {trait!r} is a grouping; the keys here are traits ({', '.join(traits) or 'none declared'})")
+            else:
+                problems.append(f"{where}: " + _unknown("trait", trait, traits, "traits"))
+            continue
+        for group in ([target] if isinstance(target, str) else _str_list(target, f"{where}.{trait}", problems)):
+            if group == LEAF_TERM:
+                problems.append(f"{where}.{trait}: a trait is one value per leaf, so a leaf-specific slope on it cannot be "
+                                f"estimated; use a grouping of leaves ({', '.join(groups) or 'none declared'})")
+            elif group not in groups:
+                problems.append(f"{where}.{trait}: " + _unknown("grouping", group, groups, "groupings"))
+            elif (trait, group) in out:
+                problems.append(f"{where}.{trait}: {group!r} is listed twice")
+            else:
+                out.append((trait, group))
+    return out
+
+
+# ----------------------------------------------------------------------------------------------
+# [model] and [priors] (comparison-wide, and per structure as overrides)
+# ----------------------------------------------------------------------------------------------
+
+
+def _parse_model(value: Any, where: str, base: ModelOptions, problems: Problems) -> ModelOptions:
+    """[model] keys over ``base``; a structure's model table overrides the comparison's."""
+    table = _table(value, where, problems)
+    _check_keys(table, MODEL_KEYS, where, problems)
+    out: dict[str, Any] = {}
+    if "tpu" in table:
+        if isinstance(table["tpu"], bool):
+            out["tpu"] = table["tpu"]
+        else:
+            problems.append(f"{where}.tpu: expected true or false, got {_show(table['tpu'])}")
+    pairs = (("likelihood", LIKELIHOOD_CHOICES, "student_t", lambda v: v == "student_t"),
+             ("sigma", SIGMA_CHOICES, "sigma_by_curve", lambda v: v == "by_curve"),
+             ("transition", TRANSITION_CHOICES, "transition", lambda v: v),
+             ("electron", ELECTRON_CHOICES, "electron", lambda v: v),
+             ("temperature", TEMPERATURE_CHOICES, "peaked", lambda v: v == "peaked"))
+    for key, choices, field_name, convert in pairs:
+        if key in table:
+            chosen = _choice(table[key], f"{where}.{key}", choices, "choice", problems)
+            if chosen is not None:
+                out[field_name] = convert(chosen)
+    options = replace(base, **out)
+    if "smooth_curvature" in table:
+        if options.transition != "smooth":
+            problems.append(f"{where}.smooth_curvature applies only with transition = \"smooth\"; remove it or set "
+                            "the transition")
+        c = _number_value(table["smooth_curvature"], f"{where}.smooth_curvature", problems,
+                          lambda x: 0 < x < 1, "a number strictly between 0 and 1")
+        if c is not None:
+            options = replace(options, smooth_curvature=float(c))
+    return options
+
+
+def _parse_priors(value: Any, where: str, base, problems: Problems):
+    """[priors] over ``base`` (None: leafcv's defaults); returns a PriorSet, or ``base`` when empty."""
+    from .priors import PriorSet, prior_from_natural
+
+    table = _table(value, where, problems)
+    _check_keys(table, PRIOR_KEYS, where, problems)
+    if not table:
+        return base
+    out = base if base is not None else PriorSet()
+    intercepts, ratios = dict(out.intercepts), dict(out.ratio_intercepts)
+    scales: dict[str, float] = {}
+    for key in PRIOR_INTERCEPT_KEYS:
+        if key not in table:
+            continue
+        pname = key.removesuffix("_ratio")
+        link = "log" if key.endswith("_ratio") else LINKS.get(pname, "log")
+        prior, message = prior_from_natural(table[key], link)
+        if message:
+            problems.append(f"{where}.{key}: {message}")
+        elif key.endswith("_ratio"):
+            ratios[pname] = prior
+        else:
+            intercepts[pname] = prior
+    names = {"slope_sd_log": "slope_sd_log", "slope_sd_logit": "slope_sd_logit", "level_sd": "level_sd",
+             "group_sd": "group_sd_scale", "leaf_sd": "leaf_sd_scale", "sigma_sd": "sigma_scale"}
+    for key, attr in names.items():
+        if key in table:
+            v = _number_value(table[key], f"{where}.{key}", problems, lambda x: x > 0, "a number > 0")
+            if v is not None:
+                scales[attr] = float(v)
+    if "nu" in table:
+        nu = table["nu"]
+        if (isinstance(nu, list) and len(nu) == 2 and all(_is_number(x) and x > 0 for x in nu)):
+            scales["nu_shape"], scales["nu_rate"] = float(nu[0]), float(nu[1])
+        else:
+            problems.append(f"{where}.nu: expected [shape, rate] of the gamma prior of the Student-t degrees of "
+                            f"freedom, two numbers > 0, got {_show(nu)}")
+    return replace(out, intercepts=intercepts, ratio_intercepts=ratios, **scales)
+
+
+# ----------------------------------------------------------------------------------------------
+# [[grid]]: combinations expanded into named structures
+# ----------------------------------------------------------------------------------------------
+
+
+def _parse_grids(value: Any, groups, traits, problems: Problems, model: ModelOptions, priors,
+                 taken: set[str]) -> list[Structure]:
+    """Every [[grid]] expanded, in file order, into structures named
+    ``<grid name>.leaf-<params joined by _ or none>.<axis>-<choice>...`` (leaf_effects first, then the
+    choice axes in file order)."""
+    if isinstance(value, dict):
+        value = [value]
+    if not isinstance(value, list):
+        problems.append(f"grid: expected [[grid]] tables, got {_show(value)}")
+        return []
+    out: list[Structure] = []
+    for number, grid in enumerate(value, start=1):
+        where = f"grid #{number}"
+        if not isinstance(grid, dict):
+            problems.append(f"{where}: expected a table, got {_show(grid)}")
+            continue
+        _check_keys(grid, GRID_KEYS, where, problems)
+        gname = grid.get("name")
+        if not isinstance(gname, str) or not gname or not _NAME_RE.fullmatch(gname):
+            problems.append(f"{where}: name: expected a short name of letters, digits, '-', '_', '.' "
+                            f"(it starts every expanded structure's name), got {_show(gname)}")
+            continue
+        where = f"grid {gname!r}"
+        base = _table(grid.get("base", {}), f"{where}.base", problems)
+        if "name" in base:
+            problems.append(f"{where}.base: name is not allowed here; the names are made by the grid")
+        axes: list[tuple[str, list[tuple[str, dict]]]] = []
+        if "leaf_effects" in grid:
+            lp = _str_list(grid["leaf_effects"], f"{where}.leaf_effects", problems)
+            bad = [p for p in lp if p not in PARAMETERS]
+            for p in bad:
+                problems.append(f"{where}.leaf_effects: " + _unknown("parameter", p, PARAMETERS, "parameters"))
+            lp = [p for p in PARAMETERS if p in lp]
+            subsets = [c for n in range(len(lp) + 1) for c in _combinations(lp, n)]
+            axes.append(("leaf", [("_".join(c) or "none", {p: {"random": [LEAF_TERM]} for p in c}) for c in subsets]))
+        for axis, choices in _table(grid.get("choices", {}), f"{where}.choices", problems).items():
+            if not _NAME_RE.fullmatch(axis):
+                problems.append(f"{where}.choices: axis name {axis!r} may only contain letters, digits, '-', '_', '.'")
+                continue
+            table = _table(choices, f"{where}.choices.{axis}", problems)
+            if not table:
+                problems.append(f"{where}.choices.{axis}: no choices; give at least one, e.g. none = {{}}")
+                continue
+            opts = []
+            for cname, body in table.items():
+                if not _NAME_RE.fullmatch(cname):
+                    problems.append(f"{where}.choices.{axis}: choice name {cname!r} may only contain letters, digits, "
+                                    "'-', '_', '.'")
+                elif isinstance(body, dict):
+                    opts.append((cname, body))
+                else:
+                    problems.append(f"{where}.choices.{axis}.{cname}: expected a table of structure keys, got {_show(body)}")
+            axes.append((axis, opts))
+        if not axes:
+            problems.append(f"{where}: nothing to expand; add leaf_effects = [...] or [grid.choices.<axis>]")
+            continue
+        import itertools
+
+        for combo in itertools.product(*[opts for _, opts in axes]):
+            name = ".".join([gname] + [f"{axis}-{cname}" for (axis, _), (cname, _) in zip(axes, combo)])
+            origin = f"grid {gname!r}: " + ", ".join(f"{axis}={cname}" for (axis, _), (cname, _) in zip(axes, combo))
+            label = f"structure {name!r} ({origin})"
+            item = base
+            for (axis, _), (cname, body) in zip(axes, combo):
+                item = _merge_structure(item, body, f"{where}, {axis}={cname}", problems)
+            if name.lower() in taken:
+                problems.append(f"{label}: the name is already used by another structure; rename the grid or that structure")
+                continue
+            taken.add(name.lower())
+            st = _parse_structure_body(item, name, label, groups, traits, problems, model, priors, origin)
+            if st is not None:
+                out.append(st)
+    return out
+
+
+def _combinations(items: list[str], n: int):
+    import itertools
+
+    return list(itertools.combinations(items, n))
+
+
+def _merge_structure(a: dict, b: dict, where: str, problems: Problems) -> dict:
+    """Merge partial structures: lists are joined (no repeats), tables merged key by key, and a scalar
+    given twice with different values is a conflict."""
+    out = dict(a)
+    for key, value in b.items():
+        if key not in out:
+            out[key] = value
+        elif isinstance(out[key], dict) and isinstance(value, dict):
+            out[key] = _merge_structure(out[key], value, f"{where}, {key}", problems)
+        elif isinstance(out[key], list) and isinstance(value, list):
+            out[key] = out[key] + [v for v in value if v not in out[key]]
+        elif out[key] != value:
+            problems.append(f"{where}: {key} is set to {_show(out[key])} and to {_show(value)}; a grid may "
+                            "add to a structure but not change what the base or another axis set")
+    return out
 
 
 def _parse_fixed(
@@ -795,8 +1156,8 @@ def _filter_random(
             kept.append(term)
         elif term in traits:
             problems.append(
-                f"{where}: {term!r} is a trait; random slopes are not in format 1 "
-                "(put it in fixed for one slope shared by all leaves)"
+                f"{where}: {term!r} is a trait; random lists groupings. For one slope shared by all leaves put it "
+                f"in fixed; for slopes that differ by a grouping add slopes = {{ {term} = \"<grouping>\" }} (format 2)"
             )
         else:
             problems.append(f"{where}: " + _unknown("grouping", term, valid, "groupings"))

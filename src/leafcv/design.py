@@ -6,7 +6,7 @@ term, centring choice and prior, so results can be reported by meaning.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -14,7 +14,7 @@ from . import fvcb
 from .data.dataset import Dataset
 from .errors import SpecError
 from .priors import PriorSet
-from .spec import LINKS, PARAMETERS, DataSpec, Structure
+from .spec import LINKS, PARAMETERS, DataSpec, ModelOptions, Structure
 
 #: Fewest training points a leaf needs for its effects to be centred (common practice, no source:
 #: a leaf informed by whole curves pins its own parameters; see DESIGN.md for the measured gain).
@@ -28,25 +28,13 @@ MIN_LEAVES_CENTRED_GROUP = 20
 
 
 @dataclass(frozen=True)
-class ModelOptions:
-    """FvCB options of a comparison (the defaults follow DESIGN.md)."""
-
-    electron: str = "4-8"
-    transition: str = "min"
-    smooth_curvature: float = 0.99
-    tpu: bool = False
-    student_t: bool = False
-    sigma_by_curve: bool = False
-    peaked: bool = False
-
-
-@dataclass(frozen=True)
 class Coefficient:
     param: str
     term: str          # trait or group column
-    label: str         # e.g. "leaf_n" or "month=2026-07"
-    kind: str          # "trait" or "level"
+    label: str         # e.g. "leaf_n", "month=2026-07", "leaf_n within species"
+    kind: str          # "trait", "level", "within" or "between"
     prior_sd: float
+    group: str = ""    # the grouping of a within/between split
 
 
 @dataclass(frozen=True)
@@ -57,6 +45,12 @@ class GroupTerm:
     start: int         # 0-based offset of its first level in the stacked level vector
     centred: tuple[bool, ...]
     reason: str
+    slope_of: str | None = None   # a random slope of this trait (None: a random intercept)
+
+    @property
+    def label(self) -> str:
+        return f"{self.grouping}-specific slopes of {self.param} on {self.slope_of}" if self.slope_of \
+            else f"{self.grouping} effects on {self.param}"
 
 
 @dataclass(frozen=True)
@@ -102,8 +96,8 @@ def build_design(
     structure: Structure,
     dataset: Dataset,
     spec: DataSpec,
-    options: ModelOptions = ModelOptions(),
-    priors: PriorSet = PriorSet(),
+    options: ModelOptions | None = None,
+    priors: PriorSet | None = None,
     train_leaves: np.ndarray | None = None,
     leaf_fits=None,
 ) -> Design:
@@ -121,6 +115,8 @@ def build_design(
         fits (the data then inform the leaf more than the population does). Without them, leaves
         with at least MIN_POINTS_CENTRED_LEAF points are centred.
     """
+    options = structure.options if options is None else options
+    priors = structure.prior_set() if priors is None else priors
     leaves = dataset.leaves
     L = len(leaves)
     train = np.ones(L, bool) if train_leaves is None else np.asarray(train_leaves, bool)
@@ -144,7 +140,8 @@ def build_design(
     group_terms: list[GroupTerm] = []
     re_par, re_lev, re_x, tau_sd, lev_term, lev_centred = [], [], [], [], [], []
     leaf_terms: list[LeafTerm] = []
-    cen_cell, cen_term, nc_cell, nc_term, leaf_tau_sd = [], [], [], [], []
+    leaf_cells: list[tuple[int, np.ndarray]] = []   # (parameter index, centred mask over leaves)
+    leaf_tau_sd: list[float] = []
     prior_lines: list[str] = []
 
     for pi, p in enumerate(params):
@@ -170,24 +167,35 @@ def build_design(
                     coefs.append(Coefficient(p, term, f"{term}={lev}", "level", priors.level_sd))
                     fixed_map.append(np.eye(P)[pi])
                 prior_lines.append(f"{p} {term} levels vs reference {levels[0]!r}: normal(0, {priors.level_sd:g}) on the {link} scale")
-        for grouping in random:
-            choice = centring.get(grouping, "auto")
-            if grouping == "leaf":
-                rl = len(leaf_tau_sd) + 1
-                leaf_tau_sd.append(priors.leaf_sd_scale)
-                informed, rule = _informed_leaves(p, ratio[p], leaf_fits, points_per_leaf, train)
-                centred = informed if choice == "auto" else (np.full(L, choice == "centred") & train)
-                cells = np.arange(L) + pi * L
-                cen_cell += list(cells[centred] + 1)
-                cen_term += [rl] * int(centred.sum())
-                nc_cell += list(cells[~centred] + 1)
-                nc_term += [rl] * int((~centred).sum())
-                reason = f"{choice}: chosen by the user" if choice != "auto" else f"auto: {rule}"
-                if (~train).any():
-                    reason += "; held-out leaves non-centred"
-                leaf_terms.append(LeafTerm(p, int(centred.sum()), int((~centred).sum()), reason))
-                prior_lines.append(f"SD of leaf effects on {p}: half-normal(0, {priors.leaf_sd_scale:g}) on the {link} scale")
-                continue
+        for trait, grouping in (ps.split if ps else ()):
+            # group-mean centring (e.g. Enders & Tofighi 2007, from memory): the within slope acts on
+            # the leaf's deviation from its group's mean, the between slope on the group mean itself
+            c, sc = transforms[trait]
+            x = leaves[trait].to_numpy(float)
+            gmean = leaves.groupby(leaves[grouping].astype(str))[trait].transform("mean").to_numpy(float)
+            sd = priors.slope_sd(link)
+            for kind, col in (("within", (x - gmean) / sc), ("between", (gmean - c) / sc)):
+                columns.append(col)
+                coefs.append(Coefficient(p, trait, f"{trait} {kind} {grouping}", kind, sd, grouping))
+                fixed_map.append(np.eye(P)[pi])
+            prior_lines.append(f"{p} slopes on {trait} within and between {grouping} (per {sc:g} units): "
+                               f"normal(0, {sd:g}) each on the {link} scale")
+        group_specs = [(g, None) for g in random if g != "leaf"] + [(g, t) for t, g in (ps.slopes if ps else ())]
+        if "leaf" in random:
+            choice = centring.get("leaf", "auto")
+            leaf_tau_sd.append(priors.leaf_sd_scale)
+            informed, rule = _informed_leaves(p, ratio[p], leaf_fits, points_per_leaf, train)
+            centred = informed if choice == "auto" else (np.full(L, choice == "centred") & train)
+            reason = f"{choice}: chosen by the user" if choice != "auto" else f"auto: {rule}"
+            if (~train).any():
+                reason += "; held-out leaves non-centred"
+            if structure.leaf_correlation:
+                reason += "; correlated effects: a leaf is centred only where all its effects are"
+            leaf_cells.append((pi, centred))
+            leaf_terms.append(LeafTerm(p, int(centred.sum()), int((~centred).sum()), reason))
+            prior_lines.append(f"SD of leaf effects on {p}: half-normal(0, {priors.leaf_sd_scale:g}) on the {link} scale")
+        for grouping, slope_of in group_specs:
+            choice = centring.get(grouping if slope_of is None else f"{slope_of}|{grouping}", "auto")
             levels = _levels(leaves[grouping])
             lev_of_leaf = np.searchsorted(levels, leaves[grouping].astype(str).to_numpy())
             leaves_per_level = np.bincount(lev_of_leaf[train], minlength=len(levels))
@@ -206,18 +214,29 @@ def build_design(
             start = len(lev_term)
             re_par.append(pi + 1)
             re_lev.append(start + lev_of_leaf + 1)
-            re_x.append(np.ones(L))
+            if slope_of is None:
+                re_x.append(np.ones(L))
+            else:
+                c, sc = transforms[slope_of]
+                re_x.append((leaves[slope_of].to_numpy(float) - c) / sc)
             tau_sd.append(priors.group_sd_scale)
             lev_term += [r + 1] * len(levels)
             lev_centred += list(cen)
-            group_terms.append(GroupTerm(p, grouping, levels, start, tuple(bool(c) for c in cen), reason))
-            prior_lines.append(f"SD of {grouping} effects on {p}: half-normal(0, {priors.group_sd_scale:g}) on the {link} scale")
+            gt = GroupTerm(p, grouping, levels, start, tuple(bool(c) for c in cen), reason, slope_of)
+            group_terms.append(gt)
+            prior_lines.append(f"SD of {gt.label}: half-normal(0, {priors.group_sd_scale:g}) on the {link} scale"
+                               + (f" (per {transforms[slope_of][1]:g} units)" if slope_of else ""))
     prior_lines.append(f"residual SD: half-normal(0, {priors.sigma_scale:g}) umol m-2 s-1")
     if options.student_t:
         prior_lines.append(f"Student-t degrees of freedom: gamma({priors.nu_shape:g}, {priors.nu_rate:g}), > 1")
 
     K = len(columns)
     X = np.column_stack(columns) if K else np.zeros((L, 0))
+    _check_fixed_columns(structure.name, params, X, fixed_map, coefs)
+    cen_cell, cen_term, nc_cell, nc_term = _leaf_cells(structure, params, leaf_cells, L)
+    if structure.leaf_correlation:
+        n_cen = len(cen_cell) // len(leaf_cells)
+        leaf_terms = [replace(lt, centred_leaves=n_cen, noncentred_leaves=L - n_cen) for lt in leaf_terms]
     lev_centred_a = np.asarray(lev_centred, bool)
     ip = [priors.intercept(p, ratio[p]) for p in params]
     curve_types = fit_obs["curve_type"].to_numpy()
@@ -254,11 +273,68 @@ def build_design(
         "Rl": len(leaf_tau_sd), "leaf_tau_sd": np.array(leaf_tau_sd),
         "Mc": len(cen_cell), "cen_cell": cen_cell, "cen_term": cen_term,
         "Mn": len(nc_cell), "nc_cell": nc_cell, "nc_term": nc_term,
+        "leaf_corr": int(structure.leaf_correlation), "lkj_eta": float(structure.lkj_eta),
         "sigma_sd": priors.sigma_scale, "nu_shape": priors.nu_shape, "nu_rate": priors.nu_rate,
     }
+    if structure.leaf_correlation:
+        prior_lines.append(f"correlation of leaf effects on {', '.join(lt.param for lt in leaf_terms)}: "
+                           f"LKJ({structure.lkj_eta:g}) (Lewandowski, Kurowicka & Joe 2009)")
     return Design(structure, data, params, ratio, tuple(coefs), tuple(group_terms), tuple(leaf_terms),
                   transforms, tuple(prior_lines), train, obs_index,
                   np.asarray(cen_cell, int) - 1, np.asarray(nc_cell, int) - 1, options)
+
+
+def _leaf_cells(structure: Structure, params, leaf_cells: list[tuple[int, np.ndarray]], L: int):
+    """Centred and non-centred cells (1-based, flattened l + p L) and their leaf-term numbers.
+
+    Uncorrelated effects: per (leaf, parameter) cell, parameter by parameter. Correlated effects (LKJ):
+    leaf by leaf, Rl consecutive cells each in term order, a leaf wholly centred only when all its
+    cells would be, so that its vector of effects has one joint normal prior.
+    """
+    cen_cell, cen_term, nc_cell, nc_term = [], [], [], []
+    if structure.leaf_correlation:
+        if len(leaf_cells) < 2:
+            have = ", ".join(params[pi] for pi, _ in leaf_cells) or "none"
+            raise SpecError(structure.name, [f"leaf_correlation applies only with leaf effects on two or more parameters "
+                                             f"(this structure has leaf effects on: {have}); add random = [\"leaf\"] to "
+                                             f"another parameter or drop leaf_correlation"])
+        all_centred = np.all([c for _, c in leaf_cells], axis=0)
+        for l in range(L):
+            for k, (pi, _) in enumerate(leaf_cells):
+                (cen_cell if all_centred[l] else nc_cell).append(l + pi * L + 1)
+                (cen_term if all_centred[l] else nc_term).append(k + 1)
+        return cen_cell, cen_term, nc_cell, nc_term
+    for k, (pi, centred) in enumerate(leaf_cells):
+        cells = np.arange(L) + pi * L
+        cen_cell += list(cells[centred] + 1)
+        cen_term += [k + 1] * int(centred.sum())
+        nc_cell += list(cells[~centred] + 1)
+        nc_term += [k + 1] * int((~centred).sum())
+    return cen_cell, cen_term, nc_cell, nc_term
+
+
+def _check_fixed_columns(name: str, params, X: np.ndarray, fixed_map: list, coefs: list[Coefficient]) -> None:
+    """Every parameter's fixed columns and its intercept must be linearly independent over the leaves."""
+    problems = []
+    for pi, p in enumerate(params):
+        idx = [k for k, row in enumerate(fixed_map) if row[pi] > 0]
+        basis = np.ones((X.shape[0], 1))
+        kept: list[int] = []
+        for k in idx:
+            col = X[:, k]
+            if np.ptp(col) == 0:
+                problems.append(f"{p}: term {coefs[k].label!r} does not vary across leaves (one value for every leaf), "
+                                f"so it cannot be told from the intercept; drop it")
+                continue
+            trial = np.column_stack([basis, col])
+            if np.linalg.matrix_rank(trial, tol=1e-8 * max(1.0, np.abs(trial).max())) < trial.shape[1]:
+                others = ", ".join(repr(coefs[j].label) for j in kept) or "nothing"
+                problems.append(f"{p}: fixed term {coefs[k].label!r} is perfectly collinear with the intercept and "
+                                f"{others}; drop one of them")
+                continue
+            basis, kept = trial, kept + [k]
+    if problems:
+        raise SpecError(name, problems)
 
 
 def _informed_leaves(param, ratio, leaf_fits, points_per_leaf, train) -> tuple[np.ndarray, str]:
@@ -288,6 +364,29 @@ def responses(options: ModelOptions) -> list[fvcb.TemperatureResponse]:
     return [v, j, fvcb.TemperatureResponse(fvcb.RD_HA), fvcb.TemperatureResponse(fvcb.TPU_HA)]
 
 
+def level_values(design: Design, draws: dict[str, np.ndarray]) -> np.ndarray:
+    """Effects of every level of every group term per draw, (S, Q), in the stacked level order."""
+    d = design.stan_data
+    u = np.zeros((draws["b0"].shape[0], d["Q"]))
+    if d["Q"]:
+        cen = np.asarray(d["cen_lev"], int) - 1
+        nc = np.asarray(d["nc_lev"], int) - 1
+        u[:, cen] = draws["u_c"]
+        u[:, nc] = draws["tau"][:, np.asarray(d["lev_term"])[nc] - 1] * draws["u_z"]
+    return u
+
+
+def heldout_levels(design: Design, leaf: int) -> list[tuple[int, int]]:
+    """(group term r, stacked level index) of every level of ``leaf`` that has no training leaf."""
+    d = design.stan_data
+    out = []
+    for r in range(d["R"]):
+        lev = np.asarray(d["re_lev"][r], int) - 1
+        if not design.train_leaves[lev == lev[leaf]].any():
+            out.append((r, int(lev[leaf])))
+    return out
+
+
 def leaf_link_values(design: Design, draws: dict[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
     """Population mean and actual link-scale values of every (leaf, parameter) cell, per draw.
 
@@ -300,22 +399,29 @@ def leaf_link_values(design: Design, draws: dict[str, np.ndarray]) -> tuple[np.n
     mu = np.repeat(draws["b0"][:, None, :], L, axis=1)
     if d["K"]:
         mu = mu + np.einsum("lk,sk,kp->slp", d["X"], draws["beta"], d["fixed_map"])
-    u = np.zeros((S, d["Q"]))
-    if d["Q"]:
-        cen = np.asarray(d["cen_lev"], int) - 1
-        nc = np.asarray(d["nc_lev"], int) - 1
-        u[:, cen] = draws["u_c"]
-        u[:, nc] = draws["tau"][:, np.asarray(d["lev_term"])[nc] - 1] * draws["u_z"]
+    u = level_values(design, draws)
     for r in range(d["R"]):
         mu[:, :, d["re_par"][r] - 1] += u[:, d["re_lev"][r] - 1] * d["re_x"][r]
     mu_flat = mu.transpose(0, 2, 1).reshape(S, L * P)   # column-major cells: l + p L
     eta_flat = mu_flat.copy()
     eta_flat[:, design.cen_cells] = draws["eta_c"]
-    if d["Mn"]:
+    if d["Mn"] and d.get("leaf_corr"):
+        chol = leaf_cov_chol(design, draws)                                   # (S, Rl, Rl)
+        z = draws["eta_z"].reshape(S, -1, d["Rl"])                            # leaf by leaf
+        eta_flat[:, design.nc_cells] = mu_flat[:, design.nc_cells] + np.einsum("sij,slj->sli", chol, z).reshape(S, -1)
+    elif d["Mn"]:
         eta_flat[:, design.nc_cells] = (mu_flat[:, design.nc_cells]
                                         + draws["tau_leaf"][:, np.asarray(d["nc_term"]) - 1] * draws["eta_z"])
     eta = eta_flat.reshape(S, P, L).transpose(0, 2, 1)
     return mu, eta
+
+
+def leaf_cov_chol(design: Design, draws: dict[str, np.ndarray]) -> np.ndarray:
+    """Cholesky factor of the covariance of one leaf's effects (leaf terms in order), per draw (S, Rl, Rl)."""
+    tau = draws["tau_leaf"]
+    if design.stan_data.get("leaf_corr"):
+        return tau[:, :, None] * draws["leaf_chol"][:, 0]
+    return np.einsum("ij,sj->sij", np.eye(tau.shape[1]), tau)
 
 
 def natural_values(design: Design, eta: np.ndarray) -> dict[str, np.ndarray]:

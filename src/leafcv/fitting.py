@@ -9,7 +9,8 @@ import pandas as pd
 from scipy.special import expit
 
 from .data.dataset import Dataset
-from .design import Design, ModelOptions, build_design
+from .design import Design, build_design
+from .spec import ModelOptions
 from .diagnostics import Diagnostics, chain_arrays, diagnose
 from .engines.base import Draws, Engine
 from .engines.program import program_text
@@ -18,7 +19,35 @@ from .priors import PriorSet
 from .spec import LINKS, DataSpec, SamplerSpec, Structure
 
 #: Population-level parameters of the generic program (diagnostics and summaries run over these).
-POPULATION = ("b0", "beta", "tau", "tau_leaf", "sigma", "nu")
+POPULATION = ("b0", "beta", "tau", "tau_leaf", "sigma", "nu", "leaf_corr", "split_diff")
+
+
+def correlation_pairs(design: Design) -> list[tuple[int, int]]:
+    """(i, j), i < j, leaf-term pairs whose correlation is reported when leaf effects are correlated."""
+    n = len(design.leaf_terms) if design.stan_data.get("leaf_corr") else 0
+    return [(i, j) for i in range(n) for j in range(i + 1, n)]
+
+
+def split_pairs(design: Design) -> list[tuple[int, int]]:
+    """(within k, between k) coefficient indices of every within/between split."""
+    c = design.coefficients
+    return [(k, k + 1) for k in range(len(c) - 1) if c[k].kind == "within" and c[k + 1].kind == "between"]
+
+
+def add_derived(design: Design, params: dict[str, np.ndarray]) -> None:
+    """Add derived population quantities to ``params`` (chains, draws, n), in place.
+
+    leaf_corr: correlations of leaf effects, Omega = L L' from the LKJ Cholesky factor;
+    split_diff: between-group minus within-group slope of every within/between split.
+    """
+    pairs = correlation_pairs(design)
+    if pairs:
+        chol = params["leaf_chol"][:, :, 0]
+        omega = np.einsum("cdik,cdjk->cdij", chol, chol)
+        params["leaf_corr"] = np.stack([omega[..., i, j] for i, j in pairs], axis=-1)
+    splits = split_pairs(design)
+    if splits:
+        params["split_diff"] = np.stack([params["beta"][..., b] - params["beta"][..., w] for w, b in splits], axis=-1)
 
 
 @dataclass(frozen=True)
@@ -42,8 +71,8 @@ def fit_structure(
     sampler: SamplerSpec,
     *,
     engine: Engine | None = None,
-    options: ModelOptions = ModelOptions(),
-    priors: PriorSet = PriorSet(),
+    options: ModelOptions | None = None,
+    priors: PriorSet | None = None,
     train_leaves: np.ndarray | None = None,
     leaf_fits: LeafFits | None = None,
     seed: int | None = None,
@@ -56,6 +85,7 @@ def fit_structure(
     seed = sampler.seed if seed is None else seed
     inits = structure_inits(design, leaf_fits, dataset, sampler.chains, seed)
     draws = engine.fit(program_text(), design.stan_data, sampler, seed, inits, progress)
+    add_derived(design, draws.params)
     names = [n for n in POPULATION if n in draws.params and draws.params[n].size]
     diag = diagnose(draws, names, sampler.max_treedepth)
     note = (f"chains started from per-leaf least-squares fits (SciPy; theta held at 0.7; "
@@ -82,13 +112,23 @@ def _labels(design: Design) -> dict[str, tuple[str, Callable[[np.ndarray], np.nd
         if c.kind == "trait":
             centre, scale = design.trait_transform[c.term]
             what = f"slope of {target} on {c.term} (per {scale:g} units)"
+        elif c.kind in ("within", "between"):
+            centre, scale = design.trait_transform[c.term]
+            what = f"{c.kind}-{c.group} slope of {target} on {c.term} (per {scale:g} units)"
         else:
             what = f"{target}: {c.label} vs reference level"
         out[f"beta[{k + 1}]"] = (what, lambda x: x, "link scale")
+    for k, (w, b) in enumerate(split_pairs(design)):
+        c = design.coefficients[w]
+        out[f"split_diff[{k + 1}]"] = (f"between minus within {c.group} slope of {c.param} on {c.term}",
+                                       lambda x: x, "link scale")
     for r, g in enumerate(design.group_terms):
-        out[f"tau[{r + 1}]"] = (f"SD of {g.grouping} effects on {g.param}", lambda x: x, "link scale")
+        out[f"tau[{r + 1}]"] = (f"SD of {g.label}", lambda x: x, "link scale")
     for r, lt in enumerate(design.leaf_terms):
         out[f"tau_leaf[{r + 1}]"] = (f"SD of leaf effects on {lt.param}", lambda x: x, "link scale")
+    for k, (i, j) in enumerate(correlation_pairs(design)):
+        a, b = design.leaf_terms[i].param, design.leaf_terms[j].param
+        out[f"leaf_corr[{k + 1}]"] = (f"correlation of leaf effects on {a} and {b}", lambda x: x, "")
     for s in range(design.stan_data["S"]):
         out[f"sigma[{s + 1}]"] = ("residual SD" + (f" (group {s + 1})" if design.stan_data["S"] > 1 else ""),
                                   lambda x: x, "umol m-2 s-1")

@@ -155,6 +155,8 @@ def _population_inits(design: Design, link: np.ndarray, train: np.ndarray) -> di
     u = np.zeros(d["Q"])
     tau = np.full(d["R"], 0.1)
     for r, gt in enumerate(design.group_terms):
+        if gt.slope_of:        # random slopes start at the fixed slope (deviations 0, SD 0.1)
+            continue
         lev = np.asarray(d["re_lev"][r]) - 1 - gt.start
         i = design.params.index(gt.param)
         means = np.array([resid[train & (lev == k), i].mean() if (train & (lev == k)).any() else 0.0
@@ -189,6 +191,7 @@ def _population_inits(design: Design, link: np.ndarray, train: np.ndarray) -> di
         "u_c": u[cen_lev], "u_z": u[nc_lev] / tau[lev_term[nc_lev]] if len(nc_lev) else np.zeros(0),
         "tau_leaf": tau_leaf, "eta_c": flat_link[design.cen_cells], "eta_z": np.clip(eta_z, -3, 3),
         "nu": np.array([10.0])[: d["student_t"]],
+        **({"leaf_chol": np.eye(d["Rl"])[None]} if d["leaf_corr"] else {}),
     }, cells
 
 

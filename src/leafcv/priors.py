@@ -68,3 +68,51 @@ class PriorSet:
 
     def slope_sd(self, link: str) -> float:
         return self.slope_sd_log if link == "log" else self.slope_sd_logit
+
+
+#: Probability mass of the stated interval of a natural-scale prior, and its normal quantile.
+INTERVAL_MASS = 0.95
+_Z95 = 1.959963984540054
+
+
+def prior_from_natural(value, link: str) -> tuple[Prior | None, str | None]:
+    """A prior written on the natural scale -> (Prior, None), or (None, what is wrong).
+
+    ``{ within95 = [lo, hi] }`` (optionally with ``median``) is a normal on the link scale whose 95 %
+    interval maps to [lo, hi]: lognormal for log links, logit-normal for logit links; the median, when
+    given, must be the back-transformed middle (sqrt(lo hi) for a lognormal). ``{ beta = [a, b] }`` is
+    a beta prior on the natural scale, for parameters with a logit link (alpha, theta).
+    """
+    if not isinstance(value, dict):
+        return None, f"expected a table such as {{ median = 60, within95 = [15, 240] }}, got {value!r}"
+    keys = set(value)
+    if keys - {"median", "within95", "beta"}:
+        return None, f"unknown key(s) {', '.join(sorted(keys - {'median', 'within95', 'beta'}))}; use within95 (and median) or beta"
+    if "beta" in value:
+        if keys != {"beta"}:
+            return None, "give either beta = [a, b] or within95 = [lo, hi], not both"
+        if link != "logit":
+            return None, "a beta prior applies only to alpha and theta (values between 0 and 1); use within95 = [lo, hi]"
+        ab = value["beta"]
+        if not (isinstance(ab, list) and len(ab) == 2 and all(isinstance(x, (int, float)) and not isinstance(x, bool)
+                                                              and x > 0 for x in ab)):
+            return None, f"beta: expected [a, b], two numbers > 0, got {ab!r}"
+        return Prior("beta", float(ab[0]), float(ab[1])), None
+    iv = value.get("within95")
+    if not (isinstance(iv, list) and len(iv) == 2 and all(isinstance(x, (int, float)) and not isinstance(x, bool) for x in iv)):
+        return None, f"within95: expected [lower, upper], the central 95 % interval on the natural scale, got {iv!r}"
+    lo, hi = float(iv[0]), float(iv[1])
+    if link == "log" and not 0 < lo < hi:
+        return None, f"within95: expected 0 < lower < upper, got [{lo:g}, {hi:g}]"
+    if link == "logit" and not 0 < lo < hi < 1:
+        return None, f"within95: expected 0 < lower < upper < 1, got [{lo:g}, {hi:g}]"
+    f = math.log if link == "log" else (lambda x: math.log(x / (1 - x)))
+    a, b = (f(lo) + f(hi)) / 2, (f(hi) - f(lo)) / (2 * _Z95)
+    if "median" in value:
+        m = value["median"]
+        middle = math.exp(a) if link == "log" else float(expit(a))
+        ok = isinstance(m, (int, float)) and not isinstance(m, bool) and (m > 0 if link == "log" else 0 < m < 1)
+        if not ok or abs(f(float(m)) - a) > 0.02 * (f(hi) - f(lo)):
+            return None, (f"median {m!r} does not sit in the middle of within95 on the {link} scale (a symmetric "
+                          f"prior there has median {middle:.4g}); give that median, or within95 alone")
+    return Prior("normal", a, b), None

@@ -51,6 +51,27 @@ class CVSpec:
     folds: int = 10
 
 
+#: Choices of the [model] options (see ModelOptions).
+ELECTRON_CHOICES: tuple[str, ...] = ("4-8", "4.5-10.5")
+TRANSITION_CHOICES: tuple[str, ...] = ("min", "smooth")
+LIKELIHOOD_CHOICES: tuple[str, ...] = ("normal", "student_t")
+SIGMA_CHOICES: tuple[str, ...] = ("shared", "by_curve")
+TEMPERATURE_CHOICES: tuple[str, ...] = ("arrhenius", "peaked")
+
+
+@dataclass(frozen=True)
+class ModelOptions:
+    """FvCB options of a comparison or a structure (the defaults follow DESIGN.md)."""
+
+    electron: str = "4-8"                       # Wj = J (Ci - G*) / (4 Ci + 8 G*), or 4.5 / 10.5
+    transition: str = "min"                     # hard minimum, or smooth co-limitation
+    smooth_curvature: float = 0.99
+    tpu: bool = False                           # add Wp = 3 TPU
+    student_t: bool = False                     # Student-t likelihood with estimated degrees of freedom
+    sigma_by_curve: bool = False                # one residual SD per curve type
+    peaked: bool = False                        # peaked Arrhenius for Vcmax and Jmax
+
+
 @dataclass(frozen=True)
 class ParamSpec:
     """How one FvCB parameter varies in a structure."""
@@ -59,12 +80,24 @@ class ParamSpec:
     random: tuple[str, ...] = ()                # groupings with random intercepts ("leaf" is the leaf id)
     ratio_to: str | None = None                 # "vcmax25" for jmax25 / rd25
     centring: dict[str, str] = field(default_factory=dict)  # grouping -> auto | centred | noncentred
+    slopes: tuple[tuple[str, str], ...] = ()    # (trait, grouping): random slopes around the fixed slope
+    split: tuple[tuple[str, str], ...] = ()     # (trait, grouping): within- and between-group slopes
 
 
 @dataclass(frozen=True)
 class Structure:
     name: str
     params: dict[str, ParamSpec]                # every name in PARAMETERS present
+    options: ModelOptions = ModelOptions()
+    priors: "PriorSet" = None                   # None: leafcv's defaults (leafcv.priors.PriorSet())
+    leaf_correlation: bool = False              # correlated leaf effects across parameters (LKJ prior)
+    lkj_eta: float = 2.0
+    origin: str = ""                            # e.g. "grid 'g': leaf=vcmax25_alpha, traits=n"
+
+    def prior_set(self):
+        from .priors import PriorSet
+
+        return self.priors if self.priors is not None else PriorSet()
 
 
 @dataclass(frozen=True)

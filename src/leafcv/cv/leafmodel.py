@@ -11,7 +11,7 @@ from scipy import stats
 
 from .. import fvcb
 from ..data.dataset import Dataset
-from ..design import Design, leaf_link_values, responses
+from ..design import Design, heldout_levels, leaf_cov_chol, level_values, responses
 from ..spec import LINKS
 
 
@@ -39,9 +39,36 @@ class LeafModel:
         self.fv, self.fj = fvcb.temperature_factor(t, rv), fvcb.temperature_factor(t, rj)
         self.fr, self.ft = fvcb.temperature_factor(t, rr), fvcb.temperature_factor(t, rt)
         mu, eta = link_values
-        self.mu, self.eta = mu[:, leaf, :], eta[:, leaf, :]          # (S, P)
-        self.effect_params = [design.params.index(lt.param) for lt in design.leaf_terms]
-        self.sd = draws["tau_leaf"] if d["Rl"] else np.zeros((len(self.mu), 0))
+        self.mu, self.eta = mu[:, leaf, :].copy(), eta[:, leaf, :].copy()          # (S, P)
+        S = len(self.mu)
+        leaf_pars = [design.params.index(lt.param) for lt in design.leaf_terms]
+        # a level with no training leaf (a held-out species or month) is integrated too: its effect
+        # u ~ N(0, tau^2) enters the link value as u x, so the leaf's value on that parameter is
+        # normal with the variances added (independent normal terms; random slopes scale by x^2)
+        extra: dict[int, np.ndarray] = {}
+        self.heldout = heldout_levels(design, leaf)
+        if self.heldout:
+            u = level_values(design, draws)
+            for r, lev in self.heldout:
+                pi = d["re_par"][r] - 1
+                x = float(d["re_x"][r][leaf])
+                self.mu[:, pi] -= u[:, lev] * x
+                if pi not in leaf_pars:
+                    self.eta[:, pi] -= u[:, lev] * x    # no leaf effect: its value is the population mean
+                extra[pi] = extra.get(pi, np.zeros(S)) + (draws["tau"][:, r] * x) ** 2
+        self.effect_params = sorted(set(leaf_pars) | set(extra))
+        pos = [self.effect_params.index(pi) for pi in leaf_pars]
+        cov = np.zeros((S, self.dim, self.dim))
+        if leaf_pars:
+            lc = leaf_cov_chol(design, draws)               # diagonal unless leaf effects are correlated
+            cov[:, np.array(pos)[:, None], np.array(pos)[None, :]] = lc @ lc.transpose(0, 2, 1)
+        for pi, v in extra.items():
+            k = self.effect_params.index(pi)
+            cov[:, k, k] += v
+        if d.get("leaf_corr"):
+            self.sd = np.linalg.cholesky(cov)               # prior scale as a Cholesky factor (S, d, d)
+        else:
+            self.sd = np.sqrt(np.diagonal(cov, axis1=1, axis2=2)).copy()   # SDs (S, d)
         sig = draws["sigma"]
         if d["S"] > 1:
             kinds = sorted(set(dataset.obs["curve_type"]))
@@ -112,13 +139,13 @@ class LeafModel:
         A is smooth in the effects away from the kink of the minimum; 5 Gauss-Hermite nodes per
         dimension (exact for polynomials of degree 9) are ample for held-out RMSE and R^2.
         """
-        from .quadrature import gh_grid
+        from .quadrature import gh_grid, prior_chol
 
         if self.dim == 0:
             return self.assimilation(self.eta)
         z, lw = gh_grid(n_nodes, self.dim)
         mean, sd = self.mean_sd()
-        b = mean[:, None, :] + sd[:, None, :] * z[None, :, :]
+        b = mean[:, None, :] + np.einsum("sij,qj->sqi", prior_chol(sd), z)
         eta = np.repeat(self.eta[:, None, :], len(z), axis=1)
         eta[..., self.effect_params] = b
         return np.einsum("q,sqn->sn", np.exp(lw), self.assimilation(eta))

@@ -20,7 +20,7 @@ from ..inits import LeafFits
 from ..spec import Comparison, SamplerSpec, Structure
 from .leafmodel import LeafModel, flatten_draws
 from .psis import integrated_loo_weights, khat_threshold, refit_elpd
-from .quadrature import leaf_log_marginal
+from .quadrature import leaf_log_marginal, prior_var
 from .result import CVResult
 
 FLAGGED_FRACTION_MAX = 0.2
@@ -93,10 +93,10 @@ def score_leaves(fit: StructureFit, dataset: Dataset, leaves: np.ndarray, leaf_f
                 c = own.mean(axis=0)
                 cov = np.atleast_2d(np.cov(own.T)) * 1.5**2
             else:
-                ls = _ls_link(fit, leaf_fits, int(g))
-                start = np.broadcast_to(ls, mean.shape)
-                c = ls
-                cov = np.diag(np.maximum(np.mean(sd, axis=0), 0.05) ** 2) * 1.5**2
+                ls = _ls_link(fit, leaf_fits, int(g), [fit.design.params[i] for i in lm.effect_params])
+                start = np.where(np.isnan(ls), mean, ls)     # population mean where not fitted per leaf
+                c = np.where(np.isnan(ls), mean.mean(axis=0), ls)
+                cov = np.diag(np.maximum(np.mean(np.sqrt(prior_var(sd)), axis=0), 0.05) ** 2) * 1.5**2
             chol = np.linalg.cholesky(cov + 1e-10 * np.eye(lm.dim))
             log_m[:, j], info = leaf_log_marginal(lm.loglik_rows, mean, sd, start, c, chol)
             fallbacks += info.n_fallback
@@ -104,10 +104,9 @@ def score_leaves(fit: StructureFit, dataset: Dataset, leaves: np.ndarray, leaf_f
     return Scored(log_m, preds, fallbacks)
 
 
-def _ls_link(fit: StructureFit, leaf_fits: LeafFits, g: int) -> np.ndarray:
-    """Least-squares estimate of the leaf's effect parameters on the link scale (log 10 where not fitted)."""
-    vals = [leaf_fits.link_values(lt.param, fit.design.ratio.get(lt.param, False))[g] for lt in fit.design.leaf_terms]
-    return np.nan_to_num(np.array(vals, float), nan=np.log(10.0))
+def _ls_link(fit: StructureFit, leaf_fits: LeafFits, g: int, params: list[str]) -> np.ndarray:
+    """Least-squares estimate of the leaf's effect parameters on the link scale (NaN where not fitted)."""
+    return np.array([leaf_fits.link_values(p, fit.design.ratio.get(p, False))[g] for p in params], float)
 
 
 def _fit(structure, dataset, comparison, sampler, leaf_fits, train, seed, engine, details, options, priors):
@@ -170,7 +169,8 @@ def cross_validate(structure: Structure, dataset: Dataset, comparison: Compariso
     khat = None
     n_refits = 0
     if method == "auto" and by != "leaf":
-        details.notes.append(f"integrated PSIS integrates one leaf's effects; folds by {by!r} are refitted exactly")
+        details.notes.append(f"integrated PSIS integrates one leaf's effects; folds by {by!r} are refitted exactly, "
+                             f"each held-out leaf scored with the effects of its held-out {by} integrated too")
         method = "exact"
     if method == "auto":
         fit, secs = _fit(structure, dataset, comparison, sampler, leaf_fits, None, sampler.seed, engine,

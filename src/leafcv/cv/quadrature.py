@@ -69,8 +69,24 @@ def rule(n: int, d: int, kind: int = 0) -> tuple[np.ndarray, np.ndarray]:
     return gh_grid(n, d) if d <= MAX_TENSOR_DIM else qmc_grid(QMC_POINTS[kind], d, seed=20261202 + kind)
 
 
+def prior_chol(sd: np.ndarray) -> np.ndarray:
+    """The prior scale as a lower Cholesky factor (S, d, d): ``sd`` is SDs (S, d) or already a factor."""
+    return sd if sd.ndim == 3 else np.einsum("ij,sj->sij", np.eye(sd.shape[1]), sd)
+
+
+def prior_var(sd: np.ndarray) -> np.ndarray:
+    """Prior variances (S, d) from SDs (S, d) or a Cholesky factor (S, d, d)."""
+    return sd**2 if sd.ndim == 2 else np.sum(sd**2, axis=2)
+
+
 def _log_prior(b: np.ndarray, mean: np.ndarray, sd: np.ndarray) -> np.ndarray:
-    """log N(b | mean, diag sd^2) summed over the last axis; b (S, Q, d), mean and sd (S, d)."""
+    """log N(b | mean, Sigma) with Sigma = diag(sd^2) for sd (S, d), or sd sd' for a Cholesky factor
+    sd (S, d, d) (correlated leaf effects); b (S, Q, d), mean (S, d)."""
+    if sd.ndim == 3:
+        inv = np.linalg.inv(sd)
+        z = np.einsum("sij,sqj->sqi", inv, b - mean[:, None, :])
+        logdet = np.sum(np.log(np.diagonal(sd, axis1=1, axis2=2)), axis=1)
+        return np.sum(-0.5 * z**2, axis=-1) - logdet[:, None] - 0.5 * b.shape[-1] * _LOG_2PI
     z = (b - mean[:, None, :]) / sd[:, None, :]
     return np.sum(-0.5 * z**2 - np.log(sd[:, None, :]) - 0.5 * _LOG_2PI, axis=-1)
 
@@ -162,7 +178,7 @@ def laplace_mode(loglik_rows: Callable[[np.ndarray], LogLik], mean: np.ndarray, 
         neg = -H
         good = np.all(np.isfinite(neg.reshape(len(idx), -1)), axis=1)
         good[good] = np.all(np.linalg.eigvalsh(neg[good]) > 0, axis=1)
-        step = g * sd[idx] ** 2                             # fallback: gradient step scaled by the prior
+        step = g * prior_var(sd[idx])                       # fallback: gradient step scaled by the prior
         if good.any():
             step[good] = np.linalg.solve(neg[good], g[good][..., None])[..., 0]
         step = np.clip(np.nan_to_num(step), -2.0, 2.0)
@@ -184,7 +200,7 @@ def laplace_mode(loglik_rows: Callable[[np.ndarray], LogLik], mean: np.ndarray, 
     neg = -H
     ok = np.isfinite(f0) & np.all(np.isfinite(neg.reshape(S, -1)), axis=1)
     ok[ok] = np.all(np.linalg.eigvalsh(neg[ok]) > 0, axis=1)
-    chol = np.einsum("ij,sj->sij", np.eye(d), sd)             # prior scale where the curvature is unusable
+    chol = np.array(prior_chol(sd), float)                   # prior scale where the curvature is unusable
     if ok.any():
         chol[ok] = np.linalg.cholesky(np.linalg.inv(neg[ok]))
     return b, chol, ok
@@ -210,7 +226,8 @@ def leaf_log_marginal(
         ``loglik_rows(rows)`` returns the leaf's log-likelihood function restricted to the draws
         ``rows`` (an index array): b (len(rows), Q, d) -> (len(rows), Q).
     mean, sd
-        Population mean and SD of the leaf's effects per draw, (S, d).
+        Population mean and SD of the leaf's effects per draw, (S, d); for correlated effects the
+        Cholesky factor of their covariance, (S, d, d).
     start
         Starting points of the mode search, (S, d).
     fallback_centre, fallback_chol
