@@ -45,14 +45,33 @@ def load(file: Path):
     """Comparison, dataset and every problem between them; raises UserInputError listing all problems."""
     from .comparison import check_against_data, load_comparison
     from .data import load_dataset
-    from .errors import SpecError
+    from .errors import SpecError, UserInputError
 
     comparison = load_comparison(file)
-    dataset = load_dataset(comparison.data)
+    try:
+        dataset = load_dataset(comparison.data)
+    except UserInputError as exc:
+        raise type(exc)(exc.source, [_with_users(m, comparison) for m in exc.problems]) from None
     problems = check_against_data(comparison, dataset)
     if problems:
         raise SpecError(str(file), problems)
     return comparison, dataset
+
+
+def _with_users(message: str, comparison) -> str:
+    """A leaf-level column that varies within a leaf: say which structures use it as a leaf-level term."""
+    if "must be constant within a leaf" not in message:
+        return message
+    uses = []
+    for name in (*comparison.data.traits, *comparison.data.groups):
+        if repr(name) not in message:
+            continue
+        for st in comparison.structures:
+            for p, ps in st.params.items():
+                terms = set(ps.fixed) | set(ps.random) | {t for t, _ in ps.slopes + ps.split} | {g for _, g in ps.slopes + ps.split}
+                if name in terms:
+                    uses.append(f"structure {st.name!r} uses {name!r} on {p}")
+    return message + (" (" + "; ".join(uses) + ")" if uses else "")
 
 
 def cmd_check(args) -> int:

@@ -1,7 +1,9 @@
 """The main job: cross-validate every structure of a comparison, rank them, write the run folder.
 
 Run folder (default ``runs/<file stem>/`` beside the comparison file):
-  manifest.json            versions, data and specification hashes, seeds, settings actually used
+  manifest.json            versions, data and specification hashes, seeds, settings actually used,
+                           and per structure its model options and priors
+  structures.txt           each structure's terms, model options and priors in words
   results/<structure>.json one per structure, written atomically; reused on a re-run when its inputs match
   ranking.csv, ranking.txt the ranking (columns as in DESIGN.md)
   pointwise.csv            per-leaf elpd (and Pareto k-hat) of every structure
@@ -79,6 +81,33 @@ def structure_key(structure: Structure, comparison: Comparison, data_hash: str, 
                           "settings": settings, "program": _program_hash(), "version": RESULT_VERSION},
                          sort_keys=True, default=str)
     return hashlib.sha256(payload.encode()).hexdigest()
+
+
+def structure_record(structure: Structure, dataset: Dataset, comparison: Comparison) -> dict:
+    """What a reader needs to know of one structure: origin, model options and every prior in words."""
+    from .design import build_design
+
+    design = build_design(structure, dataset, comparison.data)
+    return {"origin": structure.origin, "model": asdict(structure.options),
+            "leaf_correlation": structure.leaf_correlation, "priors": list(design.prior_lines)}
+
+
+def structures_text(comparison: Comparison, records: dict[str, dict]) -> str:
+    """structures.txt of a run: each structure's terms, model options and priors."""
+    from .comparison import describe_options, describe_param
+    from .spec import PARAMETERS
+
+    lines = []
+    for st in comparison.structures:
+        rec = records[st.name]
+        lines.append(f"structure {st.name!r}" + (f"  [{st.origin}]" if st.origin else ""))
+        lines += [f"  {describe_param(p, st.params[p])}" for p in PARAMETERS]
+        lines.append(f"  model: {describe_options(st.options)}"
+                     + ("; correlated leaf effects" if st.leaf_correlation else ""))
+        lines.append("  priors:")
+        lines += [f"    {x}" for x in rec["priors"]]
+        lines.append("")
+    return "\n".join(lines)
 
 
 def _result_to_json(result: CVResult, details: CVDetails, key: str) -> str:
@@ -160,7 +189,9 @@ def run_comparison(comparison: Comparison, dataset: Dataset, out: Path, *, metho
         "versions": _versions(), "started": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
         "command": " ".join(sys.argv),
     }
+    manifest["structures"] = {st.name: structure_record(st, dataset, comparison) for st in comparison.structures}
     write_atomic(out / "manifest.json", json.dumps(manifest, indent=1))
+    write_atomic(out / "structures.txt", structures_text(comparison, manifest["structures"]))
     state = {"leaf_fits": None}
 
     files: dict[str, str] = {}

@@ -156,6 +156,14 @@ def check_against_data(comparison: Comparison, dataset: Dataset) -> list[str]:
                         problems.append(f"{where}: {message}")
                     elif kind == "split":
                         problems += [f"{where}: {m}" for m in _split_data_problems(trait, group, leaves)]
+        if not problems:
+            # what only the design shows: perfectly collinear fixed terms, a term constant over leaves
+            from .design import build_design
+
+            try:
+                build_design(structure, dataset, comparison.data)
+            except SpecError as exc:
+                problems += [f"structure {structure.name!r}: {m}" for m in exc.problems]
         if structure.options.sigma_by_curve and dataset.obs["curve_type"].nunique() < 2:
             problems.append(f"structure {structure.name!r}: model.sigma = \"by_curve\" does not apply: the data have "
                             f"one curve type only ({dataset.obs['curve_type'].iloc[0]}); use sigma = \"shared\"")
@@ -785,6 +793,10 @@ def _parse_structure_body(item: dict[str, Any], name: str | None, label: str, gr
     params = _parse_structure_params(item, label, groups, traits, problems)
     options = _parse_model(item.get("model", {}), f"{label}: model", model, problems)
     structure_priors = _parse_priors(item.get("priors", {}), f"{label}: priors", priors, problems)
+    own_priors = item.get("priors") if isinstance(item.get("priors"), dict) else {}
+    if "tpu25" in own_priors and not options.tpu:
+        problems.append(f"{label}: priors.tpu25 applies only with TPU limitation on; add model = {{ tpu = true }} "
+                        "or remove the tpu25 prior")
     corr = item.get("leaf_correlation", False)
     if not isinstance(corr, bool):
         problems.append(f"{label}: leaf_correlation: expected true or false, got {_show(corr)}")

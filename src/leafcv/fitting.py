@@ -170,7 +170,7 @@ def format_fit(fit: StructureFit, title: str) -> str:
     for lt in fit.design.leaf_terms:
         lines.append(f"  leaf effects on {lt.param}: {lt.centred_leaves} centred, {lt.noncentred_leaves} non-centred ({lt.reason})")
     for g in fit.design.group_terms:
-        lines.append(f"  {g.grouping} effects on {g.param}: {sum(g.centred)} of {len(g.levels)} levels centred ({g.reason})")
+        lines.append(f"  {g.label}: {sum(g.centred)} of {len(g.levels)} levels centred ({g.reason})")
     if not fit.design.leaf_terms and not fit.design.group_terms:
         lines.append("  none (no random terms)")
     lines.append("priors:")
