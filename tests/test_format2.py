@@ -281,3 +281,12 @@ def test_grid_conflict_and_name_clash(demo_dir):
                     + '\n[[structure]]\nname = "g.leaf-none.traits-n-chl"\n')
     assert "grid 'g', traits=none, jmax25: ratio_to is set to" in text
     assert "the name is already used by another structure" in text
+
+
+def test_design_errors_are_reported_for_every_structure(demo_dir):
+    # a data problem in one structure must not hide a collinear term in the next
+    text = problems(demo_dir, '[[structure]]\nname = "a"\nvcmax25 = { fixed = ["n_area"], slopes = { n_area = "site" } }\n'
+                    + BASE + '\n[[structure]]\nname = "b"\nvcmax25 = { fixed = ["n_area", "n_twice"] }\n' + BASE,
+                    groups=("taxon", "site"), traits=("n_area", "chl_ug", "sla_m2kg", "n_twice"))
+    assert "structure 'a', vcmax25.slopes.n_area: grouping 'site' has a single level" in text
+    assert "structure 'b': vcmax25: fixed term 'n_twice' is perfectly collinear" in text

@@ -68,8 +68,7 @@ def _with_users(message: str, comparison) -> str:
             continue
         for st in comparison.structures:
             for p, ps in st.params.items():
-                terms = set(ps.fixed) | set(ps.random) | {t for t, _ in ps.slopes + ps.split} | {g for _, g in ps.slopes + ps.split}
-                if name in terms:
+                if name in {*ps.fixed, *ps.random, *(x for pair in ps.slopes + ps.split for x in pair)}:
                     uses.append(f"structure {st.name!r} uses {name!r} on {p}")
     return message + (" (" + "; ".join(uses) + ")" if uses else "")
 

@@ -8,6 +8,7 @@ by ``leafcv check``.
 from __future__ import annotations
 
 import difflib
+import itertools
 import math
 import os
 import re
@@ -59,8 +60,11 @@ MODEL_KEYS: tuple[str, ...] = ("tpu", "likelihood", "sigma", "transition", "smoo
                                "temperature")
 #: [priors] keys: intercepts on the natural scale, then the scales of the other priors.
 PRIOR_INTERCEPT_KEYS: tuple[str, ...] = (*PARAMETERS, "tpu25", "jmax25_ratio", "rd25_ratio")
-PRIOR_SCALE_KEYS: tuple[str, ...] = ("slope_sd_log", "slope_sd_logit", "level_sd", "group_sd", "leaf_sd", "sigma_sd")
-PRIOR_KEYS: tuple[str, ...] = (*PRIOR_INTERCEPT_KEYS, *PRIOR_SCALE_KEYS, "nu")
+#: [priors] scale key -> the PriorSet field it sets
+PRIOR_SCALE_FIELDS: dict[str, str] = {"slope_sd_log": "slope_sd_log", "slope_sd_logit": "slope_sd_logit",
+                                      "level_sd": "level_sd", "group_sd": "group_sd_scale",
+                                      "leaf_sd": "leaf_sd_scale", "sigma_sd": "sigma_scale"}
+PRIOR_KEYS: tuple[str, ...] = (*PRIOR_INTERCEPT_KEYS, *PRIOR_SCALE_FIELDS, "nu")
 GRID_KEYS: tuple[str, ...] = ("name", "base", "leaf_effects", "choices")
 DATA_KEYS: tuple[str, ...] = ("file", "columns", "units", "leaf")
 UNITS_KEYS: tuple[str, ...] = ("ci", "pressure_kpa")
@@ -141,6 +145,7 @@ def check_against_data(comparison: Comparison, dataset: Dataset) -> list[str]:
     traits = set(comparison.data.traits)
     problems: Problems = []
     for structure in comparison.structures:
+        before = len(problems)
         for pname in PARAMETERS:
             spec = structure.params[pname]
             for kind, terms in (("fixed", spec.fixed), ("random", spec.random)):
@@ -156,7 +161,7 @@ def check_against_data(comparison: Comparison, dataset: Dataset) -> list[str]:
                         problems.append(f"{where}: {message}")
                     elif kind == "split":
                         problems += [f"{where}: {m}" for m in _split_data_problems(trait, group, leaves)]
-        if not problems:
+        if len(problems) == before:
             # what only the design shows: perfectly collinear fixed terms, a term constant over leaves
             from .design import build_design
 
@@ -238,8 +243,7 @@ def _changed_priors(priors) -> list[str]:
     default = PriorSet()
     out = [p for p in priors.intercepts if priors.intercepts[p] != default.intercepts.get(p)]
     out += [f"{p}_ratio" for p in priors.ratio_intercepts if priors.ratio_intercepts[p] != default.ratio_intercepts.get(p)]
-    out += [k for k in ("slope_sd_log", "slope_sd_logit", "level_sd", "group_sd_scale", "leaf_sd_scale", "sigma_scale",
-                        "nu_shape", "nu_rate") if getattr(priors, k) != getattr(default, k)]
+    out += [k for k in (*PRIOR_SCALE_FIELDS.values(), "nu_shape", "nu_rate") if getattr(priors, k) != getattr(default, k)]
     return out
 
 
@@ -917,13 +921,12 @@ def _parse_param(
             problems.append(f"{where}.slopes: the {group}-specific slopes on {trait!r} vary around a mean slope; "
                             f"add {trait!r} to {pname}.fixed too")
     split_traits = [t for t, _ in split]
-    for trait in split_traits:
+    for trait in dict.fromkeys(split_traits):
         if trait in fixed:
             problems.append(f"{where}: {trait!r} is both in fixed and in split; split already estimates its "
                             "within- and between-group slopes — remove it from fixed")
         if split_traits.count(trait) > 1:
             problems.append(f"{where}.split: {trait!r} is split by more than one grouping; choose one")
-            break
     for trait, group in slopes:
         if trait in split_traits:
             problems.append(f"{where}: {trait!r} is in both slopes and split; choose one")
@@ -1018,9 +1021,7 @@ def _parse_priors(value: Any, where: str, base, problems: Problems):
             ratios[pname] = prior
         else:
             intercepts[pname] = prior
-    names = {"slope_sd_log": "slope_sd_log", "slope_sd_logit": "slope_sd_logit", "level_sd": "level_sd",
-             "group_sd": "group_sd_scale", "leaf_sd": "leaf_sd_scale", "sigma_sd": "sigma_scale"}
-    for key, attr in names.items():
+    for key, attr in PRIOR_SCALE_FIELDS.items():
         if key in table:
             v = _number_value(table[key], f"{where}.{key}", problems, lambda x: x > 0, "a number > 0")
             if v is not None:
@@ -1073,7 +1074,7 @@ def _parse_grids(value: Any, groups, traits, problems: Problems, model: ModelOpt
             for p in bad:
                 problems.append(f"{where}.leaf_effects: " + _unknown("parameter", p, PARAMETERS, "parameters"))
             lp = [p for p in PARAMETERS if p in lp]
-            subsets = [c for n in range(len(lp) + 1) for c in _combinations(lp, n)]
+            subsets = [c for n in range(len(lp) + 1) for c in itertools.combinations(lp, n)]
             axes.append(("leaf", [("_".join(c) or "none", {p: {"random": [LEAF_TERM]} for p in c}) for c in subsets]))
         for axis, choices in _table(grid.get("choices", {}), f"{where}.choices", problems).items():
             if not _NAME_RE.fullmatch(axis):
@@ -1096,8 +1097,6 @@ def _parse_grids(value: Any, groups, traits, problems: Problems, model: ModelOpt
         if not axes:
             problems.append(f"{where}: nothing to expand; add leaf_effects = [...] or [grid.choices.<axis>]")
             continue
-        import itertools
-
         for combo in itertools.product(*[opts for _, opts in axes]):
             name = ".".join([gname] + [f"{axis}-{cname}" for (axis, _), (cname, _) in zip(axes, combo)])
             origin = f"grid {gname!r}: " + ", ".join(f"{axis}={cname}" for (axis, _), (cname, _) in zip(axes, combo))
@@ -1113,12 +1112,6 @@ def _parse_grids(value: Any, groups, traits, problems: Problems, model: ModelOpt
             if st is not None:
                 out.append(st)
     return out
-
-
-def _combinations(items: list[str], n: int):
-    import itertools
-
-    return list(itertools.combinations(items, n))
 
 
 def _merge_structure(a: dict, b: dict, where: str, problems: Problems) -> dict:
