@@ -15,7 +15,7 @@ from leafcv import fvcb
 from leafcv.cli import load
 from leafcv.cv.leafmodel import flatten_draws
 from leafcv.design import leaf_link_values, level_values
-from leafcv.fitting import fit_structure
+from leafcv.fitting import fit_structure, format_fit
 from leafcv.inits import fit_leaves
 from leafcv.spec import SamplerSpec
 
@@ -157,7 +157,8 @@ def test_sigma_by_curve_type_separates_the_two_noise_levels(tmp_path):
                                       sigma=(0.25, 1.0))
     f = fit(comparison, dataset, "by-curve")
     sig = draws_of(f, "sigma")
-    assert sig.shape[1] == 2                           # groups in sorted curve-type order: aci, aq
+    assert sig.shape[1] == 2 and f.design.sigma_groups == ("aci curves", "aq curves")
+    assert "residual SD (aq curves)" in format_fit(f, "by-curve")
     for k, true in enumerate((0.25, 1.0)):
         assert abs(np.median(sig[:, k]) / true - 1) < 0.3, (k, np.median(sig[:, k]))
     ratio = sig[:, 1] / sig[:, 0]                      # true 4; one shared SD would make it meaningless

@@ -130,7 +130,7 @@ def _labels(design: Design) -> dict[str, tuple[str, Callable[[np.ndarray], np.nd
         a, b = design.leaf_terms[i].param, design.leaf_terms[j].param
         out[f"leaf_corr[{k + 1}]"] = (f"correlation of leaf effects on {a} and {b}", lambda x: x, "")
     for s in range(design.stan_data["S"]):
-        out[f"sigma[{s + 1}]"] = ("residual SD" + (f" (group {s + 1})" if design.stan_data["S"] > 1 else ""),
+        out[f"sigma[{s + 1}]"] = ("residual SD" + (f" ({design.sigma_groups[s]})" if design.stan_data["S"] > 1 else ""),
                                   lambda x: x, "umol m-2 s-1")
     if design.stan_data["student_t"]:
         out["nu[1]"] = ("Student-t degrees of freedom", lambda x: x, "")
