@@ -66,29 +66,3 @@ def test_centring_override_is_respected(quick_demo):
     design = build_design(replace(s, params=params), dataset, comparison.data, leaf_fits=fit_leaves(dataset))
     lt = {t.param: t for t in design.leaf_terms}
     assert lt["vcmax25"].centred_leaves == 0 and "chosen by the user" in lt["vcmax25"].reason
-
-
-def test_conditional_se_of_the_centring_pilot_matches_normal_closed_forms():
-    # Conditional variance of a bivariate normal: var(x1 | x2) = s1^2 (1 - rho^2) (e.g. Gelman et al.
-    # 2013, BDA3 appendix A); and two independent normal measurements of one value combine by adding
-    # precisions, 1/var = 1/a + 1/b (the ratio case: log Jmax25 = log Vcmax25 + a known log ratio).
-    from leafcv.inits import LeafFits
-
-    s_v, s_j, s_a, s_r, rho = 0.03, 0.08, 0.12, 0.2, -0.7
-    cov = np.diag([s_v, s_j, s_a, s_r]) ** 2
-    cov[1, 2] = cov[2, 1] = rho * s_j * s_a            # alpha and Jmax trade off in one A-Q curve
-    fits = LeafFits({}, 0.5, (), cov[None])
-    # alpha with its own leaf effect, jmax25 a free parameter without one: condition on log Jmax25
-    se = fits.conditional_link_se("alpha", {"jmax25": False, "rd25": False}, {"alpha", "vcmax25"})
-    np.testing.assert_allclose(se, s_a * np.sqrt(1 - rho**2), rtol=1e-12)
-    # alpha's SE given nothing (every fitted parameter has a leaf effect) is the marginal SE
-    se = fits.conditional_link_se("alpha", {}, {"alpha", "vcmax25", "jmax25", "rd25"})
-    np.testing.assert_allclose(se, s_a, rtol=1e-12)
-    # vcmax25 with Jmax25 tied by a population ratio: the Jmax information adds to Vcmax's
-    cov = np.diag([s_v, s_j, s_a, s_r]) ** 2
-    fits = LeafFits({}, 0.5, (), cov[None])
-    se = fits.conditional_link_se("vcmax25", {"jmax25": True, "rd25": False}, {"vcmax25", "alpha", "rd25"})
-    np.testing.assert_allclose(se, (1 / s_v**2 + 1 / s_j**2) ** -0.5, rtol=1e-12)
-    # a failed leaf fit (infinite covariance) is never called informed
-    fits = LeafFits({}, 0.5, (), np.diag(np.full(4, np.inf))[None])
-    assert np.isinf(fits.conditional_link_se("alpha", {}, {"alpha"})).all()

@@ -19,11 +19,9 @@ from .spec import LINKS, PARAMETERS, DataSpec, ModelOptions, Structure
 #: Fewest training points a leaf needs for its effects to be centred (common practice, no source:
 #: a leaf informed by whole curves pins its own parameters; see DESIGN.md for the measured gain).
 MIN_POINTS_CENTRED_LEAF = 5
-#: A leaf's effect is centred when its least-squares SE, given the parameters the structure fixes per
-#: leaf, is below this fraction of the between-leaf SD: the data then carry at least 80 % of the
-#: precision (the centred form suits data-dominated effects, the non-centred form prior-dominated ones,
-#: Betancourt & Girolami 2015). Common practice, no source, for the fraction: 1.0 sampled the reference
-#: structure faster but its centred, weakly informed alpha effects diverged in refits (funnel).
+#: A leaf's effect is centred when its least-squares SE is below this fraction of the between-leaf SD
+#: (the data then carry at least 80 % of the precision; common practice, no source: the centred form
+#: suits data-dominated effects, the non-centred form prior-dominated ones, Betancourt & Girolami 2015).
 CENTRED_SE_FRACTION = 0.5
 #: Fewest leaves per level for a group effect on a parameter that also has leaf effects to be centred.
 MIN_LEAVES_CENTRED_GROUP = 20
@@ -187,8 +185,7 @@ def build_design(
         if "leaf" in random:
             choice = centring.get("leaf", "auto")
             leaf_tau_sd.append(priors.leaf_sd_scale)
-            leaf_params = {q for q, qs in structure.params.items() if "leaf" in qs.random}
-            informed, rule = _informed_leaves(p, ratio, leaf_params, leaf_fits, points_per_leaf, train)
+            informed, rule = _informed_leaves(p, ratio[p], leaf_fits, points_per_leaf, train)
             centred = informed if choice == "auto" else (np.full(L, choice == "centred") & train)
             reason = f"{choice}: chosen by the user" if choice != "auto" else f"auto: {rule}"
             if (~train).any():
@@ -343,14 +340,8 @@ def _check_fixed_columns(name: str, params, X: np.ndarray, fixed_map: list, coef
         raise SpecError(name, problems)
 
 
-def _informed_leaves(param, ratios, leaf_params, leaf_fits, points_per_leaf, train) -> tuple[np.ndarray, str]:
-    """Which leaves' effects on ``param`` to centre, and the rule used, in words.
-
-    The between-leaf SD comes from the spread of the per-leaf estimates less their noise (marginal SEs);
-    a leaf's own precision is judged by its SE given the parameters the structure fixes per leaf
-    (`LeafFits.conditional_link_se`), which is what the leaf's data inform in this structure.
-    """
-    ratio = ratios[param]
+def _informed_leaves(param, ratio, leaf_fits, points_per_leaf, train) -> tuple[np.ndarray, str]:
+    """Which leaves' effects on ``param`` to centre, and the rule used, in words."""
     enough = (points_per_leaf >= MIN_POINTS_CENTRED_LEAF) & train
     if leaf_fits is None:
         return enough, (f"centred where a leaf has >= {MIN_POINTS_CENTRED_LEAF} training points "
@@ -362,11 +353,9 @@ def _informed_leaves(param, ratios, leaf_params, leaf_fits, points_per_leaf, tra
         return np.zeros_like(train), "non-centred: per-leaf fits do not inform this parameter"
     between = float(np.sqrt(max(np.var(est[ok], ddof=1) - np.mean(se[ok] ** 2), 0.0)))
     between = max(between, 0.02)
-    cse = leaf_fits.conditional_link_se(param, ratios, leaf_params)
-    centred = enough & np.isfinite(cse) & (cse < CENTRED_SE_FRACTION * between)
-    return centred, (f"centred where the leaf's least-squares SE on the link scale (given the parameters without "
-                     f"leaf effects) is below {CENTRED_SE_FRACTION:g} x the between-leaf SD "
-                     f"({between:.3g}; median SE {np.median(cse[ok & np.isfinite(cse)]) if np.isfinite(cse[ok]).any() else np.inf:.3g})")
+    centred = enough & np.isfinite(se) & (se < CENTRED_SE_FRACTION * between)
+    return centred, (f"centred where the leaf's least-squares SE on the link scale is below {CENTRED_SE_FRACTION:g} x the between-leaf SD "
+                     f"({between:.3g}; median SE {np.median(se[ok]):.3g})")
 
 
 def responses(options: ModelOptions) -> list[fvcb.TemperatureResponse]:

@@ -62,39 +62,6 @@ class LeafFits:
             var = self.cov[:, k, k]
         return np.sqrt(np.clip(var, 0, None))
 
-    def conditional_link_se(self, param: str, ratios: dict[str, bool], leaf_params) -> np.ndarray:
-        """Per-leaf SE of ``param`` (link scale) when the fitted parameters WITHOUT leaf effects are known.
-
-        In a structure, a parameter without a leaf effect (e.g. jmax25 as a population ratio to vcmax25)
-        is pinned for every leaf by population quantities that all leaves inform, so a leaf's own data
-        inform its remaining values more than the free four-parameter fit suggests (alpha and Jmax trade
-        off in one A-Q curve). The covariance of (log Vcmax25, log Jmax25 or log ratio, logit alpha,
-        log Rd25 or log ratio) is conditioned on the coordinates without leaf effects (the Schur
-        complement of a normal covariance). theta is not fitted per leaf: its SE is infinite.
-        """
-        order = ("vcmax25", "jmax25", "alpha", "rd25")
-        if param not in order:
-            return np.full(len(self.cov), np.inf)
-        A = np.eye(4)
-        for k, p in ((1, "jmax25"), (3, "rd25")):
-            if ratios.get(p):
-                A[k, 0] = -1.0          # log(ratio) = log(p) - log(vcmax25)
-        free = [i for i, p in enumerate(order) if p in leaf_params or p == param]
-        given = [i for i in range(4) if i not in free]
-        k = free.index(order.index(param))
-        out = np.full(len(self.cov), np.inf)
-        for leaf, cov in enumerate(self.cov):
-            if not np.all(np.isfinite(cov)):
-                continue
-            c = A @ cov @ A.T
-            cf = c[np.ix_(free, free)]
-            if given:
-                cg = c[np.ix_(given, given)]
-                cfg = c[np.ix_(free, given)]
-                cf = cf - cfg @ np.linalg.pinv(cg) @ cfg.T
-            out[leaf] = np.sqrt(max(float(cf[k, k]), 0.0))
-        return out
-
 
 def fit_leaves(dataset: Dataset) -> LeafFits:
     """Least-squares FvCB fit of each leaf's points (Vcmax25, Jmax25, alpha, Rd25; theta fixed)."""
