@@ -70,14 +70,12 @@ def main() -> None:
     for rep in range(args.repeats):
         seed = seed0 + 101 * rep
         sampler = SamplerSpec(chains=args.chains, warmup=args.warmup, draws=args.draws, seed=seed, adapt_delta=0.9)
-        base = variants["generic (auto centring)"]
-        generic_inits = structure_inits(base, fits, dataset, args.chains, seed)
-        runs = {}
-        for name, design in variants.items():
-            inits = structure_inits(design, fits, dataset, args.chains, seed)
-            runs[name] = (engine.fit(program_text(), design.stan_data, sampler, seed, inits), design)
+        inits = {name: structure_inits(design, fits, dataset, args.chains, seed) for name, design in variants.items()}
+        runs = {name: (engine.fit(program_text(), design.stan_data, sampler, seed, inits[name]), design)
+                for name, design in variants.items()}
+        base = "generic (auto centring)"
         runs["reference"] = (engine.fit(ref.program_text(), rdata, sampler, seed,
-                                        reference_inits(ref, base, generic_inits)), None)
+                                        reference_inits(ref, variants[base], inits[base])), None)
         print(f"repeat {rep + 1} (seed {seed}):")
         for name, (draws, design) in runs.items():
             ess, worst = _min_ess(population(ref, draws.params, design))

@@ -91,6 +91,25 @@ def reference_data(ref: Reference, dataset, spec: DataSpec, priors: PriorSet | N
     return data
 
 
+def random_generic_point(design: Design, rng: np.random.Generator) -> dict[str, np.ndarray]:
+    """A random, plausible point of the generic program's parameters for ``design`` (demo magnitudes).
+
+    Centred cells hold the leaf's own link value, so they are put near the population value.
+    """
+    d = design.stan_data
+    point = {
+        "b0": np.array([np.log(50), np.log(1.8), -0.8, 1.0, np.log(0.015)]) + rng.normal(0, 0.1, 5),
+        "beta": rng.normal(0, 0.2, d["K"]), "tau": rng.uniform(0.05, 0.5, d["R"]),
+        "u_c": rng.normal(0, 0.1, d["Qc"]), "u_z": rng.normal(0, 1, d["Q"] - d["Qc"]),
+        "tau_leaf": rng.uniform(0.05, 0.3, d["Rl"]),
+        "eta_c": rng.normal(0, 0.1, d["Mc"]), "eta_z": rng.normal(0, 1, d["Mn"]),
+        "sigma": rng.uniform(0.3, 1.0, 1), "nu": np.zeros(0),
+    }
+    mu, _ = leaf_link_values(design, {k: v[None, ...] for k, v in point.items()})
+    point["eta_c"] = mu[0].T.reshape(-1)[design.cen_cells] + point["eta_c"]
+    return point
+
+
 def _coef(design: Design, param: str, label: str) -> int:
     for k, c in enumerate(design.coefficients):
         if c.param == param and c.label == label:
@@ -102,27 +121,14 @@ def generic_to_reference(ref: Reference, design: Design, point: dict[str, np.nda
     """The reference program's parameters at one point of the generic program (arrays without draw axis)."""
     draws = {k: np.asarray(v, float)[None, ...] for k, v in point.items()}
     _, eta = leaf_link_values(design, draws)
-    eta = eta[0]
     P = list(design.params)
-    b0, beta = np.asarray(point["b0"], float), np.asarray(point["beta"], float)
-    tau_leaf = dict(zip([lt.param for lt in design.leaf_terms], np.asarray(point["tau_leaf"], float)))
-    out = {
-        "log_vcmax_ref": b0[P.index("vcmax25")], "log_jratio": b0[P.index("jmax25")],
-        "logit_alpha_ref": b0[P.index("alpha")], "logit_theta": b0[P.index("theta")],
-        "log_rdratio": b0[P.index("rd25")],
-        "b_n": beta[_coef(design, "vcmax25", N_COL)],
-        "b_chl": beta[_coef(design, "alpha", CHL_COL)], "b_sla": beta[_coef(design, "alpha", SLA_COL)],
-        "tau_v": tau_leaf["vcmax25"], "tau_a": tau_leaf["alpha"],
-        "log_vcmax": eta[:, P.index("vcmax25")], "logit_alpha": eta[:, P.index("alpha")],
-        "sigma": float(np.asarray(point["sigma"], float)[0]),
-    }
+    out = {k: float(v[0]) for k, v in population(ref, draws, design).items() if not k.startswith("b_month[")}
+    out["log_vcmax"], out["logit_alpha"] = eta[0, :, P.index("vcmax25")], eta[0, :, P.index("alpha")]
     if ref.grouping == MONTH_COL:
-        out["b_month"] = beta[_month_columns(design)]
+        out["b_month"] = draws["beta"][0, _month_columns(design)]
     else:
-        (r, gt), = [(r, gt) for r, gt in enumerate(design.group_terms) if gt.slope_of == N_COL]
-        tau = float(np.asarray(point["tau"], float)[r])
-        u = level_values(design, draws)[0, gt.start:gt.start + len(gt.levels)]
-        out["tau_s"], out["z"] = tau, u / tau
+        (gt,) = [gt for gt in design.group_terms if gt.slope_of == N_COL]
+        out["z"] = level_values(design, draws)[0, gt.start:gt.start + len(gt.levels)] / out["tau_s"]
     return out
 
 

@@ -14,6 +14,8 @@ from leafcv.engines.program import program_text
 from leafcv.engines.pystan_engine import PyStanEngine
 from leafcv.inits import fit_leaves
 
+from .reference_programs import random_generic_point
+
 pytestmark = pytest.mark.stan
 
 
@@ -54,21 +56,10 @@ def test_generic_log_density_matches_numpy(quick_demo, name):
                           leaf_fits=fit_leaves(dataset))
     assert all(c % dataset.n_leaves != 3 for c in design.cen_cells)
     model = PyStanEngine(log=lambda _: None).compile(program_text(), design.stan_data, 1)
-    d = design.stan_data
     rng = np.random.default_rng(3)
     diffs = []
     for _ in range(4):
-        point = {
-            "b0": np.array([np.log(50), np.log(1.8), -0.8, 1.0, np.log(0.015)]) + rng.normal(0, 0.1, 5),
-            "beta": rng.normal(0, 0.2, d["K"]), "tau": rng.uniform(0.05, 0.5, d["R"]),
-            "u_c": rng.normal(0, 0.1, d["Qc"]), "u_z": rng.normal(0, 1, d["Q"] - d["Qc"]),
-            "tau_leaf": rng.uniform(0.05, 0.3, d["Rl"]),
-            "eta_c": rng.normal(0, 0.1, d["Mc"]), "eta_z": rng.normal(0, 1, d["Mn"]),
-            "sigma": rng.uniform(0.3, 1.0, 1), "nu": np.zeros(0),
-        }
-        # centred cells hold the leaf's own link value: put them near the population value
-        mu, _ = leaf_link_values(design, {k: v[None, ...] for k, v in point.items()})
-        point["eta_c"] = mu[0].T.reshape(-1)[design.cen_cells] + point["eta_c"]
+        point = random_generic_point(design, rng)
         stan_point = {k: v.tolist() for k, v in point.items()}
         upar = model.unconstrain_pars(stan_point)
         diffs.append(model.log_prob(upar, adjust_transform=False) - _numpy_log_density(design, dataset, point))

@@ -14,7 +14,7 @@ import pytest
 from leafcv import fvcb
 from leafcv.cli import load
 from leafcv.cv.leafmodel import flatten_draws
-from leafcv.design import leaf_link_values, level_values
+from leafcv.design import level_values
 from leafcv.fitting import fit_structure, format_fit
 from leafcv.inits import fit_leaves
 from leafcv.spec import SamplerSpec
@@ -88,11 +88,6 @@ def draws_of(f, name):
 def intercept(f, param):
     """Natural-scale draws of a parameter's intercept (exp of the link; ratios stay ratios)."""
     return np.exp(draws_of(f, "b0")[:, f.design.params.index(param)])
-
-
-def leaf_link(f):
-    _, eta = leaf_link_values(f.design, flatten_draws(f.draws.params))
-    return eta
 
 
 LEAF_V = BASE.format(vcmax='random = ["leaf"]', alpha="")

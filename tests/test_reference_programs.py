@@ -18,15 +18,15 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from leafcv.design import build_design, leaf_link_values
+from leafcv.design import build_design
 from leafcv.engines.program import program_text
 from leafcv.engines.pystan_engine import PyStanEngine
 from leafcv.fitting import fit_structure
 from leafcv.inits import fit_leaves, structure_inits
 from leafcv.spec import SamplerSpec
 
-from .reference_programs import SPECIES_SLOPES, TRAITS_MONTH, generic_to_reference, population, reference_data, \
-    reference_inits
+from .reference_programs import SPECIES_SLOPES, TRAITS_MONTH, generic_to_reference, population, random_generic_point, \
+    reference_data, reference_inits
 
 pytestmark = pytest.mark.stan
 REFERENCES = [TRAITS_MONTH, SPECIES_SLOPES]
@@ -36,22 +36,6 @@ FAMILY_WISE = 0.001
 
 def _quiet():
     return PyStanEngine(log=lambda _: None)
-
-
-def _random_point(design, rng):
-    d = design.stan_data
-    point = {
-        "b0": np.array([np.log(50), np.log(1.8), -0.8, 1.0, np.log(0.015)]) + rng.normal(0, 0.1, 5),
-        "beta": rng.normal(0, 0.2, d["K"]), "tau": rng.uniform(0.05, 0.5, d["R"]),
-        "u_c": rng.normal(0, 0.1, d["Qc"]), "u_z": rng.normal(0, 1, d["Q"] - d["Qc"]),
-        "tau_leaf": rng.uniform(0.05, 0.3, d["Rl"]),
-        "eta_c": rng.normal(0, 0.1, d["Mc"]), "eta_z": rng.normal(0, 1, d["Mn"]),
-        "sigma": rng.uniform(0.3, 1.0, 1), "nu": np.zeros(0),
-    }
-    # centred cells hold the leaf's own link value: put them near the population value
-    mu, _ = leaf_link_values(design, {k: v[None, ...] for k, v in point.items()})
-    point["eta_c"] = mu[0].T.reshape(-1)[design.cen_cells] + point["eta_c"]
-    return point
 
 
 @pytest.mark.parametrize("ref", REFERENCES, ids=lambda r: r.name)
@@ -65,7 +49,7 @@ def test_log_density_matches_reference(quick_demo, ref):
     rng = np.random.default_rng(11)
     diffs, spread = [], []
     for _ in range(5):
-        point = _random_point(design, rng)
+        point = random_generic_point(design, rng)
         rpoint = generic_to_reference(ref, design, point)
         lp_g = generic.log_prob(generic.unconstrain_pars({k: v.tolist() for k, v in point.items()}), adjust_transform=False)
         lp_r = reference.log_prob(reference.unconstrain_pars({k: np.asarray(v).tolist() for k, v in rpoint.items()}),
