@@ -94,7 +94,8 @@ LEAF_V = BASE.format(vcmax='random = ["leaf"]', alpha="")
 
 
 def test_tpu_limitation_is_estimated_and_removes_the_misfit(tmp_path):
-    # TPU limitation, Wp = 3 TPU (Sharkey 1985; Harley et al. 1992, Plant Cell Environ 15:271-282):
+    # TPU limitation, Wp = 3 TPU (Sharkey 1985, from memory; Harley et al. 1992, Plant Cell Environ
+    # 15:271-282, REFERENCES.md):
     # with TPU25 = 4 the high-Ci points plateau at 12 - Rd. Fitted with TPU, TPU25 is recovered
     # tightly; fitted without, the plateau is misfit and the residual SD swells.
     structures = {"tpu": 'model = { tpu = true }\n' + LEAF_V, "no-tpu": LEAF_V}
@@ -109,7 +110,7 @@ def test_tpu_limitation_is_estimated_and_removes_the_misfit(tmp_path):
 
 def test_smooth_transition_fits_a_smooth_curve_the_hard_minimum_misfits(tmp_path):
     # Smooth co-limitation k A^2 - (Wc + Wj) A + Wc Wj = 0 (Collatz et al. 1991, Agric For Meteorol
-    # 54:107-136) with k = 0.8: A dips below min(Wc, Wj) near the transition; the hard minimum cannot.
+    # 54:107-136, from memory) with k = 0.8: A dips below min(Wc, Wj) near the transition; the hard minimum cannot.
     structures = {"smooth": 'model = { transition = "smooth", smooth_curvature = 0.8 }\n' + LEAF_V, "min": LEAF_V}
     comparison, dataset, _ = simulate(tmp_path, 6, structures, transition="smooth", smooth_curvature=0.8)
     smooth, hard = fit(comparison, dataset, "smooth"), fit(comparison, dataset, "min")
@@ -182,7 +183,7 @@ def test_random_slopes_recover_species_that_respond_differently(tmp_path):
 
 
 def test_correlated_leaf_effects_estimate_the_correlation(tmp_path):
-    # LKJ prior on the correlation of leaf effects (Lewandowski, Kurowicka & Joe 2009): leaf effects on
+    # LKJ prior on the correlation of leaf effects (Lewandowski, Kurowicka & Joe 2009, from memory): leaf effects on
     # log Vcmax25 and logit alpha simulated with SDs 0.25 and correlation 0.9.
     n_leaves = 24
     rng = np.random.default_rng(5)

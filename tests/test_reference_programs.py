@@ -10,7 +10,7 @@ tests/stan/reference_species_slopes.stan: the same without month, with species-s
     population means agree within Monte Carlo error. Each quantity's z = difference / sqrt(MCSE_1^2 +
     MCSE_2^2) is compared with the Bonferroni bound for a family-wise error of 0.001 over all
     quantities (Bonferroni correction; MCSE of the mean from ArviZ, Vehtari et al. 2021 rank-normalised
-    ESS).
+    ESS, from memory).
 """
 from __future__ import annotations
 
