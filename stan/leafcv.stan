@@ -58,6 +58,14 @@ data {
   int<lower=0, upper=Q> Qc;
   array[Qc] int<lower=1, upper=Q> cen_lev; // centred levels
   array[Q - Qc] int<lower=1, upper=Q> nc_lev;
+  // non-centred levels are u = tau .* (nc_rot * u_v), u_v ~ std_normal, nc_rot orthogonal. For a random
+  // intercept whose levels are all non-centred, its block of nc_rot has first column 1 / sqrt(K) (the
+  // mean of the K standard-normal z) and orthonormal contrasts after it, and the intercept is written
+  // b0 = b0_free - b0_shift * (tau .* u_v): b0_free is then the mean of the level values, which the data
+  // pin, and the mean of the z only meets its prior. An exact reparameterisation (Jacobian 1) that removes
+  // the trade-off between an intercept and the mean of a few group effects. Identity and zero otherwise.
+  matrix[Q - Qc, Q - Qc] nc_rot;
+  matrix[5 + use_tpu, Q - Qc] b0_shift;
 
   // leaf effects: Rl terms (one per parameter with a leaf effect), cells flattened as l + (p - 1) L
   int<lower=0> Rl;
@@ -91,17 +99,21 @@ transformed data {
   vector[N] ft = fvcb_temperature(tresp[4], peaked[4], tk);
 }
 parameters {
-  vector[P] b0;
+  vector[P] b0_free;
   vector[K] beta;
   vector<lower=0>[R] tau;
   vector[Qc] u_c;
-  vector[Q - Qc] u_z;
+  vector[Q - Qc] u_v;
   vector<lower=0>[Rl] tau_leaf;
   vector[Mc] eta_c;
   vector[Mn] eta_z;
   vector<lower=0>[S] sigma;
   array[student_t] real<lower=1> nu;
   array[leaf_corr] cholesky_factor_corr[Rl] leaf_chol;
+}
+transformed parameters {
+  vector[Q - Qc] u_z = nc_rot * u_v;
+  vector[P] b0 = b0_free - b0_shift * (tau[lev_term[nc_lev]] .* u_v);
 }
 model {
   vector[Q] u;
@@ -181,7 +193,7 @@ model {
   beta ~ normal(0, beta_sd);
   tau ~ normal(0, tau_sd);
   u_c ~ normal(0, tau[lev_term[cen_lev]]);
-  u_z ~ std_normal();
+  u_v ~ std_normal();
   tau_leaf ~ normal(0, leaf_tau_sd);
   eta_z ~ std_normal();
   sigma ~ normal(0, sigma_sd);

@@ -33,9 +33,9 @@ DATA = """
 [data]
 file = "points.csv"
 [data.columns]
-a_net = "A"
-ci = "Ci"
-ppfd = "Q"
+net_assimilation = "A"
+intercellular_co2 = "Ci"
+photon_flux = "Q"
 leaf = "leaf_id"
 [data.leaf]
 groups = ["species", "month", "site"]
@@ -94,8 +94,11 @@ def test_example_data_sampler_cv(example) -> None:
     assert comparison.format == 1
     assert comparison.data.file == path.parent / "observations.csv"
     assert comparison.data.file.is_absolute()
+    # The example's data roles, stored under leafcv's observation variables (the Dataset.obs columns
+    # each role fills); oxygen is commented out in the example, so it is not mapped.
     assert comparison.data.columns == {
-        "a_net": "A_net", "ci": "Ci", "ppfd": "PPFD", "t_leaf": "T_leaf", "leaf": "leaf_id", "curve": "curve",
+        "a_net": "assim_umol", "ci": "ci_leaf", "ppfd": "light_in", "t_leaf": "leaf_temp_c",
+        "leaf": "leaf_id", "curve": "curve",
     }
     assert comparison.data.ci_unit == "umol/mol"
     assert comparison.data.pressure_kpa is None
@@ -151,6 +154,10 @@ def test_describe_example(example) -> None:
     # (log for rates, logit for alpha and theta).
     comparison, _ = example
     lines = describe(comparison).splitlines()
+    # `leafcv check` names the data roles as the example writes them
+    assert ("  columns: net_assimilation = 'assim_umol', intercellular_co2 = 'ci_leaf', photon_flux = 'light_in', "
+            "leaf_temperature = 'leaf_temp_c', leaf = 'leaf_id', curve = 'curve'") in lines
+    assert "  intercellular_co2 in umol/mol" in lines
     blocks = {}
     for line in lines:
         if line.startswith("structure "):
@@ -187,7 +194,7 @@ def test_optional_tables_and_defaults(tmp_path: Path) -> None:
     # defaults of an absent [sampler] and [cv] (SamplerSpec(), CVSpec()).
     data = DATA.replace('file = "points.csv"', 'file = "../shared/points.csv"') + """
 [data.units]
-ci = "Pa"
+intercellular_co2 = "Pa"
 pressure_kpa = 95.5
 [data.leaf.centre]
 leaf_n = 2
@@ -229,8 +236,14 @@ BAD_CASES = {
         ["unknown key 'samplr'; did you mean 'sampler'? valid keys: format, data, sampler, cv, model, priors, structure, grid"],
     ),
     "unknown key in a nested table": (
-        compose(data=DATA + '[data.units]\ncii = "Pa"\n'),
-        ["data.units: unknown key 'cii'; did you mean 'ci'? valid keys: ci, pressure_kpa"],
+        compose(data=DATA + '[data.units]\nintercellular_c02 = "Pa"\n'),
+        ["data.units: unknown key 'intercellular_c02'; did you mean 'intercellular_co2'? "
+         "valid keys: intercellular_co2, pressure_kpa"],
+    ),
+    "unknown data role": (
+        compose(data=DATA.replace('leaf = "leaf_id"', 'leaf = "leaf_id"\nleaf_temp = "T"')),
+        ["data.columns: unknown key 'leaf_temp'; did you mean 'leaf_temperature'? valid keys: net_assimilation, "
+         "intercellular_co2, photon_flux, leaf, leaf_temperature, oxygen, curve"],
     ),
     "unknown parameter": (
         compose(structures=STRUCTURE + 'vcmax = { random = ["leaf"] }\n'),
@@ -364,24 +377,28 @@ BAD_CASES = {
         ["structure 'traits', alpha: unknown key 'fixd'; did you mean 'fixed'? valid keys: fixed, random, ratio_to, centring"],
     ),
     "required column missing": (
-        compose(data=DATA.replace('ppfd = "Q"\n', "")),
-        ["data.columns: required variable 'ppfd' is missing"],
+        compose(data=DATA.replace('photon_flux = "Q"\n', "")),
+        ["data.columns: required data role 'photon_flux' is missing; add photon_flux = \"<your column>\""],
     ),
     "empty column name": (
-        compose(data=DATA.replace('ppfd = "Q"', 'ppfd = ""')),
-        ["data.columns.ppfd: is empty"],
+        compose(data=DATA.replace('photon_flux = "Q"', 'photon_flux = ""')),
+        ["data.columns.photon_flux: is empty"],
     ),
-    "two variables on one column": (
-        compose(data=DATA.replace('ppfd = "Q"', 'ppfd = "A"')),
-        ["data.columns: a_net and ppfd both name the column 'A'"],
+    "two roles on one column": (
+        compose(data=DATA.replace('photon_flux = "Q"', 'photon_flux = "A"')),
+        ["data.columns: net_assimilation and photon_flux both name the column 'A'"],
     ),
-    "unknown ci unit": (
-        compose(data=DATA + '[data.units]\nci = "ppm"\n'),
-        ["data.units.ci: must be 'umol/mol' or 'Pa', got 'ppm'"],
+    "unknown intercellular CO2 unit": (
+        compose(data=DATA + '[data.units]\nintercellular_co2 = "ppm"\n'),
+        ["data.units.intercellular_co2: must be 'umol/mol' or 'Pa', got 'ppm'"],
     ),
     "Pa without pressure": (
-        compose(data=DATA + '[data.units]\nci = "Pa"\n'),
-        ["data.units: ci = 'Pa' needs pressure_kpa"],
+        compose(data=DATA + '[data.units]\nintercellular_co2 = "Pa"\n'),
+        ["data.units: intercellular_co2 = 'Pa' needs pressure_kpa"],
+    ),
+    "no [data.columns]": (
+        compose(data=DATA[:DATA.index("[data.columns]")] + DATA[DATA.index("[data.leaf]"):]),
+        ["[data.columns] is missing", "at least net_assimilation, intercellular_co2, photon_flux, leaf"],
     ),
     "data file missing": (
         compose(data=DATA.replace('file = "points.csv"\n', "")),
@@ -435,6 +452,113 @@ def test_several_problems_reported_together(tmp_path: Path) -> None:
     assert len(problems) == len(expected)
     for fragment in expected:
         assert sum(fragment in p for p in problems) == 1, fragment
+
+
+# ----------------------------------------------------------------------------------------------
+# Data roles: plain-English keys; the earlier keys are refused with their replacement named
+# (the example's header and DESIGN.md "Data roles")
+# ----------------------------------------------------------------------------------------------
+
+RENAMED = {
+    "a_net": "net_assimilation",
+    "ci": "intercellular_co2",
+    "ppfd": "photon_flux",
+    "t_leaf": "leaf_temperature",
+    "o2": "oxygen",
+}
+ROLE_LINES = {"net_assimilation": 'net_assimilation = "A"\n', "intercellular_co2": 'intercellular_co2 = "Ci"\n',
+              "photon_flux": 'photon_flux = "Q"\n'}
+
+
+def data_with_columns(lines: str) -> str:
+    """DATA with its [data.columns] entries replaced by ``lines`` (leaf kept)."""
+    head, rest = DATA.split("[data.columns]\n")
+    return head + "[data.columns]\n" + lines + 'leaf = "leaf_id"\n' + rest[rest.index("[data.leaf]"):]
+
+
+@pytest.mark.parametrize("old", list(RENAMED))
+def test_old_column_key_refused_with_new_key(tmp_path: Path, old: str) -> None:
+    # The old key replaces its new key (a required role stays mapped only through the old key), so
+    # the one refusal must say everything: no "required role missing", no "unknown key" besides it.
+    new = RENAMED[old]
+    lines = "".join(ROLE_LINES.values()).replace(ROLE_LINES.get(new, "\0"), "") + f'{old} = "X"\n'
+    problems = problems_of(tmp_path, compose(data=data_with_columns(lines)))
+    assert problems == [f"compare.toml: [data.columns] key {old!r} was renamed: use {new!r}"]
+
+
+@pytest.mark.parametrize("old", list(RENAMED))
+def test_old_units_key_refused_with_new_key(tmp_path: Path, old: str) -> None:
+    problems = problems_of(tmp_path, compose(data=DATA + f'[data.units]\n{old} = "umol/mol"\n'))
+    assert len(problems) == 1
+    assert problems[0].startswith(f"compare.toml: [data.units] key {old!r} was renamed: use {RENAMED[old]!r}")
+    # [data.units] declares only the unit of intercellular CO2 (and the pressure for Pa), so a role
+    # without a unit there is also told which keys the table takes
+    if old == "ci":
+        assert problems[0] == "compare.toml: [data.units] key 'ci' was renamed: use 'intercellular_co2'"
+    else:
+        assert problems[0].endswith("; note that [data.units] takes only intercellular_co2 and pressure_kpa")
+
+
+def test_every_old_key_reported_in_the_one_error(tmp_path: Path) -> None:
+    # A file written with every old key, plus an unrelated mistake: one SpecError lists them all.
+    lines = 'a_net = "A"\nci = "Ci"\nppfd = "Q"\nt_leaf = "T"\no2 = "O"\n'
+    data = data_with_columns(lines) + '[data.units]\nci = "Pa"\npressure_kpa = 98.0\n'
+    text = compose(data=data, sampler=SAMPLER.replace("chains = 2", "chains = 0"))
+    path = write(tmp_path, text, name="demo.toml")
+    with pytest.raises(SpecError) as info:
+        load_comparison(path)
+    problems = info.value.problems
+    assert info.value.source == str(path)
+    expected = [f"demo.toml: [data.columns] key {old!r} was renamed: use {new!r}" for old, new in RENAMED.items()]
+    expected += ["demo.toml: [data.units] key 'ci' was renamed: use 'intercellular_co2'",
+                 "sampler.chains: expected a positive integer, got 0"]
+    assert sorted(problems) == sorted(expected)
+    assert "demo.toml: [data.columns] key 'ci' was renamed: use 'intercellular_co2'" in str(info.value)
+
+
+def test_old_key_beside_its_new_key_is_still_refused(tmp_path: Path) -> None:
+    # Keeping the old key next to the new one would leave a stale line in the file.
+    data = DATA.replace('photon_flux = "Q"', 'photon_flux = "Q"\nppfd = "Q2"')
+    problems = problems_of(tmp_path, compose(data=data))
+    assert problems == ["compare.toml: [data.columns] key 'ppfd' was renamed: use 'photon_flux'"]
+
+
+def test_every_new_key_loads(tmp_path: Path) -> None:
+    # All seven data roles, and the unit of intercellular CO2 in Pa; stored by observation variable.
+    lines = ('net_assimilation = "A"\nintercellular_co2 = "Ci"\nphoton_flux = "Q"\nleaf_temperature = "T"\n'
+             'oxygen = "O"\ncurve = "run"\n')
+    data = data_with_columns(lines) + '[data.units]\nintercellular_co2 = "Pa"\npressure_kpa = 98.0\n'
+    comparison = load_comparison(write(tmp_path, compose(data=data)))
+    assert comparison.data.columns == {"a_net": "A", "ci": "Ci", "ppfd": "Q", "t_leaf": "T", "o2": "O",
+                                       "curve": "run", "leaf": "leaf_id"}
+    assert comparison.data.ci_unit == "Pa" and comparison.data.pressure_kpa == 98.0
+    assert ("columns: net_assimilation = 'A', intercellular_co2 = 'Ci', photon_flux = 'Q', "
+            "leaf_temperature = 'T', oxygen = 'O', curve = 'run', leaf = 'leaf_id'") in describe(comparison)
+
+
+def test_roles_fill_their_observation_columns(tmp_path: Path) -> None:
+    # End to end on the demo's invented data: each role's column of the user's file arrives in the
+    # observation variable of that role (the demo's own column names are kept on the right-hand side).
+    from leafcv.cli import load
+    from leafcv.demo import write_demo
+
+    write_demo(tmp_path, quick=True)
+    table = pd.read_csv(tmp_path / "observations.csv")
+    table["o2_mmol"] = 205.0
+    table.to_csv(tmp_path / "observations.csv", index=False)
+    text = (tmp_path / "demo.toml").read_text()
+    assert 'intercellular_co2 = "ci_ppm"' in text and 'net_assimilation = "assim"' in text
+    text = text.replace('leaf_temperature = "tl_c"\n', 'leaf_temperature = "tl_c"\noxygen = "o2_mmol"\n')
+    path = write(tmp_path, text)
+    comparison, dataset = load(path)
+    assert comparison.data.columns["o2"] == "o2_mmol"
+    order = dataset.obs["row"].to_numpy() - 2             # file line -> table row (header is line 1)
+    np.testing.assert_array_equal(dataset.obs["a_net"], table["assim"].to_numpy()[order])
+    np.testing.assert_array_equal(dataset.obs["ci"], table["ci_ppm"].to_numpy()[order])
+    np.testing.assert_array_equal(dataset.obs["ppfd"], table["par_in"].to_numpy()[order])
+    np.testing.assert_array_equal(dataset.obs["t_leaf"], table["tl_c"].to_numpy()[order])
+    assert (dataset.obs["o2"] == 205.0).all()
+    assert not any("column mapped" in note and "oxygen" in note for note in dataset.notes)
 
 
 def test_toml_syntax_error_names_line(tmp_path: Path) -> None:

@@ -143,8 +143,8 @@ def test_defaults_for_unmapped_temperature_and_oxygen(tmp_path):
     data = load_dataset(make_spec(write(tmp_path, table), columns=without("t_leaf")))
     assert (data.obs["t_leaf"] == 25.0).all()
     assert (data.obs["o2"] == 210.0).all()
-    assert any("t_leaf" in n and "25 deg C" in n for n in data.notes)
-    assert any("o2" in n and "210 mmol/mol" in n for n in data.notes)
+    assert "no leaf_temperature column mapped: leaf_temperature set to 25 deg C for every point" in data.notes
+    assert "no oxygen column mapped: oxygen set to 210 mmol/mol for every point" in data.notes
 
 
 def test_mapped_oxygen_read_and_no_default_note(tmp_path):
@@ -152,7 +152,7 @@ def test_mapped_oxygen_read_and_no_default_note(tmp_path):
     table["O2x"] = 20.0
     data = load_dataset(make_spec(write(tmp_path, table), columns={**COLUMNS, "o2": "O2x"}))
     assert (data.obs["o2"] == 20.0).all()
-    assert not any(n.startswith("no o2") or n.startswith("no t_leaf") for n in data.notes)
+    assert not any(n.startswith("no oxygen") or n.startswith("no leaf_temperature") for n in data.notes)
 
 
 def test_curve_types_from_curve_column(tmp_path):
@@ -228,7 +228,7 @@ def test_rows_are_file_lines_despite_blank_lines_and_quoted_line_breaks(tmp_path
     path.write_text("\n".join(text))
     # index 10 is normally line 12; one line more for the line break in index 2, one for the blank line
     assert path.read_text().splitlines()[13].startswith("L4,c2,oops")
-    message = the_problem(problems_of(make_spec(path)), "'Anet' (a_net)")
+    message = the_problem(problems_of(make_spec(path)), "'Anet' (net_assimilation)")
     assert "row 14 ('oops')" in message
 
 
@@ -263,7 +263,7 @@ def test_header_only(tmp_path):
 
 def test_mapped_column_missing_suggests_close_name(tmp_path):
     spec = make_spec(write(tmp_path, make_table()), columns={**COLUMNS, "a_net": "A_net"})
-    message = the_problem(problems_of(spec), "'A_net' (a_net)", "not in the file")
+    message = the_problem(problems_of(spec), "'A_net' (net_assimilation)", "not in the file")
     assert "did you mean 'Anet'" in message
     assert "'Ci_in'" in message and "'chl_a'" in message          # the file's columns are listed
 
@@ -277,28 +277,28 @@ def test_missing_trait_column_named(tmp_path):
 def test_semicolon_file_gets_separator_hint(tmp_path):
     path = tmp_path / "obs.csv"
     make_table().to_csv(path, index=False, sep=";")
-    message = the_problem(problems_of(make_spec(path)), "'Anet' (a_net)")
+    message = the_problem(problems_of(make_spec(path)), "'Anet' (net_assimilation)")
     assert "comma-separated" in message
 
 
 def test_two_variables_mapped_to_one_column(tmp_path):
     spec = make_spec(write(tmp_path, make_table()), columns={**COLUMNS, "t_leaf": "Anet"})
     message = the_problem(problems_of(spec), "'Anet'", "mapped to")
-    assert "a_net and t_leaf" in message
+    assert "net_assimilation and leaf_temperature" in message
 
 
 def test_unknown_and_unmapped_variables(tmp_path):
     columns = {**without("ppfd"), "vpd": "VPD"}
     found = problems_of(make_spec(write(tmp_path, make_table()), columns=columns))
     assert "valid variables" in the_problem(found, "'vpd'")
-    the_problem(found, "must map ppfd")
+    the_problem(found, 'must map photon_flux to a column of the file (e.g. photon_flux = "your column name")')
 
 
 def test_non_numeric_value(tmp_path):
     table = make_table()
     table["Ci_in"] = table["Ci_in"].astype(object)
     table.loc[3, "Ci_in"], table.loc[7, "Ci_in"] = "abc", "1,5"
-    message = the_problem(problems_of(make_spec(write(tmp_path, table))), "'Ci_in' (ci)")
+    message = the_problem(problems_of(make_spec(write(tmp_path, table))), "'Ci_in' (intercellular_co2)")
     assert f"rows {line(3)} ('abc'), {line(7)} ('1,5')" in message
     assert "decimal mark" in message
 
@@ -307,7 +307,7 @@ def test_infinite_value_is_not_a_number(tmp_path):
     table = make_table()
     table["Light"] = table["Light"].astype(object)
     table.loc[5, "Light"] = "inf"
-    message = the_problem(problems_of(make_spec(write(tmp_path, table))), "'Light' (ppfd)")
+    message = the_problem(problems_of(make_spec(write(tmp_path, table))), "'Light' (photon_flux)")
     assert f"row {line(5)} ('inf')" in message
 
 
@@ -315,7 +315,7 @@ def test_missing_values_in_required_column(tmp_path):
     table = make_table()
     table["Anet"] = table["Anet"].astype(object)
     table.loc[4, "Anet"], table.loc[20, "Anet"] = "", "NaN"
-    message = the_problem(problems_of(make_spec(write(tmp_path, table))), "'Anet' (a_net)", "missing")
+    message = the_problem(problems_of(make_spec(write(tmp_path, table))), "'Anet' (net_assimilation)", "missing")
     assert f"rows {line(4)}, {line(20)}" in message
 
 
@@ -323,7 +323,7 @@ def test_missing_value_in_optional_column_mentions_default(tmp_path):
     table = make_table()
     table["Tl"] = table["Tl"].astype(object)
     table.loc[6, "Tl"] = ""
-    message = the_problem(problems_of(make_spec(write(tmp_path, table))), "'Tl' (t_leaf)", "missing")
+    message = the_problem(problems_of(make_spec(write(tmp_path, table))), "'Tl' (leaf_temperature)", "missing")
     assert f"row {line(6)}" in message and "25 deg C" in message
 
 
@@ -331,14 +331,15 @@ def test_many_rows_are_abbreviated(tmp_path):
     table = make_table()
     table["Anet"] = table["Anet"].astype(object)
     table.loc[0:11, "Anet"] = ""
-    message = the_problem(problems_of(make_spec(write(tmp_path, table))), "'Anet' (a_net)", "missing")
+    message = the_problem(problems_of(make_spec(write(tmp_path, table))), "'Anet' (net_assimilation)", "missing")
     assert "rows 2, 3, 4, 5, 6, 7, 8, 9 and 4 more" in message
 
 
 def test_ci_outside_range(tmp_path):
     table = make_table()
     table.loc[0, "Ci_in"], table.loc[9, "Ci_in"] = -5.0, 3500.0
-    message = the_problem(problems_of(make_spec(write(tmp_path, table))), "'Ci_in' (ci)", "plausible range")
+    found = problems_of(make_spec(write(tmp_path, table)))
+    message = the_problem(found, "'Ci_in' (intercellular_co2)", "plausible range")
     assert f"rows {line(0)} (-5), {line(9)} (3500)" in message
 
 
@@ -347,35 +348,37 @@ def test_ci_range_in_pa_reported_in_file_units(tmp_path):
     table["Ci_in"] = (table["Ci_in"] / 10).round(3)
     table.loc[9, "Ci_in"] = 400.0                        # 400 Pa at 100 kPa = 4000 umol/mol
     message = the_problem(problems_of(make_spec(write(tmp_path, table), ci_unit="Pa", pressure_kpa=100.0)),
-                          "'Ci_in' (ci)", "plausible range")
+                          "'Ci_in' (intercellular_co2)", "plausible range")
     assert f"row {line(9)} (400)" in message and "0-300 Pa at 100 kPa" in message
 
 
 def test_ppfd_outside_range(tmp_path):
     table = make_table()
     table.loc[11, "Light"], table.loc[12, "Light"] = -10.0, 3200.0
-    message = the_problem(problems_of(make_spec(write(tmp_path, table))), "'Light' (ppfd)", "plausible range")
+    message = the_problem(problems_of(make_spec(write(tmp_path, table))), "'Light' (photon_flux)", "plausible range")
     assert f"rows {line(11)} (-10), {line(12)} (3200)" in message
 
 
 def test_implausible_net_assimilation(tmp_path):
     table = make_table()
     table.loc[2, "Anet"], table.loc[30, "Anet"] = -60.0, 120.0
-    message = the_problem(problems_of(make_spec(write(tmp_path, table))), "'Anet' (a_net)", "plausible range")
+    found = problems_of(make_spec(write(tmp_path, table)))
+    message = the_problem(found, "'Anet' (net_assimilation)", "plausible range")
     assert f"rows {line(2)} (-60), {line(30)} (120)" in message
 
 
 def test_leaf_temperature_outside_range(tmp_path):
     table = make_table()
     table.loc[1, "Tl"], table.loc[40, "Tl"] = 60.0, -3.0
-    message = the_problem(problems_of(make_spec(write(tmp_path, table))), "'Tl' (t_leaf)", "plausible range")
+    found = problems_of(make_spec(write(tmp_path, table)))
+    message = the_problem(found, "'Tl' (leaf_temperature)", "plausible range")
     assert f"rows {line(1)} (60), {line(40)} (-3)" in message
 
 
 def test_leaf_temperature_in_kelvin_gets_hint(tmp_path):
     table = make_table()
     table["Tl"] = table["Tl"] + 273.15
-    the_problem(problems_of(make_spec(write(tmp_path, table))), "'Tl' (t_leaf)", "kelvin")
+    the_problem(problems_of(make_spec(write(tmp_path, table))), "'Tl' (leaf_temperature)", "kelvin")
 
 
 def test_oxygen_outside_range(tmp_path):
@@ -383,7 +386,7 @@ def test_oxygen_outside_range(tmp_path):
     table["O2x"] = 210.0
     table.loc[8, "O2x"] = 2100.0
     found = problems_of(make_spec(write(tmp_path, table), columns={**COLUMNS, "o2": "O2x"}))
-    assert f"row {line(8)} (2100)" in the_problem(found, "'O2x' (o2)")
+    assert f"row {line(8)} (2100)" in the_problem(found, "'O2x' (oxygen)")
 
 
 def test_leaf_with_too_few_points(tmp_path):
@@ -419,21 +422,21 @@ def test_fully_duplicated_rows(tmp_path):
 def test_pa_values_declared_as_umol(tmp_path):
     table = make_table()
     table["Ci_in"] = (table["Ci_in"] / 10).round(3)
-    message = the_problem(problems_of(make_spec(write(tmp_path, table))), "'Ci_in' (ci)", "median")
-    assert 'looks like Pa; set units ci = "Pa" and pressure_kpa' in message
+    message = the_problem(problems_of(make_spec(write(tmp_path, table))), "'Ci_in' (intercellular_co2)", "median")
+    assert 'looks like Pa; set intercellular_co2 = "Pa" and pressure_kpa' in message
 
 
 def test_umol_values_declared_as_pa(tmp_path):
     spec = make_spec(write(tmp_path, make_table()), ci_unit="Pa", pressure_kpa=100.0)
-    message = the_problem(problems_of(spec), "'Ci_in' (ci)", "median")
-    assert "looks like umol/mol" in message
+    message = the_problem(problems_of(spec), "'Ci_in' (intercellular_co2)", "median")
+    assert 'looks like umol/mol; set intercellular_co2 = "umol/mol" under [data.units]' in message
 
 
 def test_pa_without_pressure(tmp_path):
     table = make_table()
     table["Ci_in"] = (table["Ci_in"] / 10).round(3)
     message = the_problem(problems_of(make_spec(write(tmp_path, table), ci_unit="Pa")), "pressure_kpa")
-    assert '"Pa"' in message
+    assert message.startswith('[data.units] intercellular_co2 = "Pa" needs pressure_kpa')
 
 
 def test_pressure_out_of_range(tmp_path):
@@ -451,6 +454,7 @@ def test_unused_pressure_is_noted(tmp_path):
 def test_unknown_unit(tmp_path):
     message = the_problem(problems_of(make_spec(write(tmp_path, make_table()), ci_unit="ppm")), "'ppm'")
     assert "valid units: 'umol/mol', 'Pa'" in message and "did you mean 'umol/mol'" in message
+    assert message.startswith("[data.units] intercellular_co2 = 'ppm' is not a known unit")
 
 
 def test_non_numeric_trait(tmp_path):
@@ -513,7 +517,7 @@ def test_duplicate_header_name(tmp_path):
     text = path.read_text().split("\n")
     text[0] = text[0].replace("Tl", "Anet")
     path.write_text("\n".join(text))
-    message = the_problem(problems_of(make_spec(path, columns=without("t_leaf"))), "'Anet' (a_net)")
+    message = the_problem(problems_of(make_spec(path, columns=without("t_leaf"))), "'Anet' (net_assimilation)")
     assert "appears 2 times" in message and "columns 3, 6" in message
 
 
@@ -534,8 +538,8 @@ def test_every_problem_reported_at_once(tmp_path):
     found = problems_of(spec)
     the_problem(found, "'curve_id' (curve)", "not in the file")
     the_problem(found, "needs pressure_kpa")
-    the_problem(found, "'Anet' (a_net)", f"row {line(5)} ('x')")
-    the_problem(found, "'Light' (ppfd)", f"row {line(7)} (-20)")
+    the_problem(found, "'Anet' (net_assimilation)", f"row {line(5)} ('x')")
+    the_problem(found, "'Light' (photon_flux)", f"row {line(7)} (-20)")
     the_problem(found, "'N_area' (trait)", "leaf 'L1'")
     the_problem(found, f"row {line(108)} repeats row {line(0)}")
     assert len(found) == 6
@@ -545,4 +549,4 @@ def test_user_columns_may_share_leafcv_names(tmp_path):
     table = make_table().rename(columns={v: k for k, v in COLUMNS.items()})
     table.loc[4, "a_net"] = 150.0
     found = problems_of(make_spec(write(tmp_path, table), columns={k: k for k in COLUMNS}))
-    assert f"row {line(4)} (150)" in the_problem(found, "'a_net' (a_net)", "plausible range")
+    assert f"row {line(4)} (150)" in the_problem(found, "'a_net' (net_assimilation)", "plausible range")

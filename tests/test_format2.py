@@ -58,6 +58,37 @@ def problems(demo_dir: Path, body: str, **kw) -> str:
 
 
 # ---------------------------------------------------------------------------------------------
+# Data roles: format 2 reads the same plain-English keys as format 1 and refuses the renamed ones
+# ---------------------------------------------------------------------------------------------
+
+RENAMED = {"a_net": "net_assimilation", "ci": "intercellular_co2", "ppfd": "photon_flux",
+           "t_leaf": "leaf_temperature", "o2": "oxygen"}
+
+
+def test_format2_reads_the_data_roles(demo_dir):
+    head = header(demo_dir)
+    assert "format = 2" in head and 'net_assimilation = "assim"' in head and 'intercellular_co2 = "umol/mol"' in head
+    comparison, dataset = load(write(demo_dir, '[[structure]]\nname = "a"\n' + BASE))
+    assert comparison.format == 2
+    assert comparison.data.columns["a_net"] == "assim" and comparison.data.ci_unit == "umol/mol"
+    assert dataset.n_leaves == 16
+
+
+def test_format2_refuses_every_renamed_key(demo_dir):
+    head = header(demo_dir)
+    for old, new in RENAMED.items():
+        head = head.replace(f"\n{new} = ", f"\n{old} = ")       # the [data.columns] and [data.units] lines
+    head = head.replace('leaf = "plant_leaf"', 'leaf = "plant_leaf"\no2 = "o2_col"')
+    path = demo_dir / "old-keys.toml"
+    path.write_text(head + '\n[[structure]]\nname = "a"\n' + BASE)
+    with pytest.raises(UserInputError) as exc:
+        load(path)
+    expected = [f"old-keys.toml: [data.columns] key {old!r} was renamed: use {new!r}" for old, new in RENAMED.items()]
+    expected.append("old-keys.toml: [data.units] key 'ci' was renamed: use 'intercellular_co2'")
+    assert sorted(exc.value.problems) == sorted(expected)
+
+
+# ---------------------------------------------------------------------------------------------
 # [model] and per-structure overrides
 # ---------------------------------------------------------------------------------------------
 

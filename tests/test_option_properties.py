@@ -29,10 +29,10 @@ HEADER = """format = 2
 [data]
 file = "obs.csv"
 [data.columns]
-a_net = "A"
-ci = "Ci"
-ppfd = "Q"
-t_leaf = "T"
+net_assimilation = "A"
+intercellular_co2 = "Ci"
+photon_flux = "Q"
+leaf_temperature = "T"
 leaf = "leaf_id"
 curve = "curve_id"
 [data.leaf]

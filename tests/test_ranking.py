@@ -2,10 +2,15 @@
 
 Outside references: ArviZ 0.23's ``loo`` and ``compare`` (called directly, not through
 leafcv), SciPy's SLSQP on the simplex, closed forms of the stacking objective
-(Yao, Vehtari, Simpson & Gelman 2018, Bayesian Analysis 13:917-1007, eq. 4), the k-hat
-threshold min(1 - 1/log10 S, 0.7) (Vehtari et al. 2024, JMLR 25(72)), |Δelpd| < 4 as small
-(Sivula, Magnusson, Matamoros & Vehtari 2020) and the many-structures caveat
-(McLatchie & Vehtari 2024). All per-leaf values are simulated here.
+(Yao, Vehtari, Simpson & Gelman 2018, Bayesian Analysis 13:917-1007, eq. 4), the SE of a total
+and of paired differences with the sample variance (Vehtari, Gelman & Gabry 2017, Stat Comput
+27:1413-1432, eq. 23, recalled from memory; checked against hand computations written out
+below), the k-hat threshold min(1 - 1/log10 S, 0.7) (Vehtari et al. 2024, JMLR 25(72)),
+|Δelpd| < 4 as small (Sivula, Magnusson, Matamoros & Vehtari 2020) and the many-structures
+caveat (McLatchie & Vehtari 2024). All per-leaf values are simulated or chosen here.
+
+ArviZ 0.23 computes ``se`` and ``dse`` with the population variance (ddof=0); leafcv uses the
+sample variance (ddof=1), so ArviZ's values are compared after the factor sqrt(G / (G - 1)).
 """
 from __future__ import annotations
 
@@ -18,8 +23,8 @@ from scipy.optimize import check_grad, minimize
 from leafcv.cv.arviz_bridge import compare_results, to_elpd_data
 from leafcv.cv.result import CVResult
 from leafcv.ranking import (
-    COLUMNS, NOT_RANKED, SMALL_DIFF_WARNING, WITHIN_SE_WARNING, _negative_mean_log_score,
-    format_ranking, rank, stacking_weights, summary_notes,
+    COLUMNS, MARGINAL_WARNING, NOT_RANKED, SMALL_DIFF_WARNING, WITHIN_SE_WARNING, _negative_mean_log_score,
+    format_ranking, rank, stacking_weights, summary_notes, table_columns,
 )
 
 # ArviZ 0.23's compare, called directly below as the reference, uses an inplace sort that pandas 3.1 deprecates
@@ -27,6 +32,7 @@ pytestmark = pytest.mark.filterwarnings("ignore:The inplace keyword")
 
 G = 30
 LEAVES = tuple(f"leaf{i:02d}" for i in range(G))
+DDOF1 = np.sqrt(G / (G - 1))     # sample SD / population SD: sqrt(G / (G - 1))
 
 
 def make(name: str, elpd_i, **kwargs) -> CVResult:
@@ -95,8 +101,8 @@ def complementary_matrix() -> np.ndarray:
 
 def arviz_weights(matrix: np.ndarray) -> np.ndarray:
     """Stacking weights through the ArviZ bridge, in column order."""
-    table = compare_results(results_from(matrix))
-    return table.loc[[f"m{k}" for k in range(matrix.shape[1])], "weight"].to_numpy()
+    weights = compare_results(results_from(matrix))
+    return weights.loc[[f"m{k}" for k in range(matrix.shape[1])]].to_numpy()
 
 
 # ------------------------------------------------------------------------------------------
@@ -177,7 +183,8 @@ def test_se_and_elpd_match_arviz_loo():
     loo = az.loo(idata, pointwise=True, reff=1.0)
     res = make("m", loo["loo_i"].values, pareto_k=loo["pareto_k"].values, n_draws=1000)
     assert res.elpd == pytest.approx(float(loo["elpd_loo"]), rel=1e-12)
-    assert res.se == pytest.approx(float(loo["se"]), rel=1e-12)
+    # ArviZ 0.23: loo_lppd_se = sqrt(n * var(loo_i)) with ddof=0; leafcv uses ddof=1
+    assert res.se == pytest.approx(float(loo["se"]) * DDOF1, rel=1e-12)
     assert res.khat_threshold == pytest.approx(float(loo["good_k"]), rel=1e-12)
 
 
@@ -198,23 +205,42 @@ def test_table_diffs_and_se_diff_agree_with_arviz_compare():
     table = rank(results).set_index("structure")
     ref = az.compare({r.structure: to_elpd_data(r) for r in results}, ic="loo", method="stacking", scale="log")
     assert list(table.index) == list(ref.index)
+    # ArviZ reports best - model (>= 0); leafcv model - best (<= 0)
     np.testing.assert_allclose(table["elpd_diff"], -ref["elpd_diff"].astype(float), atol=1e-9)
-    np.testing.assert_allclose(table["se_diff"], ref["dse"].astype(float), atol=1e-9)
-    np.testing.assert_allclose(table["se"], ref["se"].astype(float), atol=1e-9)
+    # ArviZ 0.23: dse = sqrt(n * var(diff)) with ddof=0
+    np.testing.assert_allclose(table["se_diff"], ref["dse"].astype(float) * DDOF1, atol=1e-9)
     np.testing.assert_allclose(table["weight"], ref["weight"].astype(float), atol=1e-3)
+    assert table["elpd_diff"].iloc[0] == 0.0 and not np.signbit(table["elpd_diff"].iloc[0])
 
 
-def test_bridge_converts_arviz_difference_to_structure_minus_best():
+def test_bridge_returns_arviz_stacking_weights_in_input_order():
     rng = np.random.default_rng(14)
     base = rng.normal(-20, 2, G)
-    results = {f"s{k}": make(f"s{k}", base + rng.normal(-0.5 * k, 1.0, G)) for k in range(3)}
-    table = compare_results(results)
+    results = {f"s{k}": make(f"s{k}", base + rng.normal(-0.5 * k, 1.0, G)) for k in (2, 0, 1)}
+    weights = compare_results(results)
     ref = az.compare({k: to_elpd_data(r) for k, r in results.items()}, ic="loo", method="stacking", scale="log")
-    assert list(table.index) == list(ref.index)
-    np.testing.assert_allclose(table["elpd_diff"], -ref["elpd_diff"].astype(float), atol=1e-9)
-    np.testing.assert_allclose(table["se_diff"], ref["dse"].astype(float), atol=1e-9)
-    assert table["elpd_diff"].iloc[0] == 0.0 and (table["elpd_diff"].iloc[1:] < 0).all()
-    assert not np.signbit(table["elpd_diff"].iloc[0])
+    assert list(weights.index) == ["s2", "s0", "s1"] and weights.name == "weight"
+    np.testing.assert_allclose(weights.to_numpy(), ref.loc[list(results), "weight"].astype(float), atol=1e-12)
+
+
+def test_se_and_se_diff_by_hand_with_sample_variance():
+    # Four leaves (Vehtari, Gelman & Gabry 2017, eq. 23, recalled from memory: SE = sqrt(G var), sample variance).
+    # a = (-10, -14, -12, -12): total -48, mean -12, deviations (2, -2, 0, 0), sum of squares 8,
+    #     var (ddof=1) = 8/3, se = sqrt(4 * 8/3) = sqrt(32/3) = 3.266   (ddof=0 would give sqrt(8) = 2.828)
+    # b = a + d with d = (0, -4, 1, -1) = (-10, -18, -11, -13): total -52, mean -13, deviations (3, -5, 2, 0),
+    #     sum of squares 38, se = sqrt(4 * 38/3) = sqrt(152/3) = 7.118
+    # paired: elpd_diff = sum d = -4; d mean -1, deviations (1, -3, 2, 0), sum of squares 14,
+    #     se_diff = sqrt(4 * 14/3) = sqrt(56/3) = 4.320   (ddof=0 would give sqrt(14) = 3.742)
+    leaves = ("L1", "L2", "L3", "L4")
+    a = make("a", [-10.0, -14.0, -12.0, -12.0], leaves=leaves)
+    b = make("b", [-10.0, -18.0, -11.0, -13.0], leaves=leaves)
+    table = rank([b, a]).set_index("structure")
+    assert table.loc["a", "elpd"] == -48.0 and table.loc["b", "elpd"] == -52.0
+    assert table.loc["a", "se"] == pytest.approx(np.sqrt(32 / 3), rel=1e-12)
+    assert table.loc["b", "se"] == pytest.approx(np.sqrt(152 / 3), rel=1e-12)
+    assert table.loc["b", "elpd_diff"] == -4.0
+    assert table.loc["b", "se_diff"] == pytest.approx(np.sqrt(56 / 3), rel=1e-12)
+    assert table.loc["a", "se_diff"] == 0.0
 
 
 def test_constant_per_leaf_difference_has_zero_se():
@@ -231,6 +257,8 @@ def test_sign_convention_and_order():
     results = [make(f"s{k}", base + rng.normal(0, 1, G)) for k in range(5)]
     table = rank(results)
     assert list(table.columns) == COLUMNS
+    assert COLUMNS == ["structure", "rank", "elpd", "se", "mcse", "elpd_diff", "se_diff", "weight", "rmse", "r2",
+                       "n_refits", "max_khat", "converged", "warnings"]     # DESIGN.md, "Interfaces"
     assert table["elpd"].is_monotonic_decreasing
     assert table["elpd_diff"].iloc[0] == 0.0 and table["se_diff"].iloc[0] == 0.0
     assert (table["elpd_diff"] <= 0).all()
@@ -255,32 +283,103 @@ def test_ties_share_a_rank_and_keep_input_order():
 # ------------------------------------------------------------------------------------------
 # convergence and comparability
 
-def test_non_converged_structure_is_placed_last_without_rank_or_weight():
+def test_failed_structure_is_placed_last_without_rank_or_weight():
     rng = np.random.default_rng(10)
     base = rng.normal(-20, 2, G)
     results = [
-        make("failed", base + 5.0, converged=False, warnings=("R-hat 1.08 for sigma",)),
+        make("failed", base + rng.normal(0.0, 1.0, G), grade="failed", warnings=("R-hat 1.08 for sigma",)),
         make("good", base), make("fair", base - rng.uniform(0, 1, G)),
     ]
     table = rank(results)
     assert list(table["structure"]) == ["good", "fair", "failed"]
     last = table.iloc[-1]
     assert last["rank"] is pd.NA
-    assert not last["converged"] and np.isnan(last["weight"])
+    assert last["converged"] == 0 and np.isnan(last["weight"])
     assert last["warnings"].startswith(f"{NOT_RANKED}; R-hat 1.08 for sigma")
     assert table["weight"].iloc[:2].sum() == pytest.approx(1.0, abs=1e-6)
     assert list(table["rank"].iloc[:2]) == [1, 2]
     notes = summary_notes(table, G)
-    assert any("failed" in n and "did not converge" in n for n in notes)
+    assert any("failed (fits did not converge)" in n for n in notes)
 
 
-def test_all_non_converged_are_ranked_but_flagged():
+def test_when_every_fit_failed_nothing_is_ranked():
     base = np.linspace(-30, -10, G)
-    table = rank([make("a", base, converged=False), make("b", base - 0.5, converged=False)])
-    assert list(table["rank"]) == [1, 2]
-    assert table["weight"].notna().all()
-    assert all("did not converge" in w for w in table["warnings"])
-    assert any("No structure" in n for n in summary_notes(table, G))
+    table = rank([make("a", base, grade="failed"), make("b", base - 0.5, grade="failed")])
+    assert table["rank"].isna().all() and table["weight"].isna().all()
+    assert list(table["structure"]) == ["a", "b"]
+    assert table["elpd_diff"].iloc[1] == pytest.approx(-0.5 * G)      # for information, to the highest elpd
+    assert all(w.startswith(NOT_RANKED) for w in table["warnings"])
+    notes = summary_notes(table, G)
+    assert notes[0].startswith("No structure could be ranked")
+    assert not any("best" in n for n in notes)
+
+
+def test_marginal_structure_is_ranked_with_one_marginal_warning():
+    base = np.linspace(-30, -10, G)
+    caller = "marginal convergence: bulk ESS 310 for tau_leaf"
+    table = rank([make("m1", base, grade="marginal"), make("m2", base - 0.5, grade="marginal", warnings=(caller,)),
+                  make("ok", base - 9.0)]).set_index("structure")
+    assert list(table["rank"]) == [1, 2, 3] and table["weight"].notna().all()
+    assert table.loc["m1", "warnings"].startswith(MARGINAL_WARNING)
+    assert table.loc["m2", "warnings"].startswith(caller)
+    assert table.loc["m2", "warnings"].count("marginal convergence") == 1     # the caller's text is not duplicated
+    assert "marginal" not in table.loc["ok", "warnings"]
+    assert list(table["converged"]) == [0, 0, 1]          # 1 only for grade "converged"
+    assert any("only marginally" in n and "m1, m2" in n for n in summary_notes(table.reset_index(), G))
+
+
+def test_unscored_structure_is_listed_apart_with_its_reason():
+    base = np.linspace(-30, -10, G)
+    broken = base + 0.25
+    broken[7] = np.nan                     # a leaf whose quadrature did not converge has no usable value
+    reason = "quadrature did not converge for leaf leaf07"
+    table = rank([make("q", broken, unscored=reason), make("a", base), make("b", base - 0.5)])
+    assert list(table["structure"]) == ["a", "b", "q"]
+    last = table.iloc[-1]
+    assert last["rank"] is pd.NA and np.isnan(last["weight"]) and np.isnan(last["elpd"])
+    assert last["converged"] == 1                       # its fits converged; it is unranked for another reason
+    assert last["warnings"].startswith(f"not ranked: {reason}")
+    both = rank([make("q", base, unscored=reason, grade="failed"), make("a", base - 1.0)])
+    assert both.iloc[-1]["warnings"].startswith(f"{NOT_RANKED} and {reason}")
+    notes = summary_notes(table, G)
+    assert any("q (not scored reliably)" in n for n in notes)
+    with pytest.raises(ValueError, match="not finite in: q"):
+        rank([make("q", broken), make("a", base)])      # a ranked structure must have finite elpd
+
+
+def test_unranked_structure_scoring_clearly_higher_is_announced_first():
+    base = np.linspace(-30, -10, G)
+    # d = failed - good alternates 1.5 and 0.5: elpd_diff = 30 * 1 = 30; deviations +-0.5, sum of squares 7.5,
+    # se_diff = sqrt(30 * 7.5 / 29) = sqrt(225 / 29) = 2.79, and 30 > 2 * 2.79 (common practice, no source)
+    failed = base + np.where(np.arange(G) % 2 == 0, 1.5, 0.5)
+    table = rank([make("failed", failed, grade="failed"), make("good", base), make("worse", base - 9.0)])
+    row = table.set_index("structure").loc["failed"]
+    assert row["elpd_diff"] == pytest.approx(30.0) and row["se_diff"] == pytest.approx(np.sqrt(225 / 29))
+    notes = summary_notes(table, G)
+    assert notes[0] == ("Among ranked structures good has the highest elpd, but unranked failed scored 30.0 nats "
+                        "higher (SE 2.8): its fits did not pass their diagnostics, so neither can be recommended "
+                        "without a refit.")
+    assert not any("best" in n for n in notes)
+    assert notes[1].startswith("Among ranked structures, good's lead over worse") and "is clear" in notes[1]
+
+
+def test_unranked_structure_within_two_se_is_not_announced():
+    base = np.linspace(-30, -10, G)
+    # d alternates +3 and -2.5: elpd_diff = 15 * 0.5 = 7.5; deviations +-2.75, se_diff = sqrt(30 * 30 * 7.5625 / 29)
+    # = 15.3, so 7.5 < 2 SE: no announcement, the usual lead sentence
+    failed = base + np.where(np.arange(G) % 2 == 0, 3.0, -2.5)
+    table = rank([make("failed", failed, grade="failed"), make("good", base), make("worse", base - 9.0)])
+    assert table.iloc[-1]["se_diff"] == pytest.approx(np.sqrt(30 * 30 * 7.5625 / 29))
+    assert summary_notes(table, G)[0].startswith("good predicts new leaves best")
+
+
+def test_notes_count_levels_of_the_unit():
+    levels = tuple(f"sp{i}" for i in range(8))
+    base = np.linspace(-300, -100, 8)
+    table = rank([make("a", base + 8.0, leaves=levels, unit="species"), make("b", base, leaves=levels, unit="species")])
+    notes = summary_notes(table, 8, "species")
+    assert notes[0].startswith("a predicts new levels of species best")
+    assert any("fewer than 100 levels of species (here 8)" in n for n in notes)
 
 
 def test_mismatched_leaves_raise_naming_structures():
@@ -290,8 +389,10 @@ def test_mismatched_leaves_raise_naming_structures():
         rank([make("ref", base), make("fine", base), make("odd_one", base, leaves=other)])
     with pytest.raises(ValueError, match="reordered"):
         rank([make("ref", base), make("reordered", base, leaves=LEAVES[::-1])])
-    with pytest.raises(ValueError, match=r"exact_one \(exact\)"):
-        rank([make("ref", base), make("exact_one", base, method="exact")])
+    with pytest.raises(ValueError, match=r"K-fold results \(folded\) cannot be compared .*ref \(auto\)"):
+        rank([make("ref", base), make("folded", base, method="kfold")])
+    # auto and exact estimate the same leave-one-leaf-out quantity on the same leaves
+    assert len(rank([make("ref", base), make("exact_one", base - 1.0, method="exact")])) == 2
 
 
 def test_result_rejects_inconsistent_shapes():
@@ -330,7 +431,7 @@ def test_within_two_se_warning_follows_paired_se():
         if r.structure == best:
             continue
         d = r.elpd_i - next(x for x in results if x.structure == best).elpd_i
-        within = abs(d.sum()) < 2 * np.sqrt(G * np.var(d))
+        within = abs(d.sum()) < 2 * np.sqrt(G * np.var(d, ddof=1))
         assert (WITHIN_SE_WARNING in table.loc[r.structure, "warnings"]) == within
 
 
@@ -341,9 +442,32 @@ def test_khat_warning_uses_draw_dependent_threshold():
     k[3] = 0.6
     few = rank([make("few", base, pareto_k=k, n_draws=100), make("other", base - 5.0, n_draws=100)])
     many = rank([make("many", base, pareto_k=k), make("other", base - 5.0)])
-    assert "k-hat above 0.50 for 1 of 30 leaves (max 0.60" in few["warnings"].iloc[0]
+    assert "k-hat above 0.50 for 1 of 30 leaves scored by PSIS (max 0.60" in few["warnings"].iloc[0]
     assert "k-hat" not in many["warnings"].iloc[0]
     assert many["max_khat"].iloc[0] == 0.6 and np.isnan(many["max_khat"].iloc[1])
+
+
+def test_khat_counts_only_psis_scored_leaves():
+    # two leaves refitted exactly carry no k-hat; the largest k-hat of the PSIS-scored ones is 0.55
+    base = np.linspace(-30, -10, G)
+    k = np.full(G, 0.1)
+    k[[0, 1]] = np.nan
+    k[5] = 0.55
+    method_i = ("refit", "refit") + ("psis",) * (G - 2)
+    table = rank([make("a", base, pareto_k=k, method_i=method_i, n_draws=100), make("b", base - 5.0, n_draws=100)])
+    assert table["max_khat"].iloc[0] == 0.55
+    # S = 100: threshold min(1 - 1/log10 100, 0.7) = 0.5 (Vehtari et al. 2024)
+    assert "k-hat above 0.50 for 1 of 28 leaves scored by PSIS (max 0.55" in table["warnings"].iloc[0]
+
+
+def test_mcse_column_adds_entry_variances():
+    # sqrt(0.03^2 + 0.04^2 + 0.12^2 + 0^2 ...) = sqrt(0.0009 + 0.0016 + 0.0144) = sqrt(0.0169) = 0.13
+    base = np.linspace(-30, -10, G)
+    mcse = np.zeros(G)
+    mcse[:3] = [0.03, 0.04, 0.12]
+    table = rank([make("a", base, mcse_i=mcse), make("b", base - 5.0)])
+    assert table["mcse"].iloc[0] == pytest.approx(0.13, rel=1e-12)
+    assert np.isnan(table["mcse"].iloc[1])              # not computed
 
 
 def test_summary_notes_for_few_leaves_and_many_structures():
@@ -362,20 +486,46 @@ def test_summary_notes_for_few_leaves_and_many_structures():
     assert "not clear" in summary_notes(eleven, G)[0]
 
 
-def test_rmse_and_r2_cells():
+def test_rmse_and_r2_columns_per_curve_type():
     base = np.linspace(-30, -10, G)
     only_all = rank([make("a", base, rmse={"all": 0.5}, r2={"all": 0.9}), make("b", base - 1)])
+    assert list(only_all.columns) == COLUMNS
     assert only_all["rmse"].iloc[0] == 0.5 and np.isnan(only_all["rmse"].iloc[1])
-    by_type = rank([make("a", base, rmse={"all": 0.55, "aq": 0.42, "aci": 0.61}), make("b", base - 1, rmse={"all": 0.7})])
-    assert list(by_type["rmse"]) == ["aci 0.61; aq 0.42; all 0.55", "all 0.7"]
+    by_type = rank([make("a", base, rmse={"all": 0.55, "aq": 0.42, "aci": 0.61}, r2={"all": 0.9, "aci": 0.8}),
+                    make("b", base - 1, rmse={"all": 0.7}, r2={"par": 0.3})])
+    assert list(by_type.columns) == table_columns(["aci", "aq", "par"])
+    at = COLUMNS.index("r2") + 1
+    assert list(by_type.columns)[at:at + 6] == ["rmse_aci", "r2_aci", "rmse_aq", "r2_aq", "rmse_par", "r2_par"]
+    a, b = by_type.iloc[0], by_type.iloc[1]
+    assert (a["rmse"], a["rmse_aci"], a["rmse_aq"], a["r2"], a["r2_aci"]) == (0.55, 0.61, 0.42, 0.9, 0.8)
+    assert np.isnan(a["r2_aq"]) and np.isnan(a["rmse_par"]) and b["r2_par"] == 0.3 and np.isnan(b["r2"])
+
+
+def test_every_column_but_names_and_warnings_is_numeric_in_the_csv(tmp_path):
+    base = np.linspace(-30, -10, G)
+    table = rank([make("a", base, rmse={"all": 0.5, "aci": 0.4}, r2={"all": 0.9, "aci": 0.8}),
+                  make("m", base - 1.0, grade="marginal", pareto_k=np.full(G, 0.2)),
+                  make("f", base - 2.0, grade="failed")])
+    assert table["rank"].dtype == "Int64" and table["converged"].dtype == "int64"
+    path = tmp_path / "ranking.csv"
+    table.to_csv(path, index=False)
+    back = pd.read_csv(path)
+    for column in back.columns:
+        if column not in ("structure", "warnings"):
+            assert pd.api.types.is_numeric_dtype(back[column]), column
+    assert list(back["converged"]) == [1, 0, 0]
 
 
 def test_format_ranking_lists_every_structure_and_warning():
     base = np.linspace(-30, -10, G)
-    table = rank([make("alpha_leaf", base), make("vcmax_leaf", base - 1.0, converged=False)])
+    table = rank([make("alpha_leaf", base, mcse_i=np.full(G, 0.01)), make("theta_leaf", base - 0.5, grade="marginal"),
+                  make("vcmax_leaf", base - 1.0, grade="failed")])
     text = format_ranking(table)
     lines = text.splitlines()
-    assert lines[0].split()[:3] == ["structure", "rank", "elpd"]
-    assert lines[1].startswith("alpha_leaf") and lines[2].startswith("vcmax_leaf")
-    assert f"vcmax_leaf: {NOT_RANKED}" in text
-    assert lines[1].split()[1] == "1" and lines[2].split()[1] == "-"
+    assert lines[0].split() == [c for c in COLUMNS if c != "warnings"]
+    assert [line.split()[0] for line in lines[1:4]] == ["alpha_leaf", "theta_leaf", "vcmax_leaf"]
+    assert f"vcmax_leaf: {NOT_RANKED}" in text and f"theta_leaf: {MARGINAL_WARNING}" in text
+    assert [line.split()[1] for line in lines[1:4]] == ["1", "2", "-"]
+    # mcse of alpha_leaf: sqrt(30 * 0.01^2) = 0.0548
+    assert lines[1].split()[4] == "0.05"
+    assert [line.split()[-1] for line in lines[1:4]] == ["yes", "marginal", "NO"]

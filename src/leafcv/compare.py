@@ -6,7 +6,9 @@ Run folder (default ``runs/<file stem>/`` beside the comparison file):
   structures.txt           each structure's terms, model options and priors in words
   results/<structure>.json one per structure, written atomically; reused on a re-run when its inputs match
   ranking.csv, ranking.txt the ranking (columns as in DESIGN.md)
-  pointwise.csv            per-leaf elpd (and Pareto k-hat) of every structure
+  pointwise.csv            per held-out unit (leaf, or level of a grouping) and structure: elpd, how it
+                           was scored, its Monte Carlo SE, quadrature bound and Pareto k-hat (NaN if
+                           not computed or not scored by PSIS)
 """
 from __future__ import annotations
 
@@ -19,19 +21,22 @@ import tempfile
 import time
 from dataclasses import asdict
 from pathlib import Path
-from typing import Callable
+from typing import TYPE_CHECKING, Callable
 
 import numpy as np
 import pandas as pd
 
-from .cv.methods import KFOLD_FALLBACK, CVDetails, cross_validate
 from .cv.result import CVResult
+from .diagnostics import grade_definitions
 from .data.dataset import Dataset
 from .inits import fit_leaves
 from .ranking import format_ranking, rank, summary_notes
 from .spec import Comparison, Structure
 
-RESULT_VERSION = 1
+if TYPE_CHECKING:
+    from .cv.methods import CVDetails
+
+RESULT_VERSION = 2
 
 
 def file_hash(path: Path) -> str:
@@ -42,8 +47,19 @@ def file_hash(path: Path) -> str:
     return h.hexdigest()
 
 
+def _umask() -> int:
+    """The process umask (read by setting it and restoring it at once)."""
+    old = os.umask(0)
+    os.umask(old)
+    return old
+
+
 def write_atomic(path: Path, text: str) -> None:
-    """Write ``text`` to ``path`` so that a reader sees the old file or the new one, never a part."""
+    """Write ``text`` to ``path`` so that a reader sees the old file or the new one, never a part.
+
+    The file gets the mode an ordinary ``open`` would give it, ``0o666`` less the umask (``mkstemp``
+    creates its file ``0o600``).
+    """
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
     try:
@@ -51,6 +67,7 @@ def write_atomic(path: Path, text: str) -> None:
             fh.write(text)
             fh.flush()
             os.fsync(fh.fileno())
+        os.chmod(tmp, 0o666 & ~_umask())
         os.replace(tmp, path)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
@@ -110,41 +127,125 @@ def structures_text(comparison: Comparison, records: dict[str, dict]) -> str:
     return "\n".join(lines)
 
 
-def _result_to_json(result: CVResult, details: CVDetails, key: str) -> str:
-    return json.dumps({
-        "key": key, "structure": result.structure, "method": result.method, "leaves": list(result.leaves),
-        "elpd_i": result.elpd_i.tolist(), "n_draws": result.n_draws,
-        "pareto_k": None if result.pareto_k is None else result.pareto_k.tolist(),
-        "n_refits": result.n_refits, "converged": result.converged, "warnings": list(result.warnings),
-        "rmse": result.rmse, "r2": result.r2, "details": asdict(details),
-    }, indent=1)
+def _json_safe(value: object) -> object:
+    """``value`` as strict JSON allows: NaN as None (null), infinities as the strings ``"inf"`` and
+    ``"-inf"``, NumPy values as Python ones."""
+    if isinstance(value, dict):
+        return {str(k): _json_safe(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple, np.ndarray)):
+        return [_json_safe(v) for v in value]
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float) and not np.isfinite(value):
+        return None if np.isnan(value) else ("inf" if value > 0 else "-inf")
+    return value
+
+
+def _float(value: object) -> float:
+    """One number written by :func:`_json_safe` read back: null as NaN, "inf"/"-inf" as infinities."""
+    return float("nan") if value is None else float(value)
+
+
+def _floats(values: list | None) -> np.ndarray | None:
+    """An array written by :func:`_json_safe` read back as floats; None stays None."""
+    return None if values is None else np.array([_float(v) for v in values], dtype=float)
+
+
+def _result_to_json(result: CVResult, details: CVDetails | dict, key: str) -> str:
+    """The result file of one structure (format :data:`RESULT_VERSION`; NaN written as null, infinities
+    as "inf" and "-inf")."""
+    return json.dumps(_json_safe({
+        "version": RESULT_VERSION, "key": key, "structure": result.structure, "method": result.method,
+        "unit": result.unit, "leaves": list(result.leaves), "elpd_i": result.elpd_i, "n_draws": result.n_draws,
+        "method_i": list(result.method_i), "pareto_k": result.pareto_k, "mcse_i": result.mcse_i,
+        "quad_bound_i": result.quad_bound_i, "n_refits": result.n_refits, "grade": result.grade,
+        "unscored": result.unscored, "warnings": list(result.warnings), "rmse": result.rmse, "r2": result.r2,
+        "details": details if isinstance(details, dict) else asdict(details),
+    }), indent=1, allow_nan=False)
 
 
 def _result_from_json(text: str) -> tuple[str, CVResult, dict]:
+    """(key, result, details) of a result file; files of format 1 (a ``converged`` flag instead of a
+    grade, no per-entry methods or errors) are read too."""
     d = json.loads(text)
-    res = CVResult(d["structure"], d["method"], tuple(d["leaves"]), np.asarray(d["elpd_i"]), d["n_draws"],
-                   pareto_k=None if d["pareto_k"] is None else np.asarray(d["pareto_k"]),
-                   n_refits=d["n_refits"], converged=d["converged"], warnings=tuple(d["warnings"]),
-                   rmse=d["rmse"], r2=d["r2"])
+    grade = d["grade"] if "grade" in d else ("converged" if d["converged"] else "failed")
+    metrics = {name: {k: _float(v) for k, v in d[name].items()} for name in ("rmse", "r2")}
+    res = CVResult(d["structure"], d["method"], tuple(d["leaves"]), _floats(d["elpd_i"]), d["n_draws"],
+                   pareto_k=_floats(d["pareto_k"]), n_refits=d["n_refits"], grade=grade,
+                   warnings=tuple(d["warnings"]), rmse=metrics["rmse"], r2=metrics["r2"],
+                   method_i=tuple(d.get("method_i", ())), mcse_i=_floats(d.get("mcse_i")),
+                   quad_bound_i=_floats(d.get("quad_bound_i")), unscored=d.get("unscored", ""),
+                   unit=d.get("unit", "leaf"))
     return d["key"], res, d["details"]
+
+
+def _number(value: object, spec: str) -> str | None:
+    """``value`` formatted by ``spec``, or None when it is missing or not a finite number."""
+    if value is None or isinstance(value, bool):
+        return None
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        return None
+    return format(number, spec) if np.isfinite(number) else None
+
+
+def spot_check_line(structure: str, check: dict) -> str:
+    """One line of ranking.txt about a spot check (PSIS against an exact refit of one unit).
+
+    Parameters
+    ----------
+    structure
+        Name of the structure.
+    check
+        Keys ``leaf, khat, elpd_psis, elpd_exact, mcse_psis, mcse_exact, disagree``; missing
+        keys are left out of the line (``elpd_auto`` is read where ``elpd_psis`` is missing).
+
+    Returns
+    -------
+    str
+        E.g. ``"spot check L003 in s: PSIS -45.21 ± 0.03 vs exact refit -45.19 ± 0.04 nats (k-hat 0.31)"``,
+        ending ``" — DISAGREES: the exact value is used"`` when ``disagree`` is true.
+    """
+    def value(elpd_key: str, mcse_key: str) -> str:
+        elpd = _number(check.get(elpd_key), ".2f") or "?"
+        mcse = _number(check.get(mcse_key), ".2f")
+        return elpd if mcse is None else f"{elpd} ± {mcse}"
+
+    check = dict(check)
+    check.setdefault("elpd_psis", check.get("elpd_auto"))
+    khat = _number(check.get("khat"), ".2f")
+    line = (f"spot check {check.get('leaf', '?')} in {structure}: PSIS {value('elpd_psis', 'mcse_psis')} "
+            f"vs exact refit {value('elpd_exact', 'mcse_exact')} nats" + (f" (k-hat {khat})" if khat else ""))
+    return line + (" — DISAGREES: the exact value is used" if check.get("disagree") else "")
+
+
+def pointwise_table(results: list[CVResult]) -> pd.DataFrame:
+    """pointwise.csv: the unit's ids, then per structure its elpd, method, MCSE, quadrature bound
+    and Pareto k-hat of each unit (NaN where not computed or not scored by PSIS)."""
+    point: dict[str, object] = {results[0].unit: list(results[0].leaves)}
+    for r in results:
+        point[f"elpd:{r.structure}"] = r.elpd_i
+        point[f"method:{r.structure}"] = list(r.method_i)
+        point[f"mcse:{r.structure}"] = r.mcse_i
+        point[f"quad_bound:{r.structure}"] = r.quad_bound_i
+        point[f"khat:{r.structure}"] = r.pareto_k
+    return pd.DataFrame(point)
 
 
 def write_ranking(out: Path, results: list[CVResult], all_details: dict[str, dict], n_leaves: int
                   ) -> tuple[str, pd.DataFrame]:
-    """Rank the results and write ranking.csv, ranking.txt and pointwise.csv into ``out``."""
+    """Rank the results and write ranking.csv, ranking.txt and pointwise.csv into ``out``.
+
+    ``n_leaves`` is the number of held-out units (leaves, or levels of the results' unit).
+    """
     table = rank(results)
     write_atomic(out / "ranking.csv", table.to_csv(index=False))
-    notes = summary_notes(table, n_leaves)
-    spot = [f"spot check {s['leaf']}: auto {s['elpd_auto']:.2f} vs exact {s['elpd_exact']:.2f} nats "
-            f"(k-hat {s['khat']:.2f}) in {name}" for name, d in all_details.items() for s in d.get("spot_checks", [])]
+    notes = summary_notes(table, n_leaves, results[0].unit)
+    spot = [spot_check_line(name, s) for name, d in all_details.items() for s in d.get("spot_checks", [])]
     text = format_ranking(table) + "\n\n" + "\n".join(notes + spot) + "\n"
     write_atomic(out / "ranking.txt", text)
-    point = {"leaf": list(results[0].leaves)}
-    for r in results:
-        point[f"elpd:{r.structure}"] = r.elpd_i
-        if r.pareto_k is not None:
-            point[f"khat:{r.structure}"] = r.pareto_k
-    write_atomic(out / "pointwise.csv", pd.DataFrame(point).to_csv(index=False))
+    write_atomic(out / "pointwise.csv", pointwise_table(results).to_csv(index=False))
     return text, table
 
 
@@ -171,10 +272,25 @@ def rewrite_report(run_dir: Path) -> str:
     return text
 
 
+def seed_plan(seed: int) -> dict:
+    """Every seed of a run, derived from the run seed (so a re-run gives identical numbers)."""
+    from .cv.methods import (KFOLD_SEED_OFFSET, REFIT_SEED_OFFSET, RETRY_SEED_OFFSET, SPOT_STREAM)
+
+    return {"run": seed, "full_fit": seed,
+            "leaf_refit": f"{seed} + {REFIT_SEED_OFFSET} + leaf index (0-based; the same for every structure); "
+                          f"exact by a grouping: {seed} + {REFIT_SEED_OFFSET} + level index",
+            "kfold_fold": f"{seed} + {KFOLD_SEED_OFFSET} + fold index", "kfold_assignment": seed,
+            "spot_checks": f"numpy default_rng([{seed}, {SPOT_STREAM}]) orders the leaves; the first leaves not "
+                           f"flagged by k-hat are checked",
+            "retries": f"attempt a (1-based) of any fit: its seed + (a - 1) x {RETRY_SEED_OFFSET}"}
+
+
 def run_comparison(comparison: Comparison, dataset: Dataset, out: Path, *, method: str | None = None,
                    engine=None, log: Callable[[str], None] = print, spot_checks: int = 3,
                    sampler=None) -> pd.DataFrame:
     """Cross-validate every structure (reusing finished results whose inputs match) and rank them."""
+    from .cv.methods import cross_validate     # here, so that reading and writing run folders needs no sampler
+
     out = Path(out)
     method = method or comparison.cv.method
     sampler = sampler or comparison.sampler
@@ -184,8 +300,7 @@ def run_comparison(comparison: Comparison, dataset: Dataset, out: Path, *, metho
     manifest = {
         "comparison": str(comparison.path), "comparison_sha256": file_hash(comparison.path),
         "data": str(comparison.data.file), "data_sha256": data_hash, "settings": settings,
-        "seeds": {"sampler": sampler.seed, "refits": f"{sampler.seed} + 1 + fold index; auto refits start at {sampler.seed + 1001}",
-                  "spot_checks": sampler.seed, "kfold_assignment": sampler.seed},
+        "seeds": seed_plan(sampler.seed), "grades": grade_definitions(),
         "versions": _versions(), "started": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
         "command": " ".join(sys.argv),
     }
@@ -196,15 +311,14 @@ def run_comparison(comparison: Comparison, dataset: Dataset, out: Path, *, metho
 
     files: dict[str, str] = {}
 
-    def one(k: int, s: Structure, how: str) -> tuple[CVResult, dict]:
-        how_settings = dict(settings, method=how)
-        key = structure_key(s, comparison, data_hash, how_settings)
-        path = out / "results" / (f"{s.name}.json" if how == method else f"{s.name}.{how}.json")
+    def one(k: int, s: Structure) -> tuple[CVResult, dict]:
+        key = structure_key(s, comparison, data_hash, settings)
+        path = out / "results" / f"{s.name}.json"
         files[s.name] = path.name
         if path.exists():
             try:
                 old_key, res, det = _result_from_json(path.read_text())
-            except (ValueError, KeyError):
+            except (ValueError, KeyError, TypeError):
                 old_key = None
             if old_key == key:
                 log(f"[{k}/{n}] {s.name}: reusing the finished result in {path}")
@@ -212,27 +326,22 @@ def run_comparison(comparison: Comparison, dataset: Dataset, out: Path, *, metho
         if state["leaf_fits"] is None:
             state["leaf_fits"] = fit_leaves(dataset)
         t = time.perf_counter()
-        log(f"[{k}/{n}] {s.name}: cross-validating ({how}, by {comparison.cv.by})")
-        res, det = cross_validate(s, dataset, comparison, method=how, by=comparison.cv.by,
-                                  folds=KFOLD_FALLBACK if (how == "kfold" and method == "auto") else comparison.cv.folds,
-                                  spot_checks=spot_checks, engine=engine,
+        log(f"[{k}/{n}] {s.name}: cross-validating ({method}, by {comparison.cv.by})")
+        res, det = cross_validate(s, dataset, comparison, method=method, by=comparison.cv.by,
+                                  folds=comparison.cv.folds, spot_checks=spot_checks, engine=engine,
                                   leaf_fits=state["leaf_fits"], sampler=sampler)
         write_atomic(path, _result_to_json(res, det, key))
-        log(f"[{k}/{n}] {s.name}: elpd {res.elpd:.1f} (SE {res.se:.1f}), {res.n_refits} refits, "
-            f"{time.perf_counter() - t:.0f} s" + ("" if res.converged else " - NOT CONVERGED"))
+        grade = {"converged": "", "marginal": " - MARGINAL CONVERGENCE", "failed": " - NOT CONVERGED"}[res.grade]
+        mcse = f", MCSE {res.mcse:.2f}" if np.isfinite(res.mcse) else ""
+        log(f"[{k}/{n}] {s.name}: elpd {res.elpd:.1f} (SE {res.se:.1f}{mcse}), {res.n_refits} refits, "
+            f"{time.perf_counter() - t:.0f} s" + grade + (f" - NOT SCORED: {res.unscored}" if res.unscored else ""))
         return res, asdict(det)
 
     n = len(comparison.structures)
-    done = [one(k, s, method) for k, s in enumerate(comparison.structures, 1)]
-    if len({r.method for r, _ in done}) > 1 and any(r.method == "kfold" for r, _ in done):
-        # CROSS-VALIDATION.md: when auto falls back to K-fold, every structure uses the same folds
-        log("some structures fell back to grouped K-fold: scoring every structure on the same folds")
-        done = [d if d[0].method == "kfold" else one(k, s, "kfold")
-                for k, (s, d) in enumerate(zip(comparison.structures, done), 1)]
-        settings["method_used"] = "kfold"
+    done = [one(k, s) for k, s in enumerate(comparison.structures, 1)]
     results = [r for r, _ in done]
     all_details = {r.structure: d for r, d in done}
-    text, table = write_ranking(out, results, all_details, dataset.n_leaves)
+    text, table = write_ranking(out, results, all_details, len(results[0].leaves))
     manifest["results"] = files
     manifest["finished"] = time.strftime("%Y-%m-%dT%H:%M:%S%z")
     write_atomic(out / "manifest.json", json.dumps(manifest, indent=1))

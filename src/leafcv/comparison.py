@@ -22,6 +22,15 @@ import numpy as np
 import pandas as pd
 
 from .data.dataset import Dataset
+from .data.roles import (
+    CI_UNITS_KEY,
+    OPTIONAL_ROLES,
+    RENAMED_KEYS,
+    REQUIRED_ROLES,
+    VARIABLE_OF,
+    renamed_key_problem,
+    role,
+)
 from .errors import SpecError
 from .spec import (
     CENTRING_CHOICES,
@@ -32,10 +41,8 @@ from .spec import (
     TEMPERATURE_CHOICES,
     TRANSITION_CHOICES,
     ModelOptions,
-    OPTIONAL_COLUMNS,
     PARAMETERS,
     RATIO_PARAMETERS,
-    REQUIRED_COLUMNS,
     Comparison,
     CVSpec,
     DataSpec,
@@ -67,7 +74,7 @@ PRIOR_SCALE_FIELDS: dict[str, str] = {"slope_sd_log": "slope_sd_log", "slope_sd_
 PRIOR_KEYS: tuple[str, ...] = (*PRIOR_INTERCEPT_KEYS, *PRIOR_SCALE_FIELDS, "nu")
 GRID_KEYS: tuple[str, ...] = ("name", "base", "leaf_effects", "choices")
 DATA_KEYS: tuple[str, ...] = ("file", "columns", "units", "leaf")
-UNITS_KEYS: tuple[str, ...] = ("ci", "pressure_kpa")
+UNITS_KEYS: tuple[str, ...] = (CI_UNITS_KEY, "pressure_kpa")
 CI_UNITS: tuple[str, ...] = ("umol/mol", "Pa")
 LEAF_KEYS: tuple[str, ...] = ("groups", "traits", "centre", "scale")
 SAMPLER_KEYS: tuple[str, ...] = ("chains", "warmup", "draws", "seed", "adapt_delta", "max_treedepth")
@@ -475,7 +482,7 @@ def _parse_comparison(raw: dict[str, Any], path: Path, problems: Problems) -> Co
     _check_keys(raw, TOP_KEYS, "", problems)
     fmt = _parse_format(raw, problems)
     base = Path(os.path.abspath(path)).parent
-    data = _parse_data(raw.get("data"), base, problems)
+    data = _parse_data(raw.get("data"), base, path.name, problems)
     sampler = _parse_sampler(raw.get("sampler", {}), problems)
     groups = data.groups if data else ()
     traits = data.traits if data else ()
@@ -537,8 +544,11 @@ def _parse_format(raw: dict[str, Any], problems: Problems) -> int | None:
 # ----------------------------------------------------------------------------------------------
 
 
-def _parse_data(value: Any, base: Path, problems: Problems) -> DataSpec | None:
-    """Validate [data] and its sub-tables; None when it is missing or not a table."""
+def _parse_data(value: Any, base: Path, file_name: str, problems: Problems) -> DataSpec | None:
+    """Validate [data] and its sub-tables; None when it is missing or not a table.
+
+    ``file_name`` (the comparison file's name) starts the refusal of a renamed data-role key.
+    """
     if value is None:
         problems.append(
             "[data] is missing; add a [data] table with file = \"<your observations CSV>\" "
@@ -548,8 +558,8 @@ def _parse_data(value: Any, base: Path, problems: Problems) -> DataSpec | None:
     table = _table(value, "data", problems)
     _check_keys(table, DATA_KEYS, "data", problems)
     file = _parse_data_file(table.get("file"), base, problems)
-    columns = _parse_columns(table.get("columns"), problems)
-    ci_unit, pressure = _parse_units(table.get("units", {}), problems)
+    columns = _parse_columns(table.get("columns"), file_name, problems)
+    ci_unit, pressure = _parse_units(table.get("units", {}), file_name, problems)
     groups, traits, centre, scale = _parse_leaf(table.get("leaf", {}), columns, problems)
     return DataSpec(
         file=file if file is not None else base,
@@ -574,55 +584,73 @@ def _parse_data_file(value: Any, base: Path, problems: Problems) -> Path | None:
     return Path(os.path.abspath(base / Path(name).expanduser()))
 
 
-def _parse_columns(value: Any, problems: Problems) -> dict[str, str]:
-    """[data.columns]: leafcv variable -> the user's column name."""
-    valid = REQUIRED_COLUMNS + OPTIONAL_COLUMNS
+def _parse_columns(value: Any, file_name: str, problems: Problems) -> dict[str, str]:
+    """[data.columns]: data role -> the user's column name, returned keyed by leafcv's observation
+    variable (``VARIABLE_OF``), the names `load_dataset` and the rest of leafcv use."""
+    valid = REQUIRED_ROLES + OPTIONAL_ROLES
     if value is None:
         problems.append(
-            "[data.columns] is missing; map leafcv's variables to your columns, "
-            f"at least {', '.join(REQUIRED_COLUMNS)} (e.g. a_net = \"<your column>\")"
+            "[data.columns] is missing; map leafcv's data roles to your columns, "
+            f"at least {', '.join(REQUIRED_ROLES)} (e.g. {REQUIRED_ROLES[0]} = \"<your column>\")"
         )
         return {}
     table = _table(value, "data.columns", problems)
-    _check_keys(table, valid, "data.columns", problems)
+    _refuse_renamed_keys(table, "[data.columns]", file_name, problems)
+    _check_keys({k: v for k, v in table.items() if k not in RENAMED_KEYS}, valid, "data.columns", problems)
     columns: dict[str, str] = {}
     for key, column in table.items():
         if key in valid:
             name = _str_value(column, f"data.columns.{key}", problems)
             if name is not None:
-                columns[key] = name
-    for key in REQUIRED_COLUMNS:
-        if key not in table:
-            problems.append(f"data.columns: required variable {key!r} is missing; add {key} = \"<your column>\"")
+                columns[VARIABLE_OF[key]] = name
+    renamed = {RENAMED_KEYS[k] for k in table if k in RENAMED_KEYS}
+    for key in REQUIRED_ROLES:
+        if key not in table and key not in renamed:     # a renamed key was reported already
+            problems.append(f"data.columns: required data role {key!r} is missing; add {key} = \"<your column>\"")
     _check_shared_columns(columns, problems)
     return columns
 
 
+def _refuse_renamed_keys(
+    table: dict[str, Any], where: str, file_name: str, problems: Problems, valid: Sequence[str] | None = None
+) -> None:
+    """Report every key of ``table`` that was renamed, with the key that replaced it (and, when the
+    replacement is not one of the table's ``valid`` keys either, which keys the table takes)."""
+    for key in table:
+        problem = renamed_key_problem(file_name, where, key)
+        if problem is None:
+            continue
+        if valid is not None and RENAMED_KEYS[key] not in valid:
+            problem += f"; note that {where} takes only {' and '.join(valid)}"
+        problems.append(problem)
+
+
 def _check_shared_columns(columns: dict[str, str], problems: Problems) -> None:
-    """Two leafcv variables may not read the same column of the user's file."""
+    """Two data roles may not read the same column of the user's file."""
     seen: dict[str, str] = {}
-    for key, column in columns.items():
+    for variable, column in columns.items():
         if column in seen:
             problems.append(
-                f"data.columns: {seen[column]} and {key} both name the column {column!r}; "
-                "each variable needs its own column"
+                f"data.columns: {role(seen[column])} and {role(variable)} both name the column {column!r}; "
+                "each data role needs its own column"
             )
         else:
-            seen[column] = key
+            seen[column] = variable
 
 
-def _parse_units(value: Any, problems: Problems) -> tuple[str, float | None]:
-    """[data.units]: the unit of Ci and, for Pa, the air pressure in kPa."""
+def _parse_units(value: Any, file_name: str, problems: Problems) -> tuple[str, float | None]:
+    """[data.units]: the unit of intercellular CO2 and, for Pa, the air pressure in kPa."""
     table = _table(value, "data.units", problems)
-    _check_keys(table, UNITS_KEYS, "data.units", problems)
+    _refuse_renamed_keys(table, "[data.units]", file_name, problems, UNITS_KEYS)
+    _check_keys({k: v for k, v in table.items() if k not in RENAMED_KEYS}, UNITS_KEYS, "data.units", problems)
     ci_unit = "umol/mol"
-    if "ci" in table:
-        raw = table["ci"]
+    if CI_UNITS_KEY in table:
+        raw = table[CI_UNITS_KEY]
         if raw in CI_UNITS:
             ci_unit = raw
         else:
             shown = repr(raw) if isinstance(raw, str) else _show(raw)
-            problems.append(f"data.units.ci: must be 'umol/mol' or 'Pa', got {shown}")
+            problems.append(f"data.units.{CI_UNITS_KEY}: must be 'umol/mol' or 'Pa', got {shown}")
     pressure = None
     if "pressure_kpa" in table:
         pressure = _number_value(
@@ -631,8 +659,8 @@ def _parse_units(value: Any, problems: Problems) -> tuple[str, float | None]:
         )
     if ci_unit == "Pa" and "pressure_kpa" not in table:
         problems.append(
-            "data.units: ci = 'Pa' needs pressure_kpa, the air pressure in kPa (e.g. pressure_kpa = 101.3), "
-            "to convert Ci to umol/mol"
+            f"data.units: {CI_UNITS_KEY} = 'Pa' needs pressure_kpa, the air pressure in kPa "
+            "(e.g. pressure_kpa = 101.3), to convert intercellular CO2 to umol/mol"
         )
     return ci_unit, pressure
 
@@ -1282,8 +1310,8 @@ def _describe_header(comparison: Comparison) -> list[str]:
         f"comparison {comparison.path} (format {comparison.format}), "
         f"{len(comparison.structures)} structure(s)",
         f"data: {data.file}",
-        "  columns: " + ", ".join(f"{k} = {v!r}" for k, v in data.columns.items()),
-        f"  ci in {data.ci_unit}" + (f", pressure {data.pressure_kpa:g} kPa" if data.pressure_kpa else ""),
+        "  columns: " + ", ".join(f"{role(k)} = {v!r}" for k, v in data.columns.items()),
+        f"  {CI_UNITS_KEY} in {data.ci_unit}" + (f", pressure {data.pressure_kpa:g} kPa" if data.pressure_kpa else ""),
         "  groups: " + (", ".join(data.groups) if data.groups else "none"),
         "  traits: " + (", ".join(_describe_trait(data, t) for t in data.traits) if data.traits else "none"),
         f"cv: by {cv.by}, method {cv.method}" + (f", {cv.folds} folds" if cv.method == "kfold" else ""),

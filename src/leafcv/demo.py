@@ -100,14 +100,14 @@ format = 1
 [data]
 file = "observations.csv"
 [data.columns]
-a_net = "assim"
-ci = "ci_ppm"
-ppfd = "par_in"
-t_leaf = "tl_c"
+net_assimilation = "assim"
+intercellular_co2 = "ci_ppm"
+photon_flux = "par_in"
+leaf_temperature = "tl_c"
 leaf = "plant_leaf"
 curve = "run"
 [data.units]
-ci = "umol/mol"
+intercellular_co2 = "umol/mol"
 [data.leaf]
 groups = ["taxon", "campaign"]
 traits = ["n_area", "chl_ug", "sla_m2kg"]

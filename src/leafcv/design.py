@@ -78,6 +78,7 @@ class Design:
     nc_cells: np.ndarray = field(repr=False, default=None)
     options: ModelOptions = ModelOptions()
     sigma_groups: tuple[str, ...] = ("all points",)   # what each residual SD covers, in program order
+    sigma_kinds: tuple[str, ...] = ()       # curve type of each residual SD (sigma by curve type), program order
 
 
 def _levels(values) -> tuple[str, ...]:
@@ -239,6 +240,7 @@ def build_design(
         n_cen = len(cen_cell) // len(leaf_cells)
         leaf_terms = [replace(lt, centred_leaves=n_cen, noncentred_leaves=L - n_cen) for lt in leaf_terms]
     lev_centred_a = np.asarray(lev_centred, bool)
+    nc_rot, b0_shift, group_terms = _mean_split(group_terms, lev_centred_a, P, params)
     ip = [priors.intercept(p, ratio[p]) for p in params]
     curve_types = fit_obs["curve_type"].to_numpy()
     if options.sigma_by_curve:
@@ -246,6 +248,7 @@ def build_design(
         sigma_group = np.searchsorted(kinds, curve_types) + 1
         sigma_names = tuple(f"{k} curves" for k in kinds)
     else:
+        kinds = []
         sigma_group = np.ones(len(fit_obs), int)
         sigma_names = ("all points",)
     rset = fvcb.RUBISCO_SETS[fvcb.DEFAULT_RUBISCO_SET]
@@ -272,7 +275,7 @@ def build_design(
         "re_x": np.array(re_x).reshape(len(re_par), L), "tau_sd": np.array(tau_sd),
         "Q": len(lev_term), "lev_term": lev_term,
         "Qc": int(lev_centred_a.sum()), "cen_lev": list(np.flatnonzero(lev_centred_a) + 1),
-        "nc_lev": list(np.flatnonzero(~lev_centred_a) + 1),
+        "nc_lev": list(np.flatnonzero(~lev_centred_a) + 1), "nc_rot": nc_rot, "b0_shift": b0_shift,
         "Rl": len(leaf_tau_sd), "leaf_tau_sd": np.array(leaf_tau_sd),
         "Mc": len(cen_cell), "cen_cell": cen_cell, "cen_term": cen_term,
         "Mn": len(nc_cell), "nc_cell": nc_cell, "nc_term": nc_term,
@@ -284,7 +287,47 @@ def build_design(
                            f"LKJ({structure.lkj_eta:g}) (Lewandowski, Kurowicka & Joe 2009)")
     return Design(structure, data, params, ratio, tuple(coefs), tuple(group_terms), tuple(leaf_terms),
                   transforms, tuple(prior_lines), train, obs_index,
-                  np.asarray(cen_cell, int) - 1, np.asarray(nc_cell, int) - 1, options, sigma_names)
+                  np.asarray(cen_cell, int) - 1, np.asarray(nc_cell, int) - 1, options, sigma_names, tuple(kinds))
+
+
+def _mean_split(group_terms: list[GroupTerm], lev_centred: np.ndarray, P: int, params
+                ) -> tuple[np.ndarray, np.ndarray, list[GroupTerm]]:
+    """nc_rot and b0_shift of the program (see stan/leafcv.stan), and the group terms' reasons updated.
+
+    A random intercept whose levels are all non-centred gets an orthonormal basis whose first column is
+    1/sqrt(K) (the mean of its K standard-normal z) and whose other columns are contrasts; the intercept
+    is then written as the mean of the level values. Exact: an orthogonal change of variables and a
+    shift of the intercept, both with Jacobian 1.
+    """
+    nc = np.flatnonzero(~lev_centred)
+    pos = {q: i for i, q in enumerate(nc)}
+    rot = np.eye(len(nc))
+    shift = np.zeros((P, len(nc)))
+    out = []
+    for gt in group_terms:
+        K = len(gt.levels)
+        idx = list(range(gt.start, gt.start + K))
+        if gt.slope_of is None and K >= 2 and not any(gt.centred):
+            basis, _ = np.linalg.qr(np.column_stack([np.ones(K), np.eye(K)[:, :K - 1]]))
+            basis *= np.sign(basis[0, 0])                 # first column +1/sqrt(K)
+            cols = [pos[q] for q in idx]
+            rot[np.ix_(cols, cols)] = basis
+            shift[params.index(gt.param), cols[0]] = 1.0 / np.sqrt(K)
+            gt = replace(gt, reason=gt.reason + "; non-centred with the intercept written as the mean of the level "
+                                                "values (removes the intercept-group trade-off)")
+        out.append(gt)
+    return rot, shift, out
+
+
+def free_parameters(design: Design, b0: np.ndarray, tau: np.ndarray, u_z: np.ndarray) -> dict[str, np.ndarray]:
+    """The program's free b0_free and u_v for given b0, tau and non-centred level z (inverse of its
+    transformed parameters)."""
+    d = design.stan_data
+    rot, shift = np.asarray(d["nc_rot"], float), np.asarray(d["b0_shift"], float)
+    u_v = rot.T @ np.asarray(u_z, float)
+    tau_nc = np.asarray(tau, float)[np.asarray(d["lev_term"], int)[np.asarray(d["nc_lev"], int) - 1] - 1] \
+        if len(u_v) else np.zeros(0)
+    return {"b0_free": np.asarray(b0, float) + shift @ (tau_nc * u_v), "u_v": u_v}
 
 
 def _leaf_cells(structure: Structure, params, leaf_cells: list[tuple[int, np.ndarray]], L: int):

@@ -17,6 +17,17 @@ RHAT_MAX = 1.01
 ESS_PER_CHAIN_MIN = 100
 EBFMI_MIN = 0.3
 TREEDEPTH_HIT_FRACTION_MAX = 0.01
+#: A fit that misses the thresholds above but stays within these is "marginal": ranked with a warning,
+#: its Monte Carlo error (from the chains' ESS) reflecting the low ESS. Common practice, no source:
+#: R-hat up to 1.05 was the older rule of thumb (Gelman et al. 2013, BDA3 sec. 11.4 gives 1.1; from
+#: memory), 100 draws of bulk and tail ESS in total still give usable means and intervals, and a
+#: handful of divergent transitions in thousands of draws bias little when nothing else is wrong.
+MARGINAL_RHAT_MAX = 1.05
+MARGINAL_ESS_MIN = 100
+MARGINAL_DIVERGENCES_MAX = 5
+MARGINAL_EBFMI_MIN = 0.2
+MARGINAL_TREEDEPTH_HIT_FRACTION_MAX = 0.05
+GRADES = ("converged", "marginal", "failed")
 
 
 @dataclass(frozen=True)
@@ -35,6 +46,49 @@ class Diagnostics:
     @property
     def converged(self) -> bool:
         return not self.problems
+
+    @property
+    def grade(self) -> str:
+        """converged (every threshold met), marginal (within the MARGINAL_* limits) or failed."""
+        if not self.problems:
+            return "converged"
+        within = (np.isfinite(self.max_rhat) and self.max_rhat <= MARGINAL_RHAT_MAX
+                  and self.min_ess_bulk >= MARGINAL_ESS_MIN and self.min_ess_tail >= MARGINAL_ESS_MIN
+                  and self.divergences <= MARGINAL_DIVERGENCES_MAX and self.min_ebfmi >= MARGINAL_EBFMI_MIN
+                  and self.treedepth_hits <= MARGINAL_TREEDEPTH_HIT_FRACTION_MAX * self.chains * self.n_draws)
+        return "marginal" if within else "failed"
+
+    def as_dict(self) -> dict:
+        """Plain values for a result file."""
+        return {"max_rhat": self.max_rhat, "min_ess_bulk": self.min_ess_bulk, "min_ess_tail": self.min_ess_tail,
+                "divergences": self.divergences, "treedepth_hits": self.treedepth_hits, "min_ebfmi": self.min_ebfmi,
+                "chains": self.chains, "draws": self.n_draws, "worst": self.worst, "problems": list(self.problems),
+                "grade": self.grade}
+
+
+def grade_definitions() -> dict[str, str]:
+    """The three grades in words, for the run folder."""
+    return {
+        "converged": f"R-hat <= {RHAT_MAX}, bulk and tail ESS >= {ESS_PER_CHAIN_MIN} per chain, no divergent transition, "
+                     f"tree-depth hits <= {TREEDEPTH_HIT_FRACTION_MAX:.0%} of draws, E-BFMI >= {EBFMI_MIN} in every chain: "
+                     "ranked",
+        "marginal": f"short of that but R-hat <= {MARGINAL_RHAT_MAX}, bulk and tail ESS >= {MARGINAL_ESS_MIN}, "
+                    f"at most {MARGINAL_DIVERGENCES_MAX} divergent transitions, tree-depth hits <= "
+                    f"{MARGINAL_TREEDEPTH_HIT_FRACTION_MAX:.0%}, E-BFMI >= {MARGINAL_EBFMI_MIN}: ranked with a warning; "
+                    "its Monte Carlo error uses the chains' own ESS",
+        "failed": "anything worse, after targeted retries: not ranked, listed apart with the reason",
+        "scope": "a structure's grade is the worst grade of the fits whose draws feed its score (the full-data fit "
+                 "and the refits whose values are used; spot-check refits that agree with PSIS are recorded only)",
+    }
+
+
+def worst_grade(grades) -> str:
+    """The worst of several grades (failed < marginal < converged); converged when there are none."""
+    grades = list(grades)
+    for g in reversed(GRADES):
+        if g in grades:
+            return g
+    return "converged"
 
 
 def ebfmi(energy: np.ndarray) -> np.ndarray:

@@ -15,7 +15,7 @@ from scipy.special import logit
 
 from . import fvcb
 from .data.dataset import Dataset
-from .design import Design
+from .design import Design, free_parameters
 
 THETA_INIT = 0.7
 #: Plausible ranges used to clip per-leaf estimates (REFERENCES.md typical magnitudes).
@@ -131,6 +131,7 @@ def structure_inits(design: Design, fits: LeafFits, dataset: Dataset, chains: in
         for k in ("u_c", "u_z", "eta_z"):
             init[k] = init[k] + rng.normal(0, spread, init[k].shape)
         init["eta_c"] = init["eta_c"] + rng.normal(0, spread, init["eta_c"].shape) * 0.5
+        init.update(free_parameters(design, init["b0"], init["tau"], init["u_z"]))   # b0, u_z kept for readers
         out.append({k: (v.tolist() if np.ndim(v) else float(v)) for k, v in init.items()})
     return out
 

@@ -14,7 +14,7 @@ PARAMETERS: tuple[str, ...] = ("vcmax25", "jmax25", "alpha", "theta", "rd25")
 RATIO_PARAMETERS: tuple[str, ...] = ("jmax25", "rd25")
 #: Link function of each parameter.
 LINKS: dict[str, str] = {"vcmax25": "log", "jmax25": "log", "alpha": "logit", "theta": "logit", "rd25": "log"}
-#: leafcv's own observation variables (left side of [data.columns]).
+#: leafcv's own observation variables; a comparison file names them by their data roles (leafcv.data.roles).
 REQUIRED_COLUMNS: tuple[str, ...] = ("a_net", "ci", "ppfd", "leaf")
 OPTIONAL_COLUMNS: tuple[str, ...] = ("t_leaf", "o2", "curve")
 CENTRING_CHOICES: tuple[str, ...] = ("auto", "centred", "noncentred")

@@ -3,9 +3,12 @@
 ArviZ 0.23's ``compare`` accepts precomputed ``ELPDData`` (a pandas Series) whose index is
 ``elpd_loo, se, p_loo, n_samples, n_data_points, warning, loo_i, scale`` (``pareto_k`` and
 ``good_k`` optional), with ``loo_i`` an xarray DataArray. Every method (auto, exact, kfold) is
-labelled ``loo`` because ``compare`` only knows ``loo`` and ``waic``; the per-leaf values are
-leave-one-leaf-out (or grouped K-fold) elpd all the same. ``compare`` reports ``elpd_diff`` as
-best − model (>= 0); :func:`compare_results` turns it into model − best (<= 0).
+labelled ``loo`` because ``compare`` only knows ``loo`` and ``waic``; the per-unit values are
+leave-one-leaf-out (or leave-one-level-out, or grouped K-fold) elpd all the same.
+
+Only the stacking weights are taken from ``compare``. Totals, their SE and the paired differences
+are computed by :mod:`leafcv.ranking` with the sample variance (``ddof=1``); ``compare``'s own
+``se`` and ``dse`` use ``ddof=0`` and are not used.
 """
 from __future__ import annotations
 
@@ -34,9 +37,10 @@ def to_elpd_data(result: CVResult) -> az.ELPDData:
     arviz.ELPDData
         ``elpd_loo`` and ``se`` from the result (see :attr:`CVResult.se`), ``p_loo`` NaN (no
         effective number of parameters is estimated by leave-one-leaf-out), ``n_samples`` the
-        result's draws, ``n_data_points`` the number of leaves, ``warning`` True when a k-hat is
-        above the threshold, ``loo_i`` over dimension ``"leaf"``, and ``pareto_k``/``good_k``
-        when the result has k-hats.
+        result's draws, ``n_data_points`` the number of units, ``warning`` True when a finite
+        k-hat is above the threshold, ``loo_i`` over dimension ``"leaf"`` (whatever the unit),
+        and ``pareto_k``/``good_k`` when some entry was scored by PSIS with a k-hat (NaN for the
+        other entries).
     """
     coords = {LEAF_DIM: list(result.leaves)}
     loo_i = xr.DataArray(np.array(result.elpd_i), dims=[LEAF_DIM], coords=coords, name="loo_i")
@@ -49,9 +53,9 @@ def to_elpd_data(result: CVResult) -> az.ELPDData:
         "warning": False,
         "loo_i": loo_i,
     }
-    if result.pareto_k is not None:
+    if np.any(np.isfinite(result.pareto_k)):
         good_k = result.khat_threshold
-        values["warning"] = bool(np.any(result.pareto_k > good_k))
+        values["warning"] = result.n_psis_high > 0
         values["pareto_k"] = xr.DataArray(np.array(result.pareto_k), dims=[LEAF_DIM], coords=coords, name="pareto_k")
         values["good_k"] = good_k
     values["scale"] = "log"
@@ -63,53 +67,49 @@ def _shift_pointwise(elpd: az.ELPDData, offset: np.ndarray) -> az.ELPDData:
 
     ``compare``'s stacking exponentiates ``loo_i`` without a log-sum-exp, so a leaf's joint
     density below about exp(-745) underflows to 0. Subtracting the same value from every
-    structure's elpd of a leaf changes neither the stacking optimum (the objective moves by a
-    constant) nor any paired difference; ``elpd_loo`` and ``se`` are read from their own entries.
+    structure's elpd of a leaf does not move the stacking optimum (the objective moves by a
+    constant), and only the weights are read from ``compare``.
     """
     shifted = elpd.copy()
     shifted["loo_i"] = elpd["loo_i"] - xr.DataArray(offset, dims=[LEAF_DIM], coords=elpd["loo_i"].coords)
     return shifted
 
 
-def compare_results(results: dict[str, CVResult]) -> pd.DataFrame:
-    """Compare structures with ``arviz.compare(ic="loo", method="stacking", scale="log")``.
+def compare_results(results: dict[str, CVResult]) -> pd.Series:
+    """Stacking weights from ``arviz.compare(ic="loo", method="stacking", scale="log")``.
 
     Parameters
     ----------
     results
-        Result per structure name; all must share leaves (same order) and method.
+        Result per structure name; all must be comparable (same unit, same ids in the same
+        order, all leave-one-out or all K-fold).
 
     Returns
     -------
-    pandas.DataFrame
-        Indexed by structure, best first, with columns ``elpd``, ``se``, ``elpd_diff``
-        (structure − best, <= 0), ``se_diff`` (ArviZ's ``dse``, sqrt(G · var(d)) with ddof=0)
-        and ``weight`` (stacking weights, Yao et al. 2018).
+    pandas.Series
+        Stacking weights (Yao, Vehtari, Simpson & Gelman 2018), named ``weight`` and indexed by
+        structure in the order of ``results``. Nothing else of ``compare``'s table is returned:
+        elpd, SE and differences are computed by :mod:`leafcv.ranking`.
 
     Raises
     ------
     ValueError
-        If the results cannot be compared (see :func:`leafcv.cv.result.check_comparable`) or a
-        key differs from its result's structure name.
+        If the results cannot be compared (see :func:`leafcv.cv.result.check_comparable`), a
+        key differs from its result's structure name, or a per-unit elpd is not finite.
     """
     mismatched = [key for key, res in results.items() if key != res.structure]
     if mismatched:
         raise ValueError(f"keys differ from the structure names of their results: {', '.join(mismatched)}")
     check_comparable(list(results.values()))
+    not_finite = [name for name, res in results.items() if not np.all(np.isfinite(res.elpd_i))]
+    if not_finite:
+        raise ValueError(f"stacking needs finite per-unit elpd; not finite in: {', '.join(not_finite)}")
     offset = np.max(np.stack([r.elpd_i for r in results.values()]), axis=0)
     elpds = {name: _shift_pointwise(to_elpd_data(res), offset) for name, res in results.items()}
     with warnings.catch_warnings():
         # ArviZ 0.23 calls DataFrame.sort_values(inplace=True), deprecated in pandas 3.1
         warnings.filterwarnings("ignore", message="The inplace keyword")
         table = az.compare(elpds, ic="loo", method="stacking", scale="log")
-    out = pd.DataFrame(
-        {
-            "elpd": table["elpd_loo"].astype(float),
-            "se": table["se"].astype(float),
-            "elpd_diff": 0.0 - table["elpd_diff"].astype(float),  # 0.0 - x: no negative zero
-            "se_diff": table["dse"].astype(float),
-            "weight": table["weight"].astype(float),
-        }
-    )
-    out.index.name = "structure"
-    return out
+    weights = table["weight"].astype(float).reindex(list(results)).rename("weight")
+    weights.index.name = "structure"
+    return weights

@@ -24,7 +24,11 @@ class LeafModel:
     """Per-draw likelihood of one leaf's points and its population distribution of effects."""
 
     def __init__(self, design: Design, dataset: Dataset, draws: dict[str, np.ndarray],
-                 link_values: tuple[np.ndarray, np.ndarray], leaf: int):
+                 link_values: tuple[np.ndarray, np.ndarray], leaf: int, integrate_heldout: bool = True):
+        """``integrate_heldout``: integrate the effects of the leaf's held-out levels into its own
+        effects (variances added: the leaf alone); False leaves them out of the leaf's mean and lists
+        them in ``shared`` as (term r, level, parameter index, covariate x), for a caller that
+        integrates one level effect shared by all the leaves of that level (`leafcv.cv.heldout`)."""
         self.design, self.leaf = design, leaf
         d = design.stan_data
         obs = dataset.obs[dataset.obs["leaf_index"] == leaf]
@@ -47,6 +51,7 @@ class LeafModel:
         # normal with the variances added (independent normal terms; random slopes scale by x^2)
         extra: dict[int, np.ndarray] = {}
         self.heldout = heldout_levels(design, leaf)
+        self.shared: list[tuple[int, int, int, float]] = []
         if self.heldout:
             u = level_values(design, draws)
             for r, lev in self.heldout:
@@ -55,7 +60,10 @@ class LeafModel:
                 self.mu[:, pi] -= u[:, lev] * x
                 if pi not in leaf_pars:
                     self.eta[:, pi] -= u[:, lev] * x    # no leaf effect: its value is the population mean
-                extra[pi] = extra.get(pi, np.zeros(S)) + (draws["tau"][:, r] * x) ** 2
+                if integrate_heldout:
+                    extra[pi] = extra.get(pi, np.zeros(S)) + (draws["tau"][:, r] * x) ** 2
+                else:
+                    self.shared.append((r, lev, pi, x))
         self.effect_params = sorted(set(leaf_pars) | set(extra))
         pos = [self.effect_params.index(pi) for pi in leaf_pars]
         cov = np.zeros((S, self.dim, self.dim))
@@ -70,9 +78,19 @@ class LeafModel:
         else:
             self.sd = np.sqrt(np.diagonal(cov, axis1=1, axis2=2)).copy()   # SDs (S, d)
         sig = draws["sigma"]
-        if d["S"] > 1:
-            kinds = sorted(set(dataset.obs["curve_type"]))
-            self.sigma = sig[:, np.searchsorted(kinds, obs["curve_type"].to_numpy())]
+        if design.sigma_kinds:
+            # residual SDs are per curve type of the training points, in the design's order
+            kinds = list(design.sigma_kinds)
+            here = obs["curve_type"].to_numpy()
+            missing = sorted(set(here) - set(kinds))
+            if missing:
+                from ..errors import SpecError
+
+                leaf_id = dataset.leaves["leaf"].iloc[leaf]
+                raise SpecError(design.structure.name, [
+                    f"leaf {leaf_id!r} has {', '.join(missing)} curves, but the fit has no training points of that "
+                    f"curve type, so their residual SD is unknown; use sigma = \"shared\" or keep such leaves in training"])
+            self.sigma = sig[:, [kinds.index(k) for k in here]]
         else:
             self.sigma = np.repeat(sig[:, :1], len(self.y), axis=1)
         self.nu = draws["nu"][:, 0] if d["student_t"] else None

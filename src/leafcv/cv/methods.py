@@ -1,10 +1,16 @@
 """Leave-one-leaf-out (or leave-one-group-out) scores of one structure: methods auto, exact, kfold.
 
-auto: one full-data fit; per-leaf marginal likelihoods by quadrature; integrated PSIS (ArviZ's psislw);
-exact refits for leaves whose Pareto k-hat is above min(1 - 1/log10 S, 0.7) (Vehtari et al. 2024) and
-for a few random spot-check leaves; if more than 20 % of leaves are flagged, switch to grouped K-fold.
+auto: one full-data fit; per-leaf marginal likelihoods by checked quadrature; integrated PSIS (ArviZ's
+psislw) with Monte Carlo errors; exact refits for every leaf whose Pareto k-hat is above
+min(1 - 1/log10 S, 0.7) (Vehtari et al. 2024), however many, so that every structure estimates the
+same quantity (leave-one-leaf-out) on the same leaves; plus a few seeded spot-check leaves. A spot
+check that disagrees with PSIS beyond max(SPOT_MIN_NATS, SPOT_MCSE_MULTIPLE x combined MCSE) replaces
+the PSIS value and raises a warning; when two or more disagree, every leaf is refitted.
 exact: one refit per held-out fold (a leaf, or a level of a grouping). kfold: K seeded grouped folds.
 Every held-out leaf is scored jointly over its points, with its effects integrated out.
+
+Only the fits whose draws feed a score decide a structure's grade; a failed fit is retried with a
+remedy aimed at its cause (see `remedy`), up to MAX_ATTEMPTS attempts, each recorded.
 """
 from __future__ import annotations
 
@@ -15,17 +21,30 @@ import numpy as np
 
 from ..data.dataset import Dataset
 from ..design import leaf_link_values
+from ..diagnostics import worst_grade
+from ..errors import SpecError
 from ..fitting import StructureFit, fit_structure
 from ..inits import LeafFits
-from ..spec import Comparison, SamplerSpec, Structure
+from ..spec import Comparison, ParamSpec, SamplerSpec, Structure
 from .leafmodel import LeafModel, flatten_draws
-from .psis import integrated_loo_weights, khat_threshold, refit_elpd
-from .quadrature import leaf_log_marginal, prior_var
+from .psis import integrated_loo, khat_threshold, refit_elpd
+from .quadrature import QuadratureInfo, leaf_log_marginal
 from .result import CVResult
 
-FLAGGED_FRACTION_MAX = 0.2
-KFOLD_FALLBACK = 10
+#: Attempts per fit: the first and up to two targeted retries.
+MAX_ATTEMPTS = 3
+#: Seed offsets: attempt a of a fit uses seed + a * RETRY_SEED_OFFSET; refits of leaf g use
+#: run seed + REFIT_SEED_OFFSET + g (the same for every structure); K-fold fold i run seed + KFOLD_SEED_OFFSET + i.
 RETRY_SEED_OFFSET = 7919
+REFIT_SEED_OFFSET = 1000
+KFOLD_SEED_OFFSET = 5000
+#: Stream of the run seed that orders leaves for spot checks (the same leaves for every structure).
+SPOT_STREAM = 17
+#: A spot check disagrees when |PSIS - exact| > max(SPOT_MIN_NATS, SPOT_MCSE_MULTIPLE sqrt(mcse_psis^2 + mcse_exact^2)).
+SPOT_MIN_NATS = 0.1
+SPOT_MCSE_MULTIPLE = 3.0
+#: Spot checks that must disagree before every leaf of the structure is refitted.
+SPOT_DISAGREE_REFIT_ALL = 2
 
 
 @dataclass
@@ -36,20 +55,22 @@ class CVDetails:
     quadrature_seconds: float = 0.0
     refit_seconds: float = 0.0
     refit_leaves: list[str] = field(default_factory=list)
-    spot_checks: list[dict] = field(default_factory=list)   # leaf, khat, elpd_auto, elpd_exact
-    fallback_cells: int = 0
+    spot_checks: list[dict] = field(default_factory=list)
+    escalated_cells: int = 0
+    brute_force_cells: int = 0
+    unresolved: list[str] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
-    fits_converged: list[bool] = field(default_factory=list)
-    fit_problems: list[str] = field(default_factory=list)
+    fits: list[dict] = field(default_factory=list)       # every fit made: role, seeds, attempts, diagnostics
 
 
 @dataclass(frozen=True)
 class Scored:
     """Held-out scores of the leaves of one fit."""
 
-    log_m: np.ndarray            # (S, n leaves scored)
-    pred_mean: list[np.ndarray]  # per leaf: (S, n points) predictive means with effects integrated
-    fallback_cells: int
+    log_m: np.ndarray                 # (S, n leaves scored)
+    pred_mean: list[np.ndarray]       # per leaf: (S, n points) predictive means with effects integrated
+    quad: list[QuadratureInfo]        # per leaf
+    chains: int
 
 
 def folds_for(dataset: Dataset, by: str, method: str, k: int, seed: int) -> list[np.ndarray]:
@@ -69,91 +90,211 @@ def folds_for(dataset: Dataset, by: str, method: str, k: int, seed: int) -> list
     return [np.flatnonzero(units == u) for u in uniq]
 
 
-def score_leaves(fit: StructureFit, dataset: Dataset, leaves: np.ndarray, leaf_fits: LeafFits,
-                 use_own_draws: bool) -> Scored:
-    """Per-draw log marginal likelihood and predictive means of ``leaves`` under ``fit``.
-
-    ``use_own_draws``: start the mode search at each draw's own values of the leaf (the leaf was in
-    the fit); otherwise at the leaf's least-squares estimate.
-    """
-    draws = flatten_draws(fit.draws.params)
-    lv = leaf_link_values(fit.design, draws)
-    S = len(draws["b0"])
-    log_m = np.empty((S, len(leaves)))
-    preds, fallbacks = [], 0
-    for j, g in enumerate(leaves):
-        lm = LeafModel(fit.design, dataset, draws, lv, int(g))
-        if lm.dim == 0:
-            log_m[:, j] = lm.loglik_rows(np.arange(S))(np.zeros((S, 1, 0)))[:, 0]
-        else:
-            mean, sd = lm.mean_sd()
-            own = lm.own_values()
-            if use_own_draws:
-                start = own
-                c = own.mean(axis=0)
-                cov = np.atleast_2d(np.cov(own.T)) * 1.5**2
-            else:
-                ls = _ls_link(fit, leaf_fits, int(g), [fit.design.params[i] for i in lm.effect_params])
-                start = np.where(np.isnan(ls), mean, ls)     # population mean where not fitted per leaf
-                c = np.where(np.isnan(ls), mean.mean(axis=0), ls)
-                cov = np.diag(np.maximum(np.mean(np.sqrt(prior_var(sd)), axis=0), 0.05) ** 2) * 1.5**2
-            chol = np.linalg.cholesky(cov + 1e-10 * np.eye(lm.dim))
-            log_m[:, j], info = leaf_log_marginal(lm.loglik_rows, mean, sd, start, c, chol)
-            fallbacks += info.n_fallback
-        preds.append(lm.predictive_mean())
-    return Scored(log_m, preds, fallbacks)
-
-
 def _ls_link(fit: StructureFit, leaf_fits: LeafFits, g: int, params: list[str]) -> np.ndarray:
     """Least-squares estimate of the leaf's effect parameters on the link scale (NaN where not fitted)."""
     return np.array([leaf_fits.link_values(p, fit.design.ratio.get(p, False))[g] for p in params], float)
 
 
-def _fit(structure, dataset, comparison, sampler, leaf_fits, train, seed, engine, details, options, priors):
-    t = time.perf_counter()
+def score_leaves(fit: StructureFit, dataset: Dataset, leaves: np.ndarray, leaf_fits: LeafFits,
+                 in_fit: bool) -> Scored:
+    """Per-draw log marginal likelihood and predictive means of ``leaves`` under ``fit``.
+
+    Every cell is placed from the leaf's own conditional posterior at that draw (module
+    `leafcv.cv.quadrature`). Mode searches start at the leaf's own values in each draw (``in_fit``:
+    the leaf was in the fit), at its least-squares estimate and at the population mean.
+    """
+    draws = flatten_draws(fit.draws.params)
+    lv = leaf_link_values(fit.design, draws)
+    S = len(draws["b0"])
+    log_m = np.empty((S, len(leaves)))
+    preds, quad = [], []
+    for j, g in enumerate(leaves):
+        lm = LeafModel(fit.design, dataset, draws, lv, int(g))
+        if lm.dim == 0:
+            log_m[:, j] = lm.loglik_rows(np.arange(S))(np.zeros((S, 1, 0)))[:, 0]
+            quad.append(QuadratureInfo(S))
+        else:
+            mean, sd = lm.mean_sd()
+            ls = _ls_link(fit, leaf_fits, int(g), [fit.design.params[i] for i in lm.effect_params])
+            ls_start = np.where(np.isnan(ls), mean, ls)          # population mean where not fitted per leaf
+            starts = ([lm.own_values()] if in_fit else []) + [ls_start, mean]
+            log_m[:, j], info = leaf_log_marginal(lm.loglik_rows, mean, sd, starts)
+            quad.append(info)
+        preds.append(lm.predictive_mean())
+    return Scored(log_m, preds, quad, fit.draws.n_chains)
+
+
+def score_level(fit: StructureFit, dataset: Dataset, leaves: np.ndarray, leaf_fits: LeafFits
+                ) -> tuple[np.ndarray, float, int]:
+    """Per-draw joint log density of the leaves of one held-out level, their shared held-out effects
+    integrated once per draw (`leafcv.cv.heldout`); returns (log p (S,), accuracy bound in nats,
+    unresolved cells)."""
+    from .heldout import level_log_marginal
+
+    draws = flatten_draws(fit.draws.params)
+    lv = leaf_link_values(fit.design, draws)
+    models = [LeafModel(fit.design, dataset, draws, lv, int(g), integrate_heldout=False) for g in leaves]
+    keys = sorted({(r, lev) for m in models for r, lev, _, _ in m.shared})
+    starts = []
+    for g, m in zip(leaves, models):
+        mean = m.mu[:, m.effect_params]
+        ls = _ls_link(fit, leaf_fits, int(g), [fit.design.params[i] for i in m.effect_params])
+        starts.append([np.where(np.isnan(ls), mean, ls)])
+    if not keys:      # nothing shared: the leaves are independent given the draw
+        S = len(draws["b0"])
+        total, bound, bad = np.zeros(S), 0.0, 0
+        for m, st in zip(models, starts):
+            if m.dim == 0:
+                total += m.loglik_rows(np.arange(S))(np.zeros((S, 1, 0)))[:, 0]
+                continue
+            mean, sd = m.mean_sd()
+            lm, info = leaf_log_marginal(m.loglik_rows, mean, sd, st + [mean])
+            total, bound, bad = total + lm, bound + info.bound, bad + info.n_unresolved
+        return total, bound, bad
+    tau = np.stack([draws["tau"][:, r] for r, _ in keys], axis=1)
+    joint, info = level_log_marginal(models, tau, keys, starts)
+    return joint, info.bound, info.n_unresolved
+
+
+# ----------------------------------------------------------------------------------------------
+# fitting with targeted retries
+
+def _noncentred_groups(structure: Structure) -> Structure:
+    """The structure with every random term other than the leaf effects non-centred."""
+    params = {}
+    for p, ps in structure.params.items():
+        if ps is None:
+            params[p] = ps
+            continue
+        centring = dict(ps.centring)
+        for g in ps.random:
+            if g != "leaf":
+                centring[g] = "noncentred"
+        for trait, g in ps.slopes:
+            centring[f"{trait}|{g}"] = "noncentred"
+        params[p] = replace(ps, centring=centring)
+    return replace(structure, params=params)
+
+
+def remedy(problems: tuple[str, ...], sampler: SamplerSpec, structure: Structure, attempt: int
+           ) -> tuple[SamplerSpec, Structure, str]:
+    """Sampler settings and structure for the next attempt, aimed at the cause of the last failure.
+
+    Divergences: a higher adapt_delta (0.95, then 0.99) and, for random terms other than the leaf
+    effects, the non-centred form (few, weakly informed levels sample better so; DESIGN.md).
+    R-hat, ESS, E-BFMI or tree depth: twice the warm-up and twice the draws.
+    """
+    divergent = any("divergent" in p for p in problems)
+    mixing = any(p.startswith(("R-hat", "bulk ESS", "tail ESS", "E-BFMI")) or "tree depth" in p for p in problems)
+    causes, new, st = [], sampler, structure
+    if divergent:
+        new = replace(new, adapt_delta=max(new.adapt_delta, 0.95 if attempt == 1 else 0.99))
+        st = _noncentred_groups(structure)
+        causes.append(f"divergences: adapt_delta {new.adapt_delta:g}, group effects non-centred")
+    if mixing or not divergent:
+        new = replace(new, warmup=2 * new.warmup, draws=2 * new.draws)
+        causes.append(f"mixing: warm-up {new.warmup}, draws {new.draws} per chain")
+    return new, st, "; ".join(causes)
+
+
+def fit_with_retries(structure, dataset, comparison, sampler, leaf_fits, train, seed, engine, details,
+                     role, options=None, priors=None) -> StructureFit:
+    """Fit, and refit with targeted remedies while the fit fails (grade "failed"), up to MAX_ATTEMPTS.
+
+    Every attempt is recorded in ``details.fits`` (role, attempt, seed, settings, cause of the retry,
+    diagnostics); the last attempt is returned.
+    """
     kwargs = {} if options is None else {"options": options}
     if priors is not None:
         kwargs["priors"] = priors
-    fit = fit_structure(structure, dataset, comparison.data, sampler, engine=engine, train_leaves=train,
-                        leaf_fits=leaf_fits, seed=seed, **kwargs)
-    if not fit.diagnostics.converged:
-        # one retry with a new seed, aimed at the cause: a higher adapt_delta for divergences, twice the
-        # draws for R-hat or ESS; the first attempt's problems are reported
+    st, smp, cause = structure, sampler, ""
+    for attempt in range(MAX_ATTEMPTS):
+        s = seed + attempt * RETRY_SEED_OFFSET
+        t = time.perf_counter()
+        fit = fit_structure(st, dataset, comparison.data, smp, engine=engine, train_leaves=train,
+                            leaf_fits=leaf_fits, seed=s, **kwargs)
+        secs = time.perf_counter() - t
         dg = fit.diagnostics
-        first = "; ".join(dg.problems)
-        mixing = any(p.startswith(("R-hat", "bulk ESS", "tail ESS")) for p in dg.problems)
-        retry = replace(sampler, draws=2 * sampler.draws if mixing else sampler.draws,
-                        adapt_delta=max(0.99, sampler.adapt_delta) if dg.divergences else sampler.adapt_delta)
-        fit = fit_structure(structure, dataset, comparison.data, retry, engine=engine, train_leaves=train,
-                            leaf_fits=leaf_fits, seed=seed + RETRY_SEED_OFFSET, **kwargs)
-        details.notes.append(f"a fit ({'full data' if train is None else 'refit'}) failed its diagnostics ({first}) "
-                             f"and was retried with seed {seed + RETRY_SEED_OFFSET}, {retry.draws} draws per chain, "
-                             f"adapt_delta {retry.adapt_delta:g}: "
-                             + ("converged" if fit.diagnostics.converged else "; ".join(fit.diagnostics.problems)))
-    details.fits_converged.append(fit.diagnostics.converged)
-    if not fit.diagnostics.converged:
-        details.fit_problems.append("; ".join(fit.diagnostics.problems))
-    return fit, time.perf_counter() - t
+        details.fits.append({"role": role, "attempt": attempt + 1, "seed": s, "retry_cause": cause,
+                             "chains": smp.chains, "warmup": smp.warmup, "draws": smp.draws,
+                             "adapt_delta": smp.adapt_delta, "seconds": secs, **dg.as_dict()})
+        if dg.grade != "failed" or attempt == MAX_ATTEMPTS - 1:
+            return fit
+        smp, st, cause = remedy(dg.problems, smp, st, attempt + 1)
+        cause = f"attempt {attempt + 1} failed ({'; '.join(dg.problems)}); {cause}"
+    return fit
 
 
-def _refit_scores(structure, dataset, comparison, sampler, leaf_fits, folds, engine, details, options,
-                  priors, base_seed):
-    """Refit without each fold; returns per-leaf elpd and predictive means for the held-out leaves."""
+# ----------------------------------------------------------------------------------------------
+# cross-validation
+
+@dataclass
+class _Leafwise:
+    """Per-leaf values being assembled."""
+
+    L: int
+    elpd: np.ndarray = None
+    mcse: np.ndarray = None
+    bound: np.ndarray = None
+    khat: np.ndarray = None
+    how: list = None
+    preds: dict = field(default_factory=dict)
+
+    def __post_init__(self):
+        nan = np.full(self.L, np.nan)
+        self.elpd, self.mcse, self.bound, self.khat = nan.copy(), nan.copy(), nan.copy(), nan.copy()
+        self.how = [""] * self.L
+
+
+def _refit_leaves(structure, dataset, comparison, sampler, leaf_fits, folds, seeds, engine, details,
+                  options, priors, role) -> tuple[dict[int, tuple], list[str]]:
+    """Refit without each fold; per held-out leaf (elpd, mcse, bound, prediction, quad info, fold grade)."""
     L = dataset.n_leaves
-    elpd = np.full(L, np.nan)
-    preds: dict[int, np.ndarray] = {}
-    for i, held in enumerate(folds):
+    out: dict[int, tuple] = {}
+    grades = []
+    for held, seed in zip(folds, seeds):
         train = np.ones(L, bool)
         train[held] = False
-        fit, secs = _fit(structure, dataset, comparison, sampler, leaf_fits, train, base_seed + 1 + i,
-                         engine, details, options, priors)
-        details.refit_seconds += secs
-        sc = score_leaves(fit, dataset, held, leaf_fits, use_own_draws=False)
-        details.fallback_cells += sc.fallback_cells
+        _check_curve_types(structure, dataset, train, held)
+        t = time.perf_counter()
+        fit = fit_with_retries(structure, dataset, comparison, sampler, leaf_fits, train, seed, engine, details,
+                               f"{role} without {', '.join(str(dataset.leaves['leaf'].iloc[g]) for g in held)}",
+                               options, priors)
+        sc = score_leaves(fit, dataset, held, leaf_fits, in_fit=False)
+        details.refit_seconds += time.perf_counter() - t
+        grade = fit.diagnostics.grade
+        grades.append(grade)
         for j, g in enumerate(held):
-            elpd[g] = refit_elpd(sc.log_m[:, j])
-            preds[int(g)] = sc.pred_mean[j].mean(axis=0)
-    return elpd, preds
+            e, m = refit_elpd(sc.log_m[:, j], sc.chains)
+            out[int(g)] = (e, m, sc.quad[j].bound, sc.pred_mean[j].mean(axis=0), sc.quad[j], grade)
+    return out, grades
+
+
+def _check_curve_types(structure: Structure, dataset: Dataset, train: np.ndarray, held: np.ndarray) -> None:
+    """With a residual SD per curve type, every held-out leaf's curve types need training points."""
+    opts = structure.options
+    if not opts.sigma_by_curve:
+        return
+    obs = dataset.obs
+    trained = set(obs.loc[train[obs["leaf_index"].to_numpy()], "curve_type"])
+    problems = []
+    for g in held:
+        kinds = set(obs.loc[obs["leaf_index"] == g, "curve_type"]) - trained
+        if kinds:
+            problems.append(f"held-out leaf {dataset.leaves['leaf'].iloc[g]!r} has {', '.join(sorted(kinds))} curves, "
+                            f"but no training leaf does, so their residual SD is unknown; use sigma = \"shared\" "
+                            f"or hold out fewer leaves")
+    if problems:
+        raise SpecError(structure.name, problems)
+
+
+def _note_quadrature(details: CVDetails, leaf_ids, leaves, quads) -> None:
+    for g, q in zip(leaves, quads):
+        details.escalated_cells += q.n_escalated
+        details.brute_force_cells += q.n_brute
+        if q.n_unresolved:
+            details.unresolved.append(f"{leaf_ids[g]} ({q.n_unresolved} of {q.n_cells} draws; rules differ by up to "
+                                      f"{q.unresolved_gap:.3g} nats)")
 
 
 def cross_validate(structure: Structure, dataset: Dataset, comparison: Comparison, *, method: str = "auto",
@@ -165,65 +306,164 @@ def cross_validate(structure: Structure, dataset: Dataset, comparison: Compariso
     details = CVDetails()
     L = dataset.n_leaves
     leaf_ids = tuple(dataset.leaves["leaf"].astype(str))
-    preds: dict[int, np.ndarray] = {}
-    khat = None
+    acc = _Leafwise(L)
+    grades: list[str] = []
     n_refits = 0
+    n_draws = sampler.chains * sampler.draws
     if method == "auto" and by != "leaf":
         details.notes.append(f"integrated PSIS integrates one leaf's effects; folds by {by!r} are refitted exactly, "
                              f"each held-out leaf scored with the effects of its held-out {by} integrated too")
         method = "exact"
     if method == "auto":
-        fit, secs = _fit(structure, dataset, comparison, sampler, leaf_fits, None, sampler.seed, engine,
-                         details, options, priors)
-        details.full_fit_seconds = secs
         t = time.perf_counter()
-        sc = score_leaves(fit, dataset, np.arange(L), leaf_fits, use_own_draws=True)
-        elpd, khat, lw = integrated_loo_weights(sc.log_m)
-        details.fallback_cells += sc.fallback_cells
+        fit = fit_with_retries(structure, dataset, comparison, sampler, leaf_fits, None, sampler.seed, engine,
+                               details, "full data", options, priors)
+        details.full_fit_seconds = time.perf_counter() - t
+        grades.append(fit.diagnostics.grade)
+        n_draws = fit.draws.n_chains * fit.draws.n_draws
+        t = time.perf_counter()
+        sc = score_leaves(fit, dataset, np.arange(L), leaf_fits, in_fit=True)
+        est = integrated_loo(sc.log_m, sc.chains)
+        _note_quadrature(details, leaf_ids, range(L), sc.quad)
+        acc.elpd[:], acc.mcse[:], acc.khat[:] = est.elpd, est.mcse, est.khat
+        acc.bound[:] = [q.bound for q in sc.quad]
+        acc.how = ["psis"] * L
         for g in range(L):
-            w = np.exp(lw[g])
-            preds[g] = w @ sc.pred_mean[g]
+            acc.preds[g] = np.exp(est.log_weights[g]) @ sc.pred_mean[g]
         details.quadrature_seconds = time.perf_counter() - t
-        thr = khat_threshold(sc.log_m.shape[0])
-        flagged = np.flatnonzero(khat > thr)
-        if len(flagged) > FLAGGED_FRACTION_MAX * L:
-            details.notes.append(f"{len(flagged)} of {L} leaves have Pareto k-hat above {thr:.2f}: switched to "
-                                 f"grouped {KFOLD_FALLBACK}-fold cross-validation")
-            method = "kfold"
-            folds = KFOLD_FALLBACK
-        else:
-            rng = np.random.default_rng(sampler.seed)
-            rest = np.setdiff1d(np.arange(L), flagged)
-            spots = rng.choice(rest, size=min(spot_checks, len(rest)), replace=False) if len(rest) else []
-            todo = [np.array([g]) for g in list(flagged) + list(spots)]
-            ex, ex_preds = _refit_scores(structure, dataset, comparison, sampler, leaf_fits, todo, engine,
-                                         details, options, priors, sampler.seed + 1000)
-            n_refits = len(todo)
-            for g in flagged:
-                elpd[g] = ex[g]
-                preds[int(g)] = ex_preds[int(g)]
-                details.refit_leaves.append(leaf_ids[g])
-            for g in spots:
-                details.spot_checks.append({"leaf": leaf_ids[g], "khat": float(khat[g]),
-                                            "elpd_auto": float(elpd[g]), "elpd_exact": float(ex[g])})
-            if len(flagged):
-                details.notes.append(f"{len(flagged)} leaf/leaves with k-hat above {thr:.2f} refitted exactly: "
-                                     + ", ".join(leaf_ids[g] for g in flagged))
-    if method in ("exact", "kfold"):
+        thr = khat_threshold(n_draws)
+        flagged = [int(g) for g in np.flatnonzero(est.khat > thr)]
+        order = np.random.default_rng([sampler.seed, SPOT_STREAM]).permutation(L)
+        spots = [int(g) for g in order if g not in flagged][:spot_checks]
+        todo = flagged + spots
+        ex, ex_grades = _refit_leaves(structure, dataset, comparison, sampler, leaf_fits, [np.array([g]) for g in todo],
+                                      [sampler.seed + REFIT_SEED_OFFSET + g for g in todo], engine, details,
+                                      options, priors, "refit")
+        n_refits = len(todo)
+        _note_quadrature(details, leaf_ids, todo, [ex[g][4] for g in todo])
+        replace_leaves = list(flagged)
+        disagree = []
+        for g in spots:
+            e, m = ex[g][0], ex[g][1]
+            tol = max(SPOT_MIN_NATS, SPOT_MCSE_MULTIPLE * float(np.hypot(acc.mcse[g], m)))
+            bad = abs(acc.elpd[g] - e) > tol
+            details.spot_checks.append({"leaf": leaf_ids[g], "khat": float(acc.khat[g]), "elpd_psis": float(acc.elpd[g]),
+                                        "elpd_exact": float(e), "mcse_psis": float(acc.mcse[g]), "mcse_exact": float(m),
+                                        "tolerance": tol, "disagree": bool(bad), "refit_grade": ex[g][5]})
+            if bad:
+                disagree.append(g)
+                replace_leaves.append(g)
+        if disagree:
+            details.notes.append(f"spot check(s) of {', '.join(leaf_ids[g] for g in disagree)} disagree with PSIS "
+                                 f"beyond max({SPOT_MIN_NATS:g} nats, {SPOT_MCSE_MULTIPLE:g} x MCSE): the exact values are used")
+        if len(disagree) >= SPOT_DISAGREE_REFIT_ALL:
+            rest = [g for g in range(L) if g not in todo]
+            more, _ = _refit_leaves(structure, dataset, comparison, sampler, leaf_fits, [np.array([g]) for g in rest],
+                                    [sampler.seed + REFIT_SEED_OFFSET + g for g in rest], engine, details,
+                                    options, priors, "refit")
+            ex.update(more)
+            n_refits += len(rest)
+            _note_quadrature(details, leaf_ids, rest, [more[g][4] for g in rest])
+            replace_leaves += rest
+            details.notes.append(f"{len(disagree)} spot checks disagreed: every leaf was refitted exactly")
+        for g in replace_leaves:
+            e, m, b, pred, _, grade = ex[g]
+            acc.elpd[g], acc.mcse[g], acc.bound[g], acc.khat[g], acc.how[g] = e, m, b, np.nan, "refit"
+            acc.preds[g] = pred
+            grades.append(grade)
+            details.refit_leaves.append(leaf_ids[g])
+        if flagged:
+            details.notes.append(f"{len(flagged)} leaf/leaves with k-hat above {thr:.2f} refitted exactly: "
+                                 + ", ".join(leaf_ids[g] for g in flagged))
+        unresolved_in = [g for g in range(L) if acc.how[g] == "psis" and sc.quad[g].n_unresolved] + \
+                        [g for g in replace_leaves if ex[g][4].n_unresolved]
+    elif by != "leaf":
+        return _cross_validate_levels(structure, dataset, comparison, method, by, folds, engine, leaf_fits, sampler,
+                                      options, priors, details)
+    else:
         fold_sets = folds_for(dataset, by, method, folds, sampler.seed)
-        elpd, preds = _refit_scores(structure, dataset, comparison, sampler, leaf_fits, fold_sets, engine,
-                                    details, options, priors, sampler.seed)
+        base = sampler.seed + (KFOLD_SEED_OFFSET if method == "kfold" else REFIT_SEED_OFFSET)
+        ex, fold_grades = _refit_leaves(structure, dataset, comparison, sampler, leaf_fits, fold_sets,
+                                        [base + i for i in range(len(fold_sets))], engine, details, options, priors,
+                                        "refit" if method == "exact" else "fold")
+        grades += fold_grades
         n_refits = len(fold_sets)
-    rmse, r2 = _prediction_scores(dataset, preds)
-    warnings = []
-    if details.fit_problems:
-        warnings.append(f"{sum(not c for c in details.fits_converged)} of {len(details.fits_converged)} fits "
-                        f"did not converge ({details.fit_problems[0]})")
+        for g, (e, m, b, pred, q, _) in ex.items():
+            acc.elpd[g], acc.mcse[g], acc.bound[g], acc.how[g] = e, m, b, method
+            acc.preds[g] = pred
+        _note_quadrature(details, leaf_ids, list(ex), [v[4] for v in ex.values()])
+        unresolved_in = [g for g, v in ex.items() if v[4].n_unresolved]
+    rmse, r2 = _prediction_scores(dataset, acc.preds)
+    grade = worst_grade(grades)
+    warnings = _fit_warnings(details, grade)
     warnings += details.notes
-    result = CVResult(structure.name, method, leaf_ids, np.asarray(elpd), sampler.chains * sampler.draws,
-                      pareto_k=None if khat is None else np.asarray(khat), n_refits=n_refits,
-                      converged=all(details.fits_converged), warnings=tuple(warnings), rmse=rmse, r2=r2)
+    unscored = ""
+    if unresolved_in:
+        unscored = ("the held-out quadrature did not settle for " + ", ".join(leaf_ids[g] for g in unresolved_in)
+                    + " (" + "; ".join(details.unresolved) + ")")
+    result = CVResult(structure.name, method, leaf_ids, acc.elpd, n_draws, pareto_k=acc.khat, n_refits=n_refits,
+                      grade=grade, warnings=tuple(warnings), rmse=rmse, r2=r2, method_i=tuple(acc.how),
+                      mcse_i=acc.mcse, quad_bound_i=acc.bound, unscored=unscored)
     return result, details
+
+
+def _cross_validate_levels(structure, dataset, comparison, method, by, folds, engine, leaf_fits, sampler,
+                           options, priors, details) -> tuple[CVResult, CVDetails]:
+    """Leave-one-level-out (or K folds of levels) of grouping ``by``: each level scored jointly, with
+    the effects its leaves share integrated once per draw; SEs are then over levels."""
+    L = dataset.n_leaves
+    level_of = dataset.leaves[by].astype(str).to_numpy()
+    levels = sorted(set(level_of))
+    fold_sets = folds_for(dataset, by, method, folds, sampler.seed)
+    base = sampler.seed + (KFOLD_SEED_OFFSET if method == "kfold" else REFIT_SEED_OFFSET)
+    elpd, mcse, bound = np.full(len(levels), np.nan), np.full(len(levels), np.nan), np.full(len(levels), np.nan)
+    preds: dict[int, np.ndarray] = {}
+    grades, unresolved = [], []
+    for i, held in enumerate(fold_sets):
+        train = np.ones(L, bool)
+        train[held] = False
+        _check_curve_types(structure, dataset, train, held)
+        t = time.perf_counter()
+        names = sorted(set(level_of[held]))
+        fit = fit_with_retries(structure, dataset, comparison, sampler, leaf_fits, train, base + i, engine, details,
+                               f"{'refit' if method == 'exact' else 'fold'} without {by} {', '.join(names)}",
+                               options, priors)
+        grades.append(fit.diagnostics.grade)
+        sc = score_leaves(fit, dataset, held, leaf_fits, in_fit=False)      # predictions (and per-leaf checks)
+        for j, g in enumerate(held):
+            preds[int(g)] = sc.pred_mean[j].mean(axis=0)
+        for name in names:
+            members = held[level_of[held] == name]
+            joint, b, bad = score_level(fit, dataset, members, leaf_fits)
+            k = levels.index(name)
+            elpd[k], mcse[k] = refit_elpd(joint, fit.draws.n_chains)
+            bound[k] = b
+            if bad:
+                unresolved.append(f"{by} {name} ({bad} draws)")
+        details.refit_seconds += time.perf_counter() - t
+    rmse, r2 = _prediction_scores(dataset, preds)
+    grade = worst_grade(grades)
+    warnings = _fit_warnings(details, grade) + details.notes
+    unscored = ("the held-out quadrature did not settle for " + ", ".join(unresolved)) if unresolved else ""
+    n_draws = sampler.chains * sampler.draws
+    result = CVResult(structure.name, method, tuple(levels), elpd, n_draws, n_refits=len(fold_sets), grade=grade,
+                      warnings=tuple(warnings), rmse=rmse, r2=r2, mcse_i=mcse, quad_bound_i=bound,
+                      unscored=unscored, unit=by)
+    return result, details
+
+
+def _fit_warnings(details: CVDetails, grade: str) -> list[str]:
+    """Sentences on the fits that feed the score (spot-check refits that agreed are not among them)."""
+    last = {}
+    for f in details.fits:
+        last[f["role"]] = f                       # the attempt that was kept
+    kept = [f for f in last.values() if f["grade"] != "converged"]
+    if not kept:
+        return []
+    worst = kept[0]
+    word = "marginal convergence" if grade == "marginal" else "fits did not converge"
+    return [f"{word}: {len(kept)} of {len(last)} fits below the convergence thresholds after retries "
+            f"({worst['role']}: {'; '.join(worst['problems'])})"]
 
 
 def _prediction_scores(dataset: Dataset, preds: dict[int, np.ndarray]) -> tuple[dict, dict]:

@@ -1,16 +1,22 @@
 """Marginal likelihood of a leaf with its random effects integrated out, per posterior draw.
 
-For draw s, m_s = int prod_i p(y_i | b, theta_s) N(b | mu_s, diag(sd_s^2)) db over the leaf's own
-link-scale parameter values b (never over the standard-normal z of a non-centred term). Computed by
-Gauss-Hermite quadrature placed per draw at the mode of the integrand, scaled by the inverse negative
-Hessian (Laplace-adaptive; Pinheiro & Bates 1995; Liu & Pierce 1994). The hard minimum of the FvCB
-model has a kink, so every cell is checked: where the Newton search fails or a second, smaller rule
-disagrees by more than ``tol`` nats, the cell is recomputed on a wide, fine grid placed at
-``fallback_centre`` / ``fallback_chol`` (e.g. the leaf's full-fit posterior moments, widened).
+For draw s, m_s = int prod_i p(y_i | b, theta_s) N(b | mu_s, Sigma_s) db over the leaf's own
+link-scale parameter values b (never over the standard-normal z of a non-centred term).
 
-With probabilists' Hermite nodes z_q and weights w_q normalised to sum to 1, and b = c + C z,
-  log m ~= log|C| + logsumexp_q [log w_q + h(c + C z_q) - log phi(z_q)],
-where h is the log integrand (CROSS-VALIDATION.md, "Computing m_g").
+Every cell (leaf, draw) is placed from the leaf's own conditional posterior at that draw: the mode of
+the log integrand h found by damped Newton from one or more starts, scaled by the inverse negative
+Hessian (Laplace-adaptive Gauss-Hermite; Pinheiro & Bates 1995; Liu & Pierce 1994). With
+probabilists' Hermite nodes z_q and weights w_q normalised to sum to 1, and b = c + C z,
+  log m ~= log|C| + logsumexp_q [log w_q + h(c + C z_q) - log phi(z_q)]
+(CROSS-VALIDATION.md, "Computing m_g"). Beyond MAX_TENSOR_DIM dimensions a scrambled Sobol rule
+mapped to the normal takes the place of the tensor grid (Owen 2003, from memory).
+
+Every cell is checked by a second rule. Where the two disagree by more than ``tol`` nats, or the mode
+search failed, the cell is re-placed from further starts (multi-start across the kink of the hard
+minimum), then escalated to finer rules on wider grids (GH_LEVELS), then to a brute-force tensor
+trapezoid on a box widened until the integrand is negligible at its edge, checked against the same
+rule on every other node. No cell is ever recomputed on a grid that is not placed from its own
+conditional posterior. Cells whose rules never agree are counted, never hidden.
 """
 from __future__ import annotations
 
@@ -26,13 +32,6 @@ LogLik = Callable[[np.ndarray], np.ndarray]   # b (S, Q, d) -> log-likelihood of
 _LOG_2PI = np.log(2 * np.pi)
 
 
-@dataclass(frozen=True)
-class QuadratureInfo:
-    n_cells: int
-    n_fallback: int          # cells recomputed on the fallback grid
-    max_rule_gap: float      # largest |difference| between the two adaptive rules, in nats (before fallback)
-
-
 def gh_grid(n: int, d: int) -> tuple[np.ndarray, np.ndarray]:
     """Tensor Gauss-Hermite nodes (n^d, d) for the standard normal and log weights summing to 1."""
     x, w = hermegauss(n)
@@ -44,8 +43,6 @@ def gh_grid(n: int, d: int) -> tuple[np.ndarray, np.ndarray]:
 
 #: Largest dimension integrated by tensor Gauss-Hermite; beyond it a scrambled Sobol rule is used.
 MAX_TENSOR_DIM = 3
-#: Points of the quasi-Monte Carlo rule (main, check, fallback) beyond MAX_TENSOR_DIM dimensions.
-QMC_POINTS = (1024, 256, 4096)
 #: Draws per block, so that (draws x nodes x points) arrays stay small.
 BLOCK = 250
 
@@ -62,11 +59,6 @@ def qmc_grid(n_points: int, d: int, seed: int = 20261202) -> tuple[np.ndarray, n
     u = qmc.Sobol(d, scramble=True, seed=seed).random(n_points)
     z = norm.ppf(np.clip(u, 1e-12, 1 - 1e-12))
     return z, np.full(n_points, -np.log(n_points))
-
-
-def rule(n: int, d: int, kind: int = 0) -> tuple[np.ndarray, np.ndarray]:
-    """Gauss-Hermite with n nodes per dimension up to MAX_TENSOR_DIM, else QMC (kind 0 main, 1 check, 2 fallback)."""
-    return gh_grid(n, d) if d <= MAX_TENSOR_DIM else qmc_grid(QMC_POINTS[kind], d, seed=20261202 + kind)
 
 
 def prior_chol(sd: np.ndarray) -> np.ndarray:
@@ -94,28 +86,6 @@ def _log_prior(b: np.ndarray, mean: np.ndarray, sd: np.ndarray) -> np.ndarray:
 def log_integrand(loglik: LogLik, b: np.ndarray, mean: np.ndarray, sd: np.ndarray) -> np.ndarray:
     val = loglik(b) + _log_prior(b, mean, sd)
     return np.where(np.isfinite(val), val, -np.inf)
-
-
-def quadrature(loglik: LogLik, mean: np.ndarray, sd: np.ndarray, centre: np.ndarray, chol: np.ndarray,
-               n_nodes: int, kind: int = 0) -> np.ndarray:
-    """log m per draw on the grid centre + chol z; centre (S, d), chol (S, d, d) lower triangular."""
-    S, d = centre.shape
-    z, lw = rule(n_nodes, d, kind)
-    b = centre[:, None, :] + np.einsum("sij,qj->sqi", chol, z)
-    h = log_integrand(loglik, b, mean, sd)
-    log_phi = -0.5 * np.sum(z**2, axis=1) - 0.5 * d * _LOG_2PI
-    logdet = np.sum(np.log(np.abs(np.diagonal(chol, axis1=1, axis2=2))), axis=1)
-    return logdet + logsumexp(lw[None, :] + h - log_phi[None, :], axis=1)
-
-
-def blocked_quadrature(loglik_rows, rows: np.ndarray, mean, sd, centre, chol, n_nodes: int, kind: int = 0
-                       ) -> np.ndarray:
-    """`quadrature` over the draws ``rows`` in blocks of BLOCK draws (bounded memory)."""
-    out = np.empty(len(rows))
-    for i in range(0, len(rows), BLOCK):
-        r = rows[i:i + BLOCK]
-        out[i:i + BLOCK] = quadrature(loglik_rows(r), mean[r], sd[r], centre[r], chol[r], n_nodes, kind)
-    return out
 
 
 def _stencil(d: int, eps: float) -> np.ndarray:
@@ -206,19 +176,145 @@ def laplace_mode(loglik_rows: Callable[[np.ndarray], LogLik], mean: np.ndarray, 
     return b, chol, ok
 
 
+#: Two rules agree when their log m differ by at most this many nats (per cell).
+TOL = 0.01
+#: Escalation levels for d <= MAX_TENSOR_DIM: (nodes of the value rule, nodes of the check rule,
+#: scale factor on the Laplace Cholesky factor). Level 0 is the everyday pair; levels 1 and 2 use more
+#: nodes on a wider grid, for integrands that are far from Gaussian (the kink of the hard minimum).
+GH_LEVELS = ((7, 5, 1.0), (15, 11, 1.5), (31, 21, 2.5))
+GH_LEVELS_3D = ((7, 5, 1.0), (11, 9, 1.5), (21, 15, 2.5))
+#: The same for d > MAX_TENSOR_DIM: points of two scrambled Sobol rules with different seeds.
+QMC_LEVELS = ((1024, 256, 1.0), (4096, 1024, 1.5), (16384, 4096, 2.5))
+#: Brute-force tensor trapezoid (d <= MAX_TENSOR_DIM): nodes per dimension, box half-width in Laplace
+#: SDs, and how often the box may be doubled when the integrand is not negligible at its edge.
+BRUTE_NODES = {1: 801, 2: 161, 3: 45}
+BRUTE_HALF_WIDTH = 10.0
+BRUTE_WIDENINGS = 4
+#: ... and how often its spacing may be halved while the trapezoid and its nested check disagree.
+BRUTE_REFINEMENTS = 2
+#: The integrand at the edge of the brute-force box must be this many nats below its maximum.
+EDGE_DROP = 25.0
+
+
+@dataclass(frozen=True)
+class QuadratureInfo:
+    """How the cells of one leaf were integrated.
+
+    ``bound`` is the largest |difference| between the two rules of the level each resolved cell was
+    accepted at: an estimate of the error of every accepted log m_s, so of the leaf's elpd (a log of a
+    weighted mean of the m_s moves by at most the largest per-cell error).
+    """
+
+    n_cells: int
+    n_escalated: int = 0       # cells that needed a finer, wider rule than level 0
+    n_brute: int = 0           # cells settled by the brute-force trapezoid
+    n_unresolved: int = 0      # cells whose rules never agreed within the tolerance
+    bound: float = 0.0         # nats
+    unresolved_gap: float = 0.0
+
+
+def _level_rules(level: int, d: int):
+    """(value rule, check rule, scale) of an escalation level: rules are (nodes z, log weights)."""
+    if d <= MAX_TENSOR_DIM:
+        n_val, n_chk, scale = (GH_LEVELS_3D if d == 3 else GH_LEVELS)[level]
+        return gh_grid(n_val, d), gh_grid(n_chk, d), scale
+    n_val, n_chk, scale = QMC_LEVELS[level]
+    return qmc_grid(n_val, d, seed=20261202 + 2 * level), qmc_grid(n_chk, d, seed=20261203 + 2 * level), scale
+
+
+def _rule_log_m(loglik_rows, rows, mean, sd, centre, chol, rule_zw) -> np.ndarray:
+    """log m on the grid centre + chol z of the given rule, over draws ``rows`` in blocks."""
+    z, lw = rule_zw
+    d = z.shape[1]
+    log_phi = -0.5 * np.sum(z**2, axis=1) - 0.5 * d * _LOG_2PI
+    out = np.empty(len(rows))
+    for i in range(0, len(rows), BLOCK):
+        r = rows[i:i + BLOCK]
+        b = centre[r][:, None, :] + np.einsum("sij,qj->sqi", chol[r], z)
+        h = log_integrand(loglik_rows(r), b, mean[r], sd[r])
+        logdet = np.sum(np.log(np.abs(np.diagonal(chol[r], axis1=1, axis2=2))), axis=1)
+        out[i:i + BLOCK] = logdet + logsumexp(lw[None, :] + h - log_phi[None, :], axis=1)
+    return out
+
+
+def _trapezoid_log_m(h_fn, centre: np.ndarray, half: np.ndarray, n: int) -> tuple[float, float, bool]:
+    """Tensor trapezoid of exp(h) over the box centre +- half with n nodes per dimension (n odd), and
+    the same rule on every other node (the nested check). Returns (log m, log m of the check rule,
+    whether h at the box's edge is at least EDGE_DROP nats below its maximum)."""
+    d = len(centre)
+    axes = [np.linspace(c - w, c + w, n) for c, w in zip(centre, half)]
+    grid = np.stack(np.meshgrid(*axes, indexing="ij"), -1).reshape(1, -1, d)
+    h = h_fn(grid)[0].reshape((n,) * d)
+    peak = np.max(h)
+    if not np.isfinite(peak):
+        return -np.inf, -np.inf, False
+    edge = max(np.max(np.take(h, [0, -1], axis=k)) for k in range(d))
+    out = []
+    for step in (1, 2):
+        sub = h[tuple(slice(None, None, step) for _ in range(d))]
+        m = sub.shape[0]
+        logw = np.zeros((m,) * d)
+        for k in range(d):
+            w1 = np.full(m, np.log(2 * half[k] / (m - 1)))
+            w1[[0, -1]] -= np.log(2)
+            logw = logw + w1.reshape([-1 if j == k else 1 for j in range(d)])
+        out.append(float(logsumexp(sub + logw)))
+    return out[0], out[1], bool(edge < peak - EDGE_DROP)
+
+
+def _brute_force(loglik_rows, s: int, mean, sd, centre, chol, tol: float) -> tuple[float, float]:
+    """Brute-force log m of draw s: a tensor trapezoid on a box around the mode, widened until the
+    integrand is negligible at its edge; returns (value, |value - nested check|), or a gap of inf."""
+    d = centre.shape[1]
+    rows = np.array([s])
+
+    def h_fn(b):
+        return log_integrand(loglik_rows(rows), b, mean[rows], sd[rows])
+
+    scale = np.sqrt(np.sum(chol[s] ** 2, axis=1))
+    prior = np.sqrt(prior_var(sd[rows]))[0]
+    half = BRUTE_HALF_WIDTH * np.clip(scale, 1e-3 * prior, 2.0 * prior)
+    n = BRUTE_NODES[d]
+    for _ in range(BRUTE_WIDENINGS + 1):
+        val, chk, inside = _trapezoid_log_m(h_fn, centre[s], half, n)
+        if inside:
+            break
+        half = 2 * half
+    else:
+        return val, float("inf")
+    for _ in range(BRUTE_REFINEMENTS):       # halve the spacing while the nested rules disagree
+        if abs(val - chk) <= tol:
+            break
+        n = 2 * n - 1
+        val, chk, _ = _trapezoid_log_m(h_fn, centre[s], half, n)
+    return val, abs(val - chk)
+
+
+def _modes(loglik_rows, mean, sd, starts: list[np.ndarray], rows: np.ndarray,
+           mode: np.ndarray, chol: np.ndarray, ok: np.ndarray, hmax: np.ndarray) -> None:
+    """Search the mode of draws ``rows`` from each start; keep, per draw, the best result in place
+    (an ok mode beats a failed one; among equals the higher log integrand wins)."""
+    for start in starts:
+        for i in range(0, len(rows), BLOCK):
+            r = rows[i:i + BLOCK]
+            m, c, k = laplace_mode(lambda sub, r=r: loglik_rows(r[sub]), mean[r], sd[r], start[r])
+            h = log_integrand(loglik_rows(r), m[:, None, :], mean[r], sd[r])[:, 0]
+            better = (k & ~ok[r]) | ((k == ok[r]) & (h > hmax[r]))
+            rb = r[better]
+            mode[rb], chol[rb], ok[rb], hmax[rb] = m[better], c[better], k[better], h[better]
+
+
 def leaf_log_marginal(
     loglik_rows: Callable[[np.ndarray], LogLik],
     mean: np.ndarray,
     sd: np.ndarray,
-    start: np.ndarray,
-    fallback_centre: np.ndarray,
-    fallback_chol: np.ndarray,
-    n_nodes: int = 7,
-    n_check: int = 5,
-    n_fallback: int = 21,
-    tol: float = 0.05,
+    starts: np.ndarray | list[np.ndarray],
+    *,
+    tol: float = TOL,
+    first_level: int = 0,
 ) -> tuple[np.ndarray, QuadratureInfo]:
-    """log m_s of one leaf for every draw s, with the robust scheme described in the module docstring.
+    """log m_s of one leaf for every draw s, every cell placed from the leaf's own conditional
+    posterior at that draw and checked (module docstring).
 
     Parameters
     ----------
@@ -228,26 +324,76 @@ def leaf_log_marginal(
     mean, sd
         Population mean and SD of the leaf's effects per draw, (S, d); for correlated effects the
         Cholesky factor of their covariance, (S, d, d).
-    start
-        Starting points of the mode search, (S, d).
-    fallback_centre, fallback_chol
-        Grid for cells that fail the checks: (d,) and (d, d), or per draw (S, d) and (S, d, d).
+    starts
+        One or more (S, d) starting points of the per-draw mode search (e.g. the leaf's own values in
+        each draw, its least-squares estimate, the population mean). The first is searched for every
+        draw, the others for draws whose search or checks failed, together with points one Laplace
+        SD either side of the first mode along each axis (to cross a kink of the minimum).
+    tol
+        Two rules agree when their log m differ by at most ``tol`` nats.
+    first_level
+        Escalation level to start at (0 normally; tests start higher to check each level; 3 is the
+        brute-force trapezoid alone).
+
+    Returns
+    -------
+    (log m (S,), QuadratureInfo). Cells whose rules never agree keep their last value and are
+    counted in ``n_unresolved``: the caller must not score the leaf silently.
     """
+    starts = [np.asarray(starts, float)] if np.ndim(starts) == 2 else [np.asarray(x, float) for x in starts]
     S, d = mean.shape
-    rows = np.arange(S)
-    mode, chol, ok = np.empty((S, d)), np.empty((S, d, d)), np.empty(S, bool)
-    for i in range(0, S, BLOCK):
-        r = rows[i:i + BLOCK]
-        mode[r], chol[r], ok[r] = laplace_mode(lambda sub, r=r: loglik_rows(r[sub]), mean[r], sd[r], start[r])
-    lm = blocked_quadrature(loglik_rows, rows, mean, sd, mode, chol, n_nodes, 0)
-    lm_check = blocked_quadrature(loglik_rows, rows, mean, sd, mode, chol, n_check, 1)
-    gap = np.abs(lm - lm_check)
-    gap = np.where(np.isfinite(gap), gap, np.inf)
-    redo = ~ok | (gap > tol) | ~np.isfinite(lm)
-    max_gap = float(np.max(np.where(ok, gap, 0.0))) if ok.any() else float("inf")
-    if redo.any():
-        r = np.flatnonzero(redo)
-        fc = np.array(np.broadcast_to(fallback_centre, (S, d)))
-        fch = np.array(np.broadcast_to(fallback_chol, (S, d, d)))
-        lm[r] = blocked_quadrature(loglik_rows, r, mean, sd, fc, fch, n_fallback if d <= 2 else 9, 2)
-    return lm, QuadratureInfo(S, int(redo.sum()), max_gap)
+    all_rows = np.arange(S)
+    mode, chol = np.empty((S, d)), np.empty((S, d, d))
+    ok, hmax = np.zeros(S, bool), np.full(S, -np.inf)
+    _modes(loglik_rows, mean, sd, starts[:1], all_rows, mode, chol, ok, hmax)
+    retry = np.flatnonzero(~ok)
+    if retry.size and len(starts) > 1:
+        _modes(loglik_rows, mean, sd, starts[1:], retry, mode, chol, ok, hmax)
+    lm = np.full(S, -np.inf)
+    gap = np.full(S, np.inf)
+    todo = all_rows
+    restarted = np.zeros(S, bool)
+    escalated = np.zeros(S, bool)
+    n_levels = len(GH_LEVELS)
+    for level in range(first_level, n_levels):
+        if not todo.size:
+            break
+        val_rule, chk_rule, scale = _level_rules(level, d)
+        for attempt in range(2):
+            c = chol * scale
+            v = _rule_log_m(loglik_rows, todo, mean, sd, mode, c, val_rule)
+            k = _rule_log_m(loglik_rows, todo, mean, sd, mode, c, chk_rule)
+            g = np.abs(v - k)
+            g = np.where(np.isfinite(g), g, np.inf)
+            lm[todo], gap[todo] = v, g
+            bad = todo[(g > tol) | ~np.isfinite(v) | ~ok[todo]]
+            fresh = bad[~restarted[bad]]
+            if attempt or not fresh.size:
+                break
+            # multi-start: the other starts, and one Laplace SD either side of the mode on each axis
+            restarted[fresh] = True
+            sdev = np.sqrt(np.sum(chol[fresh] ** 2, axis=2))
+            extra = list(starts[1:])
+            for j in range(d):
+                for sign in (1.0, -1.0):
+                    e = np.array(mode, copy=True)
+                    e[fresh, j] += sign * sdev[:, j]
+                    extra.append(e)
+            _modes(loglik_rows, mean, sd, extra, fresh, mode, chol, ok, hmax)
+        todo = todo[(gap[todo] > tol) | ~np.isfinite(lm[todo]) | ~ok[todo]]
+        escalated[todo] = True
+    n_brute = 0
+    if todo.size and d <= MAX_TENSOR_DIM:
+        for s in todo:
+            v, g = _brute_force(loglik_rows, int(s), mean, sd, mode, chol, tol)
+            if g <= tol or g < gap[s]:
+                lm[s], gap[s] = v, g
+            n_brute += 1
+        todo = todo[gap[todo] > tol]
+    resolved = np.ones(S, bool)
+    resolved[todo] = False
+    info = QuadratureInfo(
+        n_cells=S, n_escalated=int(escalated.sum()), n_brute=n_brute, n_unresolved=int(todo.size),
+        bound=float(np.max(gap[resolved])) if resolved.any() else float("inf"),
+        unresolved_gap=float(np.max(gap[todo])) if todo.size else 0.0)
+    return lm, info

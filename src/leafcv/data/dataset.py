@@ -15,7 +15,9 @@ class Dataset:
         One row per gas-exchange point, columns: ``leaf`` (str), ``leaf_index`` (int, 0-based, into
         ``leaves``), ``curve`` (str), ``curve_type`` ("aci" or "aq"), ``a_net`` (umol m-2 s-1),
         ``ci`` (umol mol-1), ``ppfd`` (umol m-2 s-1), ``t_leaf`` (deg C), ``o2`` (mmol mol-1),
-        ``row`` (1-based line number of the point in the user's file, header = line 1).
+        ``row`` (1-based line number of the point in the user's file, header = line 1). A comparison
+        file names these variables by their data roles (``net_assimilation`` for ``a_net``, ...; see
+        `leafcv.data.roles`).
     leaves
         One row per leaf in order of first appearance (row i has leaf_index i): ``leaf`` and every
         group column (str) and trait column (float), under the user's column names.

@@ -17,8 +17,9 @@ import pandas as pd
 from ..errors import DataError
 from ..spec import OPTIONAL_COLUMNS, REQUIRED_COLUMNS, DataSpec
 from .dataset import Dataset
+from .roles import CI_UNITS_KEY, ROLE_OF
 
-#: Units accepted for Ci under ``[data.units] ci``.
+#: Units accepted for intercellular CO2 under ``[data.units] intercellular_co2``.
 CI_UNITS: tuple[str, ...] = ("umol/mol", "Pa")
 #: Leaf temperature (deg C) used when no column is mapped: the reference temperature to which FvCB
 #: parameters are normalised (Bernacchi et al. 2001, Plant Cell Environ 24:253-259).
@@ -53,10 +54,10 @@ _UNITS = {"a_net": "umol m-2 s-1", "ci": "umol/mol", "ppfd": "umol m-2 s-1", "t_
           "o2": "mmol/mol"}
 _RANGE_ADVICE = {
     "a_net": "net assimilation is expected in umol m-2 s-1; check the column and remove logging errors",
-    "ci": "Ci is intercellular CO2; check the column and [data.units] ci",
-    "ppfd": "PPFD is incident light in umol m-2 s-1; check the column",
+    "ci": f"intercellular CO2 is expected in umol/mol; check the column and [data.units] {CI_UNITS_KEY}",
+    "ppfd": "photon flux is the incident light in umol m-2 s-1; check the column",
     "t_leaf": "leaf temperature is expected in deg C",
-    "o2": "O2 is expected in mmol/mol (210 in air)",
+    "o2": "oxygen is expected in mmol/mol (210 in air)",
 }
 
 
@@ -82,8 +83,9 @@ def load_dataset(spec: DataSpec) -> Dataset:
     Parameters
     ----------
     spec
-        Where the file is, how its columns map to leafcv's variables, the Ci unit, and the
-        leaf-level group and trait columns.
+        Where the file is, how its columns map to leafcv's observation variables (``spec.columns``
+        is keyed by variable: ``a_net``, ``ci``, ...; messages name each by its data role, the key
+        the user wrote under [data.columns]), the Ci unit, and the leaf-level group and trait columns.
 
     Returns
     -------
@@ -164,7 +166,8 @@ def load_dataset(spec: DataSpec) -> Dataset:
     for var, default, unit in (("t_leaf", DEFAULT_T_LEAF, "deg C"), ("o2", DEFAULT_O2, "mmol/mol")):
         if var not in numbers:
             numbers[var] = np.full(n, default)
-            notes.append(f"no {var} column mapped: {var} set to {default:g} {unit} for every point")
+            notes.append(f"no {ROLE_OF[var]} column mapped: {ROLE_OF[var]} set to {default:g} {unit} "
+                         f"for every point")
     leaves, leaf_index = _leaf_table(leaf, group_values, trait_values)
     obs = pd.DataFrame({
         "leaf": pd.Series(leaf, dtype=str), "leaf_index": leaf_index,
@@ -215,19 +218,21 @@ def _check_spec(spec: DataSpec) -> tuple[list[str], list[str]]:
     known = REQUIRED_COLUMNS + OPTIONAL_COLUMNS
     unknown = [v for v in spec.columns if v not in known]
     if unknown:
-        problems.append(f"[data.columns] has unknown variable(s) {', '.join(map(repr, unknown))}; "
+        # DataSpec.columns is keyed by observation variable; a comparison file's data roles are
+        # translated (and checked) by leafcv.comparison before they get here.
+        problems.append(f"DataSpec.columns has unknown observation variable(s) {', '.join(map(repr, unknown))}; "
                         f"valid variables: {', '.join(known)}")
     for var in REQUIRED_COLUMNS:
         if not spec.columns.get(var):
-            problems.append(f"[data.columns] must map {var} to a column of the file "
-                            f"(e.g. {var} = \"your column name\")")
+            problems.append(f"[data.columns] must map {ROLE_OF[var]} to a column of the file "
+                            f"(e.g. {ROLE_OF[var]} = \"your column name\")")
     by_name: dict[str, list[str]] = {}
     for var, name in _valid_mapping(spec).items():
-        by_name.setdefault(name, []).append(var)
+        by_name.setdefault(name, []).append(ROLE_OF[var])
     for name, variables in by_name.items():
         if len(variables) > 1:
             problems.append(f"column {name!r} is mapped to {' and '.join(variables)} under [data.columns]; "
-                            f"each variable needs its own column")
+                            f"each data role needs its own column")
     problems += _check_leaf_columns(spec)
     unit_problems, notes = _check_units(spec)
     return problems + unit_problems, notes
@@ -255,17 +260,17 @@ def _check_units(spec: DataSpec) -> tuple[list[str], list[str]]:
         if str(unit).lower() in {"ppm", "µmol/mol", "umol mol-1", "µmol mol-1"}:
             close = ["umol/mol"]
         hint = f" (did you mean {next(u for u in CI_UNITS if u.lower() == close[0].lower())!r}?)" if close else ""
-        problems.append(f"[data.units] ci = {unit!r} is not a known unit{hint}; valid units: "
+        problems.append(f"[data.units] {CI_UNITS_KEY} = {unit!r} is not a known unit{hint}; valid units: "
                         f"{', '.join(map(repr, CI_UNITS))} ('Pa' also needs pressure_kpa)")
     elif unit == "Pa" and pressure is None:
-        problems.append("[data.units] ci = \"Pa\" needs pressure_kpa, the air pressure in kPa at which Ci "
-                        "was measured (about 101.3 at sea level), to convert Ci to umol/mol")
+        problems.append(f"[data.units] {CI_UNITS_KEY} = \"Pa\" needs pressure_kpa, the air pressure in kPa at "
+                        "which intercellular CO2 was measured (about 101.3 at sea level), to convert it to umol/mol")
     if pressure is not None and unit == "Pa" and not _plausible_pressure(pressure):
         problems.append(f"[data.units] pressure_kpa = {pressure!r} is not a pressure between "
                         f"{PRESSURE_RANGE_KPA[0]:g} and {PRESSURE_RANGE_KPA[1]:g} kPa; give the air pressure "
                         f"in kPa (about 101.3 at sea level)")
     elif pressure is not None and unit == "umol/mol":
-        notes.append("pressure_kpa is not used: Ci is declared in umol/mol")
+        notes.append(f"pressure_kpa is not used: {CI_UNITS_KEY} is declared in umol/mol")
     return problems, notes
 
 
@@ -314,7 +319,7 @@ def _parser_problem(exc: Exception) -> str:
 
 
 def _check_header(table: _Table, spec: DataSpec) -> list[str]:
-    wanted = [(name, var, f"[data.columns] {var}") for var, name in _valid_mapping(spec).items()]
+    wanted = [(name, ROLE_OF[var], f"[data.columns] {ROLE_OF[var]}") for var, name in _valid_mapping(spec).items()]
     wanted += [(name, "group", "[data.leaf] groups") for name in spec.groups]
     wanted += [(name, "trait", "[data.leaf] traits") for name in spec.traits]
     problems = []
@@ -347,16 +352,16 @@ def _parse_cells(table: _Table, names: dict[str, str], numeric: Sequence[str], t
                  role: str | None = None) -> tuple[dict[str, np.ndarray], dict[str, np.ndarray], list[str]]:
     """Numbers and texts of the columns ``names`` (key -> user's name), with problems found.
 
-    ``role`` names the columns in messages; by default the key (the leafcv variable) does.
+    ``role`` names the columns in messages; by default the key's data role does.
     """
     numbers: dict[str, np.ndarray] = {}
     texts: dict[str, np.ndarray] = {}
     problems: list[str] = []
     for key, name in names.items():
         if key in numeric:
-            numbers[key], found = _numeric_column(table, name, role or key)
+            numbers[key], found = _numeric_column(table, name, role or ROLE_OF.get(key, key))
         elif key in text:
-            texts[key], found = _text_column(table, name, role or key)
+            texts[key], found = _text_column(table, name, role or ROLE_OF.get(key, key))
         else:
             continue
         problems += found
@@ -400,7 +405,7 @@ def _missing_advice(role: str) -> str:
         return "give every point the id of its leaf"
     if role == "curve":
         return "give every point the id of its curve, or remove the curve mapping to infer curves"
-    default = {"t_leaf": f"{DEFAULT_T_LEAF:g} deg C", "o2": f"{DEFAULT_O2:g} mmol/mol"}.get(role)
+    default = {ROLE_OF["t_leaf"]: f"{DEFAULT_T_LEAF:g} deg C", ROLE_OF["o2"]: f"{DEFAULT_O2:g} mmol/mol"}.get(role)
     tail = f" (or remove the {role} mapping to use {default} for every point)" if default else ""
     return f"every point needs a value: fill them in or delete those rows{tail}"
 
@@ -410,22 +415,22 @@ def _missing_advice(role: str) -> str:
 def _convert_ci(ci: np.ndarray, rows: np.ndarray, name: str,
                 spec: DataSpec) -> tuple[np.ndarray, list[str], list[str]]:
     """Ci in umol/mol, with unit hints and range problems; unconvertible units skip the checks."""
-    label = _label(name, "ci")
+    label = _label(name, ROLE_OF["ci"])
     finite = ci[np.isfinite(ci)]
     median = float(np.median(finite)) if finite.size else np.nan
     if spec.ci_unit == "umol/mol":
         problems = []
         if median < PA_LIKE_MEDIAN:
             problems.append(f"{label} has a median of {median:.3g}, low for umol/mol (air gives a few hundred); "
-                            f"this looks like Pa; set units ci = \"Pa\" and pressure_kpa (the air pressure "
-                            f"in kPa) under [data.units]")
+                            f"this looks like Pa; set {CI_UNITS_KEY} = \"Pa\" and pressure_kpa (the air "
+                            f"pressure in kPa) under [data.units]")
         return ci, problems + _range_problems(ci, rows, name, "ci"), []
     if spec.ci_unit != "Pa":
         return ci, [], []
     problems = []
     if median > UMOL_LIKE_MEDIAN_PA:
         problems.append(f"{label} has a median of {median:.3g}, high for Pa (air gives about 40); this looks "
-                        f"like umol/mol; set units ci = \"umol/mol\" under [data.units]")
+                        f"like umol/mol; set {CI_UNITS_KEY} = \"umol/mol\" under [data.units]")
     pressure = spec.pressure_kpa
     if not _plausible_pressure(pressure):
         return ci, problems, []     # the pressure problem is reported with the units
@@ -443,7 +448,7 @@ def _range_problems(values: np.ndarray, rows: np.ndarray, name: str, var: str,
     if not outside.any():
         return []
     shown = values if shown is None else shown
-    return [f"{_label(name, var)} has {int(outside.sum())} value(s) outside the plausible range {low:g} to "
+    return [f"{_label(name, ROLE_OF[var])} has {int(outside.sum())} value(s) outside the plausible range {low:g} to "
             f"{high:g} {unit or _UNITS[var]} in {_rows_values(rows[outside], list(shown[outside]))}; "
             f"{_RANGE_ADVICE[var]}"]
 
@@ -451,7 +456,7 @@ def _range_problems(values: np.ndarray, rows: np.ndarray, name: str, var: str,
 def _kelvin_hint(t_leaf: np.ndarray, name: str) -> list[str]:
     finite = t_leaf[np.isfinite(t_leaf)]
     if finite.size and np.median(finite) > KELVIN_LIKE_MEDIAN:
-        return [f"{_label(name, 't_leaf')} looks like kelvin (median {np.median(finite):.4g}); "
+        return [f"{_label(name, ROLE_OF['t_leaf'])} looks like kelvin (median {np.median(finite):.4g}); "
                 f"convert it to deg C (subtract 273.15)"]
     return []
 
