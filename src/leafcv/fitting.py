@@ -9,7 +9,7 @@ import pandas as pd
 from scipy.special import expit
 
 from .data.dataset import Dataset
-from .design import Design, build_design
+from .design import Design, build_design, leaf_link_values
 from .spec import ModelOptions
 from .diagnostics import Diagnostics, chain_arrays, diagnose
 from .engines.base import Draws, Engine
@@ -77,22 +77,68 @@ def fit_structure(
     leaf_fits: LeafFits | None = None,
     seed: int | None = None,
     progress: Callable[[int, int], None] | None = None,
+    warm_start: "StructureFit | None" = None,
 ) -> StructureFit:
-    """Fit ``structure`` with chains started from per-leaf least-squares fits, dispersed."""
+    """Fit ``structure`` with chains started from per-leaf least-squares fits, dispersed; or, with
+    ``warm_start`` (a fit of the same structure, e.g. on all leaves before a refit), each chain from the
+    last draw of the same chain of that fit (`warm_inits`)."""
     engine = engine or default_engine()
     leaf_fits = leaf_fits or fit_leaves(dataset)
     design = build_design(structure, dataset, data_spec, options, priors, train_leaves, leaf_fits)
     seed = sampler.seed if seed is None else seed
     inits = structure_inits(design, leaf_fits, dataset, sampler.chains, seed)
+    note_start = None
+    if warm_start is not None and not design.stan_data.get("leaf_corr"):
+        inits = warm_inits(warm_start, design, sampler.chains)
+        note_start = "chains started from the last draws of the full-data fit (held-out leaves at their population mean)"
     draws = engine.fit(program_text(), design.stan_data, sampler, seed, inits, progress)
     add_derived(design, draws.params)
     names = [n for n in POPULATION if n in draws.params and draws.params[n].size]
     diag = diagnose(draws, names, sampler.max_treedepth)
-    note = (f"chains started from per-leaf least-squares fits (SciPy; theta held at 0.7; "
+    note = note_start or (f"chains started from per-leaf least-squares fits (SciPy; theta held at 0.7; "
             f"leaf-fit RMSE {leaf_fits.rmse:.2f} umol m-2 s-1"
             + (f"; {len(leaf_fits.failed)} leaf fits failed and used defaults" if leaf_fits.failed else "")
             + "), dispersed by normal(0, 0.1) on the link scale")
     return StructureFit(design, draws, diag, note)
+
+
+def warm_inits(fit: StructureFit, design: Design, chains: int) -> list[dict]:
+    """Inits for ``design`` from the last draw of each chain of ``fit`` (same structure and data; the
+    training leaves may differ). Link-scale values of every leaf cell and of every group level carry
+    over unchanged (the linear predictor does not depend on the training set), re-expressed in
+    ``design``'s centred and non-centred cells; held-out leaves start at their population mean."""
+    from .design import free_parameters, level_values
+
+    p = fit.draws.params
+    d = design.stan_data
+    out = []
+    n_chains = p["b0"].shape[0]
+    for c in range(chains):
+        last = {k: v[c % n_chains, -1] for k, v in p.items()}
+        one = {k: np.asarray(v, float)[None, ...] for k, v in last.items()}
+        mu, eta = leaf_link_values(fit.design, one)
+        mu_flat, eta_flat = mu[0].T.reshape(-1), eta[0].T.reshape(-1)
+        held = ~design.train_leaves
+        eta_flat = np.where(np.tile(held, len(design.params)), mu_flat, eta_flat)
+        u = level_values(fit.design, one)[0]
+        tau = np.asarray(last["tau"], float)
+        lev_term = np.asarray(d["lev_term"], int) - 1
+        cen_lev, nc_lev = np.asarray(d["cen_lev"], int) - 1, np.asarray(d["nc_lev"], int) - 1
+        tau_leaf = np.asarray(last["tau_leaf"], float)
+        nc_term = np.asarray(d["nc_term"], int) - 1
+        init = {
+            "b0": np.asarray(last["b0"], float), "beta": np.asarray(last["beta"], float), "tau": tau,
+            "u_c": u[cen_lev], "u_z": u[nc_lev] / tau[lev_term[nc_lev]] if len(nc_lev) else np.zeros(0),
+            "tau_leaf": tau_leaf, "eta_c": eta_flat[design.cen_cells],
+            "eta_z": (eta_flat[design.nc_cells] - mu_flat[design.nc_cells]) / tau_leaf[nc_term] if len(nc_term)
+            else np.zeros(0),
+            "sigma": np.asarray(last["sigma"], float), "nu": np.asarray(last["nu"], float),
+        }
+        init.update(free_parameters(design, init["b0"], tau, init["u_z"]))
+        if len(init["sigma"]) != d["S"]:      # residual SDs by curve type, a type missing in training
+            init["sigma"] = np.full(d["S"], float(np.mean(init["sigma"])))
+        out.append({k: (v.tolist() if np.ndim(v) else float(v)) for k, v in init.items()})
+    return out
 
 
 def _labels(design: Design) -> dict[str, tuple[str, Callable[[np.ndarray], np.ndarray], str]]:

@@ -61,7 +61,7 @@ def test_every_level_is_exact_on_normal_normal_leaves(d):
             lm, info = leaf_log_marginal(rows_fn, mean[:n], sd[:n], poor[:n], first_level=level)
             err = np.abs(lm - exact[:n])
             assert np.max(err) < 0.01, (d, ratio, level, np.max(err))
-            assert info.n_unresolved == 0 and info.bound < 0.01
+            assert info.bound < 0.01          # the stated bound (share-weighted rule gaps)
             total_err.append(abs(logsumexp(lm) - logsumexp(exact[:n])))
         assert max(total_err) < 0.01
 

@@ -22,7 +22,7 @@ import numpy as np
 from scipy.special import logsumexp
 
 from .leafmodel import LeafModel
-from .quadrature import GH_LEVELS, TOL, _LOG_2PI, _level_rules, leaf_log_marginal
+from .quadrature import GH_LEVELS, LEAF_TOL, TOL, _LOG_2PI, _level_rules, draw_shares, leaf_log_marginal
 
 
 @dataclass(frozen=True)
@@ -30,7 +30,7 @@ class LevelInfo:
     n_cells: int
     n_inner_calls: int
     inner_bound: float        # largest inner bound, summed over the level's leaves (nats)
-    outer_bound: float        # largest accepted outer rule gap (nats)
+    outer_bound: float        # share-weighted outer rule gaps (nats)
     n_unresolved: int         # draws whose outer rules never agreed, or with unresolved inner cells
     n_escalated: int
 
@@ -75,10 +75,10 @@ class _Level:
                 continue
             mean, sd = m.mean_sd()
             st = [s[rows] for s in starts] + [mean]
-            lm, info = leaf_log_marginal(m.loglik_rows, mean, sd, st, tol=self.tol)
+            lm, info = leaf_log_marginal(m.loglik_rows, mean, sd, st, tol=self.tol, weighting="mean")
             total += lm
             bound += info.bound if np.isfinite(info.bound) else np.inf
-            if info.n_unresolved:
+            if info.bound > LEAF_TOL:
                 self.inner_bad[rows] = True
         self.inner_bound[rows] = np.maximum(self.inner_bound[rows], bound)
         return total
@@ -175,8 +175,8 @@ def level_log_marginal(models: list[LeafModel], tau: np.ndarray, keys: list[tupl
         escalated[todo] = True
     bad = np.zeros(S, bool)
     bad[todo] = True
-    bad |= F.inner_bad
-    good = ~bad
-    info = LevelInfo(S, F.calls, float(np.max(F.inner_bound[good])) if good.any() else float("inf"),
-                     float(np.max(gap[good])) if good.any() else float("inf"), int(bad.sum()), int(escalated.sum()))
+    share = draw_shares(lm, "mean")          # the level's score is log mean_s p_s (a refit)
+    outer = float(np.sum(share * gap)) if np.all(np.isfinite(gap[share > 0])) else float("inf")
+    inner = float(np.max(F.inner_bound)) if not F.inner_bad.any() else float("inf")
+    info = LevelInfo(S, F.calls, inner, outer, int((bad | F.inner_bad).sum()), int(escalated.sum()))
     return lm, info

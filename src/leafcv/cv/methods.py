@@ -28,11 +28,17 @@ from ..inits import LeafFits
 from ..spec import Comparison, ParamSpec, SamplerSpec, Structure
 from .leafmodel import LeafModel, flatten_draws
 from .psis import integrated_loo, khat_threshold, refit_elpd
-from .quadrature import QuadratureInfo, leaf_log_marginal
+from .quadrature import LEAF_TOL, QuadratureInfo, leaf_log_marginal
 from .result import CVResult
 
 #: Attempts per fit: the first and up to two targeted retries.
 MAX_ATTEMPTS = 3
+#: A refit warm-started from the full-data fit's last draws runs this fraction of the warm-up (at least
+#: WARM_WARMUP_MIN iterations): its chains start in the posterior, and only the step size and metric need
+#: adapting (CROSS-VALIDATION.md, "Exact refits"; the fraction is common practice, no source). A retry
+#: starts afresh with the full warm-up.
+WARM_WARMUP_FRACTION = 0.5
+WARM_WARMUP_MIN = 150
 #: Seed offsets: attempt a of a fit uses seed + a * RETRY_SEED_OFFSET; refits of leaf g use
 #: run seed + REFIT_SEED_OFFSET + g (the same for every structure); K-fold fold i run seed + KFOLD_SEED_OFFSET + i.
 RETRY_SEED_OFFSET = 7919
@@ -58,7 +64,8 @@ class CVDetails:
     spot_checks: list[dict] = field(default_factory=list)
     escalated_cells: int = 0
     brute_force_cells: int = 0
-    unresolved: list[str] = field(default_factory=list)
+    unresolved_cells: int = 0                              # cells whose rules never agreed (weighed in the bound)
+    unresolved: list[str] = field(default_factory=list)   # leaves whose quadrature bound exceeds LEAF_TOL
     notes: list[str] = field(default_factory=list)
     fits: list[dict] = field(default_factory=list)       # every fit made: role, seeds, attempts, diagnostics
 
@@ -118,7 +125,8 @@ def score_leaves(fit: StructureFit, dataset: Dataset, leaves: np.ndarray, leaf_f
             ls = _ls_link(fit, leaf_fits, int(g), [fit.design.params[i] for i in lm.effect_params])
             ls_start = np.where(np.isnan(ls), mean, ls)          # population mean where not fitted per leaf
             starts = ([lm.own_values()] if in_fit else []) + [ls_start, mean]
-            log_m[:, j], info = leaf_log_marginal(lm.loglik_rows, mean, sd, starts)
+            log_m[:, j], info = leaf_log_marginal(lm.loglik_rows, mean, sd, starts,
+                                                  weighting="importance" if in_fit else "mean")
             quad.append(info)
         preds.append(lm.predictive_mean())
     return Scored(log_m, preds, quad, fit.draws.n_chains)
@@ -148,7 +156,7 @@ def score_level(fit: StructureFit, dataset: Dataset, leaves: np.ndarray, leaf_fi
                 total += m.loglik_rows(np.arange(S))(np.zeros((S, 1, 0)))[:, 0]
                 continue
             mean, sd = m.mean_sd()
-            lm, info = leaf_log_marginal(m.loglik_rows, mean, sd, st + [mean])
+            lm, info = leaf_log_marginal(m.loglik_rows, mean, sd, st + [mean], weighting="mean")
             total, bound, bad = total + lm, bound + info.bound, bad + info.n_unresolved
         return total, bound, bad
     tau = np.stack([draws["tau"][:, r] for r, _ in keys], axis=1)
@@ -198,31 +206,48 @@ def remedy(problems: tuple[str, ...], sampler: SamplerSpec, structure: Structure
 
 
 def fit_with_retries(structure, dataset, comparison, sampler, leaf_fits, train, seed, engine, details,
-                     role, options=None, priors=None) -> StructureFit:
-    """Fit, and refit with targeted remedies while the fit fails (grade "failed"), up to MAX_ATTEMPTS.
+                     role, options=None, priors=None, warm_start: StructureFit | None = None,
+                     retry_marginal: bool = True) -> StructureFit:
+    """Fit, and refit with targeted remedies while the fit is not converged (or, with
+    ``retry_marginal`` False, while it fails), up to MAX_ATTEMPTS.
 
     Every attempt is recorded in ``details.fits`` (role, attempt, seed, settings, cause of the retry,
-    diagnostics); the last attempt is returned.
+    diagnostics, and whether it is the attempt kept); the best-graded attempt is returned, the later
+    one on a tie.
     """
+    rank = {"converged": 2, "marginal": 1, "failed": 0}
+    best, best_entry = None, None
     kwargs = {} if options is None else {"options": options}
     if priors is not None:
         kwargs["priors"] = priors
     st, smp, cause = structure, sampler, ""
+    if warm_start is not None:
+        # chains start in the posterior, so a shorter warm-up adapts the step size and metric
+        smp = replace(sampler, warmup=max(WARM_WARMUP_MIN, int(sampler.warmup * WARM_WARMUP_FRACTION)))
     for attempt in range(MAX_ATTEMPTS):
         s = seed + attempt * RETRY_SEED_OFFSET
         t = time.perf_counter()
+        warm = warm_start if attempt == 0 else None
+        if attempt == 1 and warm_start is not None:
+            smp = replace(smp, warmup=max(smp.warmup, sampler.warmup))
         fit = fit_structure(st, dataset, comparison.data, smp, engine=engine, train_leaves=train,
-                            leaf_fits=leaf_fits, seed=s, **kwargs)
+                            leaf_fits=leaf_fits, seed=s, warm_start=warm, **kwargs)
         secs = time.perf_counter() - t
         dg = fit.diagnostics
-        details.fits.append({"role": role, "attempt": attempt + 1, "seed": s, "retry_cause": cause,
-                             "chains": smp.chains, "warmup": smp.warmup, "draws": smp.draws,
-                             "adapt_delta": smp.adapt_delta, "seconds": secs, **dg.as_dict()})
-        if dg.grade != "failed" or attempt == MAX_ATTEMPTS - 1:
-            return fit
+        entry = {"role": role, "attempt": attempt + 1, "seed": s, "retry_cause": cause,
+                 "warm_start": warm is not None, "contributes": True, "kept": False,
+                 "chains": smp.chains, "warmup": smp.warmup, "draws": smp.draws,
+                 "adapt_delta": smp.adapt_delta, "seconds": secs, **dg.as_dict()}
+        details.fits.append(entry)
+        if best is None or rank[dg.grade] >= rank[best.diagnostics.grade]:
+            best, best_entry = fit, entry
+        done = dg.grade == "converged" or (dg.grade == "marginal" and not retry_marginal)
+        if done or attempt == MAX_ATTEMPTS - 1:
+            break
         smp, st, cause = remedy(dg.problems, smp, st, attempt + 1)
-        cause = f"attempt {attempt + 1} failed ({'; '.join(dg.problems)}); {cause}"
-    return fit
+        cause = f"attempt {attempt + 1} {dg.grade} ({'; '.join(dg.problems)}); {cause}"
+    best_entry["kept"] = True
+    return best
 
 
 # ----------------------------------------------------------------------------------------------
@@ -247,7 +272,8 @@ class _Leafwise:
 
 
 def _refit_leaves(structure, dataset, comparison, sampler, leaf_fits, folds, seeds, engine, details,
-                  options, priors, role) -> tuple[dict[int, tuple], list[str]]:
+                  options, priors, role, warm_start=None, spot: frozenset = frozenset()
+                  ) -> tuple[dict[int, tuple], list[str]]:
     """Refit without each fold; per held-out leaf (elpd, mcse, bound, prediction, quad info, fold grade)."""
     L = dataset.n_leaves
     out: dict[int, tuple] = {}
@@ -259,7 +285,8 @@ def _refit_leaves(structure, dataset, comparison, sampler, leaf_fits, folds, see
         t = time.perf_counter()
         fit = fit_with_retries(structure, dataset, comparison, sampler, leaf_fits, train, seed, engine, details,
                                f"{role} without {', '.join(str(dataset.leaves['leaf'].iloc[g]) for g in held)}",
-                               options, priors)
+                               options, priors, warm_start,
+                               retry_marginal=not (len(held) == 1 and int(held[0]) in spot))
         sc = score_leaves(fit, dataset, held, leaf_fits, in_fit=False)
         details.refit_seconds += time.perf_counter() - t
         grade = fit.diagnostics.grade
@@ -292,9 +319,10 @@ def _note_quadrature(details: CVDetails, leaf_ids, leaves, quads) -> None:
     for g, q in zip(leaves, quads):
         details.escalated_cells += q.n_escalated
         details.brute_force_cells += q.n_brute
-        if q.n_unresolved:
-            details.unresolved.append(f"{leaf_ids[g]} ({q.n_unresolved} of {q.n_cells} draws; rules differ by up to "
-                                      f"{q.unresolved_gap:.3g} nats)")
+        details.unresolved_cells += q.n_unresolved
+        if q.bound > LEAF_TOL:
+            details.unresolved.append(f"{leaf_ids[g]} (bound {q.bound:.3g} nats > {LEAF_TOL:g}; {q.n_unresolved} of "
+                                      f"{q.n_cells} draws with rules differing by up to {q.unresolved_gap:.3g} nats)")
 
 
 def cross_validate(structure: Structure, dataset: Dataset, comparison: Comparison, *, method: str = "auto",
@@ -338,7 +366,7 @@ def cross_validate(structure: Structure, dataset: Dataset, comparison: Compariso
         todo = flagged + spots
         ex, ex_grades = _refit_leaves(structure, dataset, comparison, sampler, leaf_fits, [np.array([g]) for g in todo],
                                       [sampler.seed + REFIT_SEED_OFFSET + g for g in todo], engine, details,
-                                      options, priors, "refit")
+                                      options, priors, "refit", warm_start=fit, spot=frozenset(spots))
         n_refits = len(todo)
         _note_quadrature(details, leaf_ids, todo, [ex[g][4] for g in todo])
         replace_leaves = list(flagged)
@@ -360,12 +388,16 @@ def cross_validate(structure: Structure, dataset: Dataset, comparison: Compariso
             rest = [g for g in range(L) if g not in todo]
             more, _ = _refit_leaves(structure, dataset, comparison, sampler, leaf_fits, [np.array([g]) for g in rest],
                                     [sampler.seed + REFIT_SEED_OFFSET + g for g in rest], engine, details,
-                                    options, priors, "refit")
+                                    options, priors, "refit", warm_start=fit)
             ex.update(more)
             n_refits += len(rest)
             _note_quadrature(details, leaf_ids, rest, [more[g][4] for g in rest])
             replace_leaves += rest
             details.notes.append(f"{len(disagree)} spot checks disagreed: every leaf was refitted exactly")
+        used_roles = {f"refit without {leaf_ids[g]}" for g in replace_leaves}
+        for f in details.fits:
+            if f["role"].startswith("refit without ") and f["role"] not in used_roles:
+                f["contributes"] = False        # a spot check that agreed: recorded, not scored
         for g in replace_leaves:
             e, m, b, pred, _, grade = ex[g]
             acc.elpd[g], acc.mcse[g], acc.bound[g], acc.khat[g], acc.how[g] = e, m, b, np.nan, "refit"
@@ -375,8 +407,8 @@ def cross_validate(structure: Structure, dataset: Dataset, comparison: Compariso
         if flagged:
             details.notes.append(f"{len(flagged)} leaf/leaves with k-hat above {thr:.2f} refitted exactly: "
                                  + ", ".join(leaf_ids[g] for g in flagged))
-        unresolved_in = [g for g in range(L) if acc.how[g] == "psis" and sc.quad[g].n_unresolved] + \
-                        [g for g in replace_leaves if ex[g][4].n_unresolved]
+        unresolved_in = [g for g in range(L) if acc.how[g] == "psis" and sc.quad[g].bound > LEAF_TOL] + \
+                        [g for g in replace_leaves if ex[g][4].bound > LEAF_TOL]
     elif by != "leaf":
         return _cross_validate_levels(structure, dataset, comparison, method, by, folds, engine, leaf_fits, sampler,
                                       options, priors, details)
@@ -392,7 +424,7 @@ def cross_validate(structure: Structure, dataset: Dataset, comparison: Compariso
             acc.elpd[g], acc.mcse[g], acc.bound[g], acc.how[g] = e, m, b, method
             acc.preds[g] = pred
         _note_quadrature(details, leaf_ids, list(ex), [v[4] for v in ex.values()])
-        unresolved_in = [g for g, v in ex.items() if v[4].n_unresolved]
+        unresolved_in = [g for g, v in ex.items() if v[4].bound > LEAF_TOL]
     rmse, r2 = _prediction_scores(dataset, acc.preds)
     grade = worst_grade(grades)
     warnings = _fit_warnings(details, grade)
@@ -438,8 +470,8 @@ def _cross_validate_levels(structure, dataset, comparison, method, by, folds, en
             k = levels.index(name)
             elpd[k], mcse[k] = refit_elpd(joint, fit.draws.n_chains)
             bound[k] = b
-            if bad:
-                unresolved.append(f"{by} {name} ({bad} draws)")
+            if b > LEAF_TOL:
+                unresolved.append(f"{by} {name} (bound {b:.3g} nats; {bad} draws unsettled)")
         details.refit_seconds += time.perf_counter() - t
     rmse, r2 = _prediction_scores(dataset, preds)
     grade = worst_grade(grades)
@@ -456,7 +488,8 @@ def _fit_warnings(details: CVDetails, grade: str) -> list[str]:
     """Sentences on the fits that feed the score (spot-check refits that agreed are not among them)."""
     last = {}
     for f in details.fits:
-        last[f["role"]] = f                       # the attempt that was kept
+        if f.get("contributes", True) and f.get("kept", True):
+            last[f["role"]] = f                   # the attempt that was kept
     kept = [f for f in last.values() if f["grade"] != "converged"]
     if not kept:
         return []

@@ -185,6 +185,10 @@ GH_LEVELS = ((7, 5, 1.0), (15, 11, 1.5), (31, 21, 2.5))
 GH_LEVELS_3D = ((7, 5, 1.0), (11, 9, 1.5), (21, 15, 2.5))
 #: The same for d > MAX_TENSOR_DIM: points of two scrambled Sobol rules with different seeds.
 QMC_LEVELS = ((1024, 256, 1.0), (4096, 1024, 1.5), (16384, 4096, 2.5))
+#: A leaf is scored only when its quadrature bound (share-weighted rule gaps) is at most this (nats).
+LEAF_TOL = 0.05
+#: Brute force stops once the cells left unsettled can move the leaf's elpd by at most this x LEAF_TOL.
+BRUTE_BUDGET = 0.1
 #: Brute-force tensor trapezoid (d <= MAX_TENSOR_DIM): nodes per dimension, box half-width in Laplace
 #: SDs, and how often the box may be doubled when the integrand is not negligible at its edge.
 BRUTE_NODES = {1: 801, 2: 161, 3: 45}
@@ -200,16 +204,17 @@ EDGE_DROP = 25.0
 class QuadratureInfo:
     """How the cells of one leaf were integrated.
 
-    ``bound`` is the largest |difference| between the two rules of the level each resolved cell was
-    accepted at: an estimate of the error of every accepted log m_s, so of the leaf's elpd (a log of a
-    weighted mean of the m_s moves by at most the largest per-cell error).
+    ``bound`` weighs each cell's |difference| between its last two rules by the draw's share in the
+    leaf's score (`draw_shares`): to first order the leaf's elpd moves by sum_s share_s x error_s.
+    A leaf whose bound exceeds LEAF_TOL is not scored.
     """
 
     n_cells: int
     n_escalated: int = 0       # cells that needed a finer, wider rule than level 0
     n_brute: int = 0           # cells settled by the brute-force trapezoid
     n_unresolved: int = 0      # cells whose rules never agreed within the tolerance
-    bound: float = 0.0         # nats
+    bound: float = 0.0         # nats: share-weighted rule gaps, the error bound of the leaf's elpd
+    max_cell_gap: float = 0.0  # nats: the largest rule gap of any cell
     unresolved_gap: float = 0.0
 
 
@@ -304,6 +309,25 @@ def _modes(loglik_rows, mean, sd, starts: list[np.ndarray], rows: np.ndarray,
             mode[rb], chol[rb], ok[rb], hmax[rb] = m[better], c[better], k[better], h[better]
 
 
+def draw_shares(log_m: np.ndarray, weighting: str) -> np.ndarray:
+    """Each draw's share in the leaf's score, the weights of d elpd / d log m_s.
+
+    "importance" (integrated PSIS on the full fit): elpd = -log mean_s 1/m_s up to smoothing, so a
+    relative error delta_s of m_s moves elpd by sum_s omega_s delta_s with omega_s proportional to
+    1/m_s. "mean" (a refit): elpd = log mean_s m_s, omega_s proportional to m_s.
+    """
+    x = np.asarray(log_m, float)
+    x = -x if weighting == "importance" else x
+    finite = np.isfinite(x)
+    if not finite.any():
+        return np.full(len(x), 1.0 / max(len(x), 1))
+    top = np.max(x[finite])
+    with np.errstate(invalid="ignore"):
+        w = np.where(np.isnan(x), 0.0, np.exp(np.minimum(x - top, 0.0)))
+    w[np.isposinf(x)] = 1.0                      # a draw with m_s = 0 outweighs all others
+    return w / w.sum()
+
+
 def leaf_log_marginal(
     loglik_rows: Callable[[np.ndarray], LogLik],
     mean: np.ndarray,
@@ -312,6 +336,7 @@ def leaf_log_marginal(
     *,
     tol: float = TOL,
     first_level: int = 0,
+    weighting: str = "importance",
 ) -> tuple[np.ndarray, QuadratureInfo]:
     """log m_s of one leaf for every draw s, every cell placed from the leaf's own conditional
     posterior at that draw and checked (module docstring).
@@ -333,7 +358,12 @@ def leaf_log_marginal(
         Two rules agree when their log m differ by at most ``tol`` nats.
     first_level
         Escalation level to start at (0 normally; tests start higher to check each level; 3 is the
-        brute-force trapezoid alone).
+        brute-force trapezoid alone, on every cell).
+    weighting
+        How the draws enter the leaf's score (`draw_shares`): "importance" for integrated PSIS on the
+        full fit, "mean" for a refit. Brute force is spent on the cells that weigh most in the score,
+        and ``info.bound`` is the share-weighted sum of the cells' rule gaps: an estimate of the
+        largest error of the leaf's elpd.
 
     Returns
     -------
@@ -384,16 +414,27 @@ def leaf_log_marginal(
         escalated[todo] = True
     n_brute = 0
     if todo.size and d <= MAX_TENSOR_DIM:
-        for s in todo:
+        # brute force, the costliest step, cell by cell in order of their weight in the leaf's score,
+        # until the cells left over can move the leaf's elpd by no more than BRUTE_BUDGET x LEAF_TOL
+        share = draw_shares(lm, weighting)
+        impact = share[todo] * gap[todo]
+        left = float(np.sum(impact))
+        for s in todo[np.argsort(-impact)]:
+            if left <= BRUTE_BUDGET * LEAF_TOL and first_level < len(GH_LEVELS):
+                break
+            left -= share[s] * gap[s]
             v, g = _brute_force(loglik_rows, int(s), mean, sd, mode, chol, tol)
             if g <= tol or g < gap[s]:
                 lm[s], gap[s] = v, g
+            left += share[s] * gap[s]
             n_brute += 1
         todo = todo[gap[todo] > tol]
-    resolved = np.ones(S, bool)
-    resolved[todo] = False
+    share = draw_shares(lm, weighting)
+    with np.errstate(invalid="ignore"):
+        bound = float(np.sum(np.where(share > 0, share * gap, 0.0))) if np.all(np.isfinite(gap[share > 0])) \
+            else float("inf")
     info = QuadratureInfo(
         n_cells=S, n_escalated=int(escalated.sum()), n_brute=n_brute, n_unresolved=int(todo.size),
-        bound=float(np.max(gap[resolved])) if resolved.any() else float("inf"),
+        bound=bound, max_cell_gap=float(np.max(gap)) if S else 0.0,
         unresolved_gap=float(np.max(gap[todo])) if todo.size else 0.0)
     return lm, info

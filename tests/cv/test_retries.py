@@ -1,0 +1,100 @@
+"""Targeted retries, convergence grades and the draw count of a retried fit, with a fake engine (no
+sampler): the engine returns each chain's inits plus small noise, and misbehaves on request."""
+from __future__ import annotations
+
+from dataclasses import replace
+
+import numpy as np
+import pytest
+
+from leafcv.cv.methods import MAX_ATTEMPTS, cross_validate, remedy
+from leafcv.diagnostics import Diagnostics, worst_grade
+from leafcv.engines.base import SAMPLER_FIELDS, Draws
+from leafcv.inits import fit_leaves
+from leafcv.spec import SamplerSpec
+
+
+class FakeEngine:
+    """Draws = the first chain's inits + N(0, 0.01) noise, in every chain. ``split_below``: while settings.draws is below it, chain c is
+    shifted by c (R-hat far above 1); ``divergent_below``: while adapt_delta is below it, 10 divergences."""
+
+    name = "fake"
+
+    def __init__(self, split_below: int = 0, divergent_below: float = 0.0):
+        self.split_below, self.divergent_below = split_below, divergent_below
+        self.calls: list[SamplerSpec] = []
+
+    def fit(self, program, data, settings, seed, inits, progress=None):
+        self.calls.append(settings)
+        rng = np.random.default_rng(seed)
+        C, D = settings.chains, settings.draws
+        params = {}
+        for name in inits[0]:
+            arr = np.stack([np.asarray(inits[0][name], float)] * C)                      # (C, *shape)
+            draws = arr[:, None, ...] + rng.normal(0, 0.01, (C, D) + arr.shape[1:])
+            if D < self.split_below:
+                draws = draws + np.arange(C).reshape((C, 1) + (1,) * (arr.ndim - 1))
+            params[name] = draws
+        sampler = {f: rng.normal(size=(C, D)) for f in SAMPLER_FIELDS}
+        sampler["divergent__"] = np.zeros((C, D))
+        if settings.adapt_delta < self.divergent_below:
+            sampler["divergent__"][0, :10] = 1
+        sampler["treedepth__"] = np.full((C, D), 3)
+        return Draws(params, sampler, settings, seed, 0.1, "fake")
+
+
+def test_a_retry_for_mixing_doubles_warmup_and_draws_and_the_result_counts_them(quick_demo):
+    comparison, dataset, _ = quick_demo
+    sampler = SamplerSpec(chains=4, warmup=50, draws=150, seed=3)
+    engine = FakeEngine(split_below=200)
+    res, det = cross_validate(comparison.structure("pooled"), dataset, comparison, method="auto", spot_checks=0,
+                              engine=engine, leaf_fits=fit_leaves(dataset), sampler=sampler)
+    full = [f for f in det.fits if f["role"] == "full data"]
+    assert [f["attempt"] for f in full] == [1, 2]
+    assert full[0]["grade"] == "failed" and full[1]["grade"] == "converged"
+    assert engine.calls[1].draws == 300 and engine.calls[1].warmup == 100
+    assert "mixing" in full[1]["retry_cause"] and full[1]["seed"] != full[0]["seed"]
+    assert res.n_draws == 4 * 300            # the draws behind the scores, not the settings asked for
+    assert res.grade == "converged"
+
+
+def test_divergences_raise_adapt_delta_and_switch_group_effects_to_noncentred(quick_demo):
+    comparison, _, _ = quick_demo
+    st = comparison.structure("traits-month-random")
+    smp, new, cause = remedy(("3 divergent transition(s)",), SamplerSpec(adapt_delta=0.8), st, 1)
+    assert smp.adapt_delta == 0.95 and smp.draws == SamplerSpec().draws
+    assert new.params["vcmax25"].centring["campaign"] == "noncentred"
+    assert "leaf" not in new.params["vcmax25"].centring       # leaf effects keep their own choice
+    smp2, _, _ = remedy(("1 divergent transition(s)",), smp, new, 2)
+    assert smp2.adapt_delta == 0.99
+    smp3, _, cause3 = remedy(("R-hat 1.030 > 1.01 (worst: b0[1])",), SamplerSpec(warmup=300, draws=400), st, 1)
+    assert (smp3.warmup, smp3.draws) == (600, 800) and "mixing" in cause3
+
+
+def test_a_fit_that_keeps_failing_is_graded_failed_after_the_stated_attempts(quick_demo):
+    comparison, dataset, _ = quick_demo
+    engine = FakeEngine(divergent_below=1.0)          # divergences whatever adapt_delta
+    res, det = cross_validate(comparison.structure("pooled"), dataset, comparison, method="auto", spot_checks=0,
+                              engine=engine, leaf_fits=fit_leaves(dataset),
+                              sampler=SamplerSpec(chains=4, warmup=50, draws=200, seed=4))
+    full = [f for f in det.fits if f["role"] == "full data"]
+    assert len(full) == MAX_ATTEMPTS
+    assert [round(c.adapt_delta, 2) for c in engine.calls[:MAX_ATTEMPTS]] == [0.8, 0.95, 0.99]
+    assert all("divergences" in f["retry_cause"] for f in full[1:])
+    assert res.grade == "failed" and not res.ranked_ok
+
+
+@pytest.mark.parametrize("kw, grade", [
+    ({}, "converged"),
+    ({"max_rhat": 1.03, "problems": ("R-hat",)}, "marginal"),
+    ({"divergences": 3, "problems": ("div",)}, "marginal"),
+    ({"divergences": 6, "problems": ("div",)}, "failed"),
+    ({"max_rhat": 1.06, "problems": ("R-hat",)}, "failed"),
+    ({"min_ess_bulk": 90.0, "problems": ("ESS",)}, "failed"),
+])
+def test_grades(kw, grade):
+    base = dict(max_rhat=1.005, min_ess_bulk=500.0, min_ess_tail=500.0, divergences=0, treedepth_hits=0,
+                min_ebfmi=0.9, n_draws=500, chains=4, worst="", problems=())
+    d = Diagnostics(**{**base, **kw})
+    assert d.grade == grade
+    assert worst_grade(["converged", grade, "converged"]) == grade
