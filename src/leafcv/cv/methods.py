@@ -39,6 +39,10 @@ MAX_ATTEMPTS = 3
 #: starts afresh with the full warm-up.
 WARM_WARMUP_FRACTION = 0.5
 WARM_WARMUP_MIN = 150
+#: ... and this fraction of the draws (at least WARM_DRAWS_MIN): a refit scores one leaf by a log mean
+#: of S likelihoods, whose Monte Carlo error (from the refit's own chains) is reported beside it.
+WARM_DRAWS_FRACTION = 0.5
+WARM_DRAWS_MIN = 200
 #: Seed offsets: attempt a of a fit uses seed + a * RETRY_SEED_OFFSET; refits of leaf g use
 #: run seed + REFIT_SEED_OFFSET + g (the same for every structure); K-fold fold i run seed + KFOLD_SEED_OFFSET + i.
 RETRY_SEED_OFFSET = 7919
@@ -222,14 +226,16 @@ def fit_with_retries(structure, dataset, comparison, sampler, leaf_fits, train, 
         kwargs["priors"] = priors
     st, smp, cause = structure, sampler, ""
     if warm_start is not None:
-        # chains start in the posterior, so a shorter warm-up adapts the step size and metric
-        smp = replace(sampler, warmup=max(WARM_WARMUP_MIN, int(sampler.warmup * WARM_WARMUP_FRACTION)))
+        # chains start in the posterior, so a shorter warm-up adapts the step size and metric; a refit
+        # scores one leaf, whose log-mean-exp needs fewer draws than the full fit's PSIS over every leaf
+        smp = replace(sampler, warmup=max(WARM_WARMUP_MIN, int(sampler.warmup * WARM_WARMUP_FRACTION)),
+                      draws=max(WARM_DRAWS_MIN, int(sampler.draws * WARM_DRAWS_FRACTION)))
     for attempt in range(MAX_ATTEMPTS):
         s = seed + attempt * RETRY_SEED_OFFSET
         t = time.perf_counter()
         warm = warm_start if attempt == 0 else None
         if attempt == 1 and warm_start is not None:
-            smp = replace(smp, warmup=max(smp.warmup, sampler.warmup))
+            smp = replace(smp, warmup=max(smp.warmup, sampler.warmup), draws=max(smp.draws, sampler.draws))
         fit = fit_structure(st, dataset, comparison.data, smp, engine=engine, train_leaves=train,
                             leaf_fits=leaf_fits, seed=s, warm_start=warm, **kwargs)
         secs = time.perf_counter() - t
