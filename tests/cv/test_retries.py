@@ -98,3 +98,27 @@ def test_grades(kw, grade):
     d = Diagnostics(**{**base, **kw})
     assert d.grade == grade
     assert worst_grade(["converged", grade, "converged"]) == grade
+
+
+def test_spot_checks_that_disagree_replace_psis_and_two_refit_every_leaf(quick_demo, monkeypatch):
+    """PSIS made wrong on purpose (every leaf +1 nat): each spot check disagrees beyond
+    max(0.1 nats, 3 x combined MCSE), raises a warning and takes the exact value, and with two or more
+    disagreeing every leaf is refitted, so no PSIS value is left in the score."""
+    import leafcv.cv.methods as methods
+
+    real = methods.integrated_loo
+
+    def off_by_one(log_m, chains=1):
+        est = real(log_m, chains)
+        return replace(est, elpd=est.elpd + 1.0, khat=np.zeros_like(est.khat))
+
+    monkeypatch.setattr(methods, "integrated_loo", off_by_one)
+    comparison, dataset, _ = quick_demo
+    res, det = cross_validate(comparison.structure("pooled"), dataset, comparison, method="auto", spot_checks=2,
+                              engine=FakeEngine(), leaf_fits=fit_leaves(dataset),
+                              sampler=SamplerSpec(chains=4, warmup=50, draws=200, seed=5))
+    assert [s["disagree"] for s in det.spot_checks] == [True, True]
+    assert all(abs(s["elpd_psis"] - s["elpd_exact"]) > s["tolerance"] for s in det.spot_checks)
+    assert set(res.method_i) == {"refit"} and res.n_refits == dataset.n_leaves
+    assert np.all(np.isnan(res.pareto_k))             # k-hat only for leaves scored by PSIS: none here
+    assert any("disagree" in w for w in res.warnings) and any("every leaf was refitted" in w for w in res.warnings)
