@@ -2,8 +2,8 @@
 
 32 simulated leaves of the default demo scenario (leafcv's own simulation; each has an A-Ci curve
 crossing the Wc/Wj transition and an A-Q curve), structure with leaf effects on log Vcmax25 and logit
-alpha. Population draws are set by hand near the generating values (no sampler): 20 draws per leaf.
-The reference is an independent tensor trapezoid of exp(h) on a 241 x 241 grid over +-10 SD of the
+alpha. Population draws are set by hand near the generating values (no sampler): 16 draws per leaf.
+The reference is an independent tensor trapezoid of exp(h) on a 401 x 401 grid over +-10 SD of the
 leaf's least-squares estimate (SDs of the population, so it needs no mode search and no curvature),
 after checking that the integrand is negligible (50 nats below its peak) at the edge of that box.
 
@@ -26,8 +26,8 @@ from leafcv.demo import GEN, write_demo
 from leafcv.design import build_design, leaf_link_values
 from leafcv.inits import fit_leaves
 
-S = 20
-N_REF = 241
+S = 16
+N_REF = 401
 
 
 @pytest.fixture(scope="module")

@@ -417,16 +417,17 @@ def leaf_log_marginal(
         # brute force, the costliest step, cell by cell in order of their weight in the leaf's score,
         # until the cells left over can move the leaf's elpd by no more than BRUTE_BUDGET x LEAF_TOL
         share = draw_shares(lm, weighting)
-        impact = share[todo] * gap[todo]
+        capped = np.minimum(gap, 1e6)                 # a cell never checked (inf) weighs as a large gap
+        impact = share[todo] * capped[todo]
         left = float(np.sum(impact))
         for s in todo[np.argsort(-impact)]:
             if left <= BRUTE_BUDGET * LEAF_TOL and first_level < len(GH_LEVELS):
                 break
-            left -= share[s] * gap[s]
+            left -= share[s] * capped[s]
             v, g = _brute_force(loglik_rows, int(s), mean, sd, mode, chol, tol)
             if g <= tol or g < gap[s]:
                 lm[s], gap[s] = v, g
-            left += share[s] * gap[s]
+            left += share[s] * min(gap[s], 1e6)
             n_brute += 1
         todo = todo[gap[todo] > tol]
     share = draw_shares(lm, weighting)
