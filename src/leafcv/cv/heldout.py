@@ -15,14 +15,14 @@ each leaf apart is not this density (CROSS-VALIDATION.md, "Held-out levels").
 from __future__ import annotations
 
 import copy
-import itertools
 from dataclasses import dataclass
 
 import numpy as np
 from scipy.special import logsumexp
 
 from .leafmodel import LeafModel
-from .quadrature import GH_LEVELS, LEAF_TOL, TOL, _LOG_2PI, _level_rules, draw_shares, leaf_log_marginal
+from .quadrature import (GH_LEVELS, LEAF_TOL, TOL, _LOG_2PI, _level_rules, draw_shares, grad_hess,
+                         leaf_log_marginal)
 
 
 @dataclass(frozen=True)
@@ -92,27 +92,12 @@ def _newton(F, tau: np.ndarray, rows: np.ndarray, centre: np.ndarray, step: np.n
     """One Newton step of F + log prior from ``centre`` with a central-difference stencil of ``step``;
     returns (new centre, Cholesky factor of the inverse negative Hessian, ok)."""
     n, k = centre.shape
-    pts = [np.zeros(k)]
-    for i in range(k):
-        for sgn in (1, -1):
-            e = np.zeros(k); e[i] = sgn
-            pts.append(e)
-    for i, j in itertools.combinations(range(k), 2):
-        for si, sj in ((1, 1), (1, -1), (-1, 1), (-1, -1)):
-            e = np.zeros(k); e[i], e[j] = si, sj
-            pts.append(e)
-    vals = np.stack([F(centre + p * step, rows) + _log_prior(centre + p * step, tau[rows]) for p in pts], axis=1)
-    f0 = vals[:, 0]
-    g, H = np.empty((n, k)), np.empty((n, k, k))
-    for i in range(k):
-        fp, fm = vals[:, 1 + 2 * i], vals[:, 2 + 2 * i]
-        g[:, i] = (fp - fm) / (2 * step[:, i])
-        H[:, i, i] = (fp - 2 * f0 + fm) / step[:, i] ** 2
-    c = 1 + 2 * k
-    for i, j in itertools.combinations(range(k), 2):
-        fpp, fpm, fmp, fmm = (vals[:, c + q] for q in range(4))
-        H[:, i, j] = H[:, j, i] = (fpp - fpm - fmp + fmm) / (4 * step[:, i] * step[:, j])
-        c += 4
+
+    def h_fn(points):                                     # (n, n_stencil, k) -> (n, n_stencil)
+        return np.stack([F(points[:, j], rows) + _log_prior(points[:, j], tau[rows])
+                         for j in range(points.shape[1])], axis=1)
+
+    f0, g, H = grad_hess(h_fn, centre, step)
     neg = -H
     ok = np.all(np.isfinite(neg.reshape(n, -1)), axis=1) & np.isfinite(f0)
     ok[ok] = np.all(np.linalg.eigvalsh(neg[ok]) > 0, axis=1)

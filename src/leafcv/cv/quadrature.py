@@ -104,22 +104,27 @@ def _stencil(d: int, eps: float) -> np.ndarray:
     return np.array(pts)
 
 
-def _grad_hess(h_fn, b: np.ndarray, eps: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Value, gradient and Hessian of h at b (S, d) by central differences, all draws at once."""
+def grad_hess(h_fn, b: np.ndarray, eps) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Value, gradient and Hessian of h at b (S, d) by central differences, all draws at once.
+
+    ``eps``: one step for every coordinate, or steps per draw and coordinate (S, d). ``h_fn`` maps
+    points (S, n_stencil, d) to values (S, n_stencil).
+    """
     S, d = b.shape
-    st = _stencil(d, eps)
-    vals = h_fn(b[:, None, :] + st[None, :, :])            # (S, n_stencil)
+    step = np.broadcast_to(np.asarray(eps, float), (S, d))
+    st = _stencil(d, 1.0)
+    vals = h_fn(b[:, None, :] + st[None, :, :] * step[:, None, :])     # (S, n_stencil)
     f0 = vals[:, 0]
     g = np.empty((S, d))
     H = np.empty((S, d, d))
     for i in range(d):
         fp, fm = vals[:, 1 + 2 * i], vals[:, 2 + 2 * i]
-        g[:, i] = (fp - fm) / (2 * eps)
-        H[:, i, i] = (fp - 2 * f0 + fm) / eps**2
+        g[:, i] = (fp - fm) / (2 * step[:, i])
+        H[:, i, i] = (fp - 2 * f0 + fm) / step[:, i] ** 2
     k = 1 + 2 * d
     for i, j in itertools.combinations(range(d), 2):
         fpp, fpm, fmp, fmm = (vals[:, k + m] for m in range(4))
-        H[:, i, j] = H[:, j, i] = (fpp - fpm - fmp + fmm) / (4 * eps**2)
+        H[:, i, j] = H[:, j, i] = (fpp - fpm - fmp + fmm) / (4 * step[:, i] * step[:, j])
         k += 4
     return f0, g, H
 
@@ -144,7 +149,7 @@ def laplace_mode(loglik_rows: Callable[[np.ndarray], LogLik], mean: np.ndarray, 
         if not active.any():
             break
         idx = np.flatnonzero(active)
-        f0, g, H = _grad_hess(lambda x: h_rows(x, idx), b[idx], eps)
+        f0, g, H = grad_hess(lambda x: h_rows(x, idx), b[idx], eps)
         neg = -H
         good = np.all(np.isfinite(neg.reshape(len(idx), -1)), axis=1)
         good[good] = np.all(np.linalg.eigvalsh(neg[good]) > 0, axis=1)
@@ -166,7 +171,7 @@ def laplace_mode(loglik_rows: Callable[[np.ndarray], LogLik], mean: np.ndarray, 
         moved = np.max(np.abs(t[:, None] * step), axis=1)
         active[idx[(moved < 1e-7) | ~accepted]] = False
     all_rows = np.arange(S)
-    f0, g, H = _grad_hess(lambda x: h_rows(x, all_rows), b, eps)
+    f0, g, H = grad_hess(lambda x: h_rows(x, all_rows), b, eps)
     neg = -H
     ok = np.isfinite(f0) & np.all(np.isfinite(neg.reshape(S, -1)), axis=1)
     ok[ok] = np.all(np.linalg.eigvalsh(neg[ok]) > 0, axis=1)
