@@ -145,6 +145,11 @@ class LeafModel:
 
         return ll
 
+    def fixed_loglik(self) -> np.ndarray:
+        """log p(y | theta_s) per draw, (S,), for a leaf with no integrated effects (dim 0)."""
+        S = len(self.eta)
+        return self.loglik_rows(np.arange(S))(np.zeros((S, 1, 0)))[:, 0]
+
     def pointwise_loglik(self) -> np.ndarray:
         """log p(y_i | theta_s, the leaf's own values in draw s), (S, n): the conditional likelihood."""
         a_hat = self.assimilation(self.eta)

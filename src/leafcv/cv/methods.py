@@ -84,6 +84,11 @@ class Scored:
     chains: int
 
 
+def _fold_seed_base(sampler: SamplerSpec, method: str) -> int:
+    """Seed of fold 0 of methods exact and kfold; fold i adds i."""
+    return sampler.seed + (KFOLD_SEED_OFFSET if method == "kfold" else REFIT_SEED_OFFSET)
+
+
 def folds_for(dataset: Dataset, by: str, method: str, k: int, seed: int) -> list[np.ndarray]:
     """Held-out leaf sets: one per leaf, per level of grouping ``by``, or K seeded grouped folds."""
     L = dataset.n_leaves
@@ -122,7 +127,7 @@ def score_leaves(fit: StructureFit, dataset: Dataset, leaves: np.ndarray, leaf_f
     for j, g in enumerate(leaves):
         lm = LeafModel(fit.design, dataset, draws, lv, int(g))
         if lm.dim == 0:
-            log_m[:, j] = lm.loglik_rows(np.arange(S))(np.zeros((S, 1, 0)))[:, 0]
+            log_m[:, j] = lm.fixed_loglik()
             quad.append(QuadratureInfo(S))
         else:
             mean, sd = lm.mean_sd()
@@ -157,7 +162,7 @@ def score_level(fit: StructureFit, dataset: Dataset, leaves: np.ndarray, leaf_fi
         total, bound, bad = np.zeros(S), 0.0, 0
         for m, st in zip(models, starts):
             if m.dim == 0:
-                total += m.loglik_rows(np.arange(S))(np.zeros((S, 1, 0)))[:, 0]
+                total += m.fixed_loglik()
                 continue
             mean, sd = m.mean_sd()
             lm, info = leaf_log_marginal(m.loglik_rows, mean, sd, st + [mean], weighting="mean")
@@ -420,7 +425,7 @@ def cross_validate(structure: Structure, dataset: Dataset, comparison: Compariso
                                       options, priors, details)
     else:
         fold_sets = folds_for(dataset, by, method, folds, sampler.seed)
-        base = sampler.seed + (KFOLD_SEED_OFFSET if method == "kfold" else REFIT_SEED_OFFSET)
+        base = _fold_seed_base(sampler, method)
         ex, fold_grades = _refit_leaves(structure, dataset, comparison, sampler, leaf_fits, fold_sets,
                                         [base + i for i in range(len(fold_sets))], engine, details, options, priors,
                                         "refit" if method == "exact" else "fold")
@@ -453,7 +458,7 @@ def _cross_validate_levels(structure, dataset, comparison, method, by, folds, en
     level_of = dataset.leaves[by].astype(str).to_numpy()
     levels = sorted(set(level_of))
     fold_sets = folds_for(dataset, by, method, folds, sampler.seed)
-    base = sampler.seed + (KFOLD_SEED_OFFSET if method == "kfold" else REFIT_SEED_OFFSET)
+    base = _fold_seed_base(sampler, method)
     elpd, mcse, bound = np.full(len(levels), np.nan), np.full(len(levels), np.nan), np.full(len(levels), np.nan)
     preds: dict[int, np.ndarray] = {}
     grades, unresolved = [], []
