@@ -19,7 +19,7 @@ from pathlib import Path
 import numpy as np
 from scipy.special import expit
 
-from leafcv.cli import load
+from leafcv.api import load
 from leafcv.demo import write_demo
 from leafcv.diagnostics import diagnose
 from leafcv.engines.program import program_text

@@ -24,7 +24,7 @@ import numpy as np
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
-from leafcv.cli import load  # noqa: E402
+from leafcv.api import load  # noqa: E402
 from leafcv.design import build_design  # noqa: E402
 from leafcv.engines.program import program_text  # noqa: E402
 from leafcv.engines.pystan_engine import PyStanEngine  # noqa: E402

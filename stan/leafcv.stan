@@ -84,9 +84,23 @@ data {
   real<lower=0> sigma_sd;                  // half-normal(0, sigma_sd) on residual SDs
   real<lower=0> nu_shape;                  // gamma(nu_shape, nu_rate) on Student-t df
   real<lower=0> nu_rate;
+
+  // scaling of the free parameters: each block is sampled as offset + scale * (a standardised value), an
+  // exact reparameterisation (Stan's offset/multiplier) that hands the sampler a posterior already close to
+  // unit scale, so a refit started from the full-data fit needs only a short warm-up. Blocks stacked in
+  // the order b0_free, beta, log_tau, u_c, u_v, log_tau_leaf, eta_c, eta_z, log_sigma; n_scale = 0 means
+  // offset 0 and scale 1 everywhere (the plain program).
+  int<lower=0> n_scale;
+  vector[n_scale] scale_offset;
+  vector<lower=0>[n_scale] scale_mult;
 }
 transformed data {
   int P = 5 + use_tpu;
+  int n_free = P + K + R + Q + Rl + Mc + Mn + S;
+  vector[n_free] off = n_scale == 0 ? rep_vector(0, n_free) : scale_offset;
+  vector[n_free] mul = n_scale == 0 ? rep_vector(1, n_free) : scale_mult;
+  array[10] int at = {0, P, P + K, P + K + R, P + K + R + Qc, P + K + R + Q, P + K + R + Q + Rl,
+                      P + K + R + Q + Rl + Mc, P + K + R + Q + Rl + Mc + Mn, n_free};
   vector[N] tk = tleaf + 273.15;
   vector[N] kc = rubisco[1] * fvcb_arrhenius(rubisco[4], tk);
   vector[N] ko = rubisco[2] * fvcb_arrhenius(rubisco[5], tk);
@@ -97,21 +111,32 @@ transformed data {
   vector[N] fj = fvcb_temperature(tresp[2], peaked[2], tk);
   vector[N] fr = fvcb_temperature(tresp[3], peaked[3], tk);
   vector[N] ft = fvcb_temperature(tresp[4], peaked[4], tk);
+  if (n_scale != 0 && n_scale != n_free) {
+    reject("scale_offset has ", n_scale, " entries; the free parameters number ", n_free);
+  }
+  if (n_scale != 0 && min(scale_mult) <= 0) {
+    reject("every scale_mult must be positive");
+  }
 }
 parameters {
-  vector[P] b0_free;
-  vector[K] beta;
-  vector<lower=0>[R] tau;
-  vector[Qc] u_c;
-  vector[Q - Qc] u_v;
-  vector<lower=0>[Rl] tau_leaf;
-  vector[Mc] eta_c;
-  vector[Mn] eta_z;
-  vector<lower=0>[S] sigma;
+  vector<offset=off[(at[1] + 1):at[2]], multiplier=mul[(at[1] + 1):at[2]]>[P] b0_free;
+  vector<offset=off[(at[2] + 1):at[3]], multiplier=mul[(at[2] + 1):at[3]]>[K] beta;
+  vector<offset=off[(at[3] + 1):at[4]], multiplier=mul[(at[3] + 1):at[4]]>[R] log_tau;
+  vector<offset=off[(at[4] + 1):at[5]], multiplier=mul[(at[4] + 1):at[5]]>[Qc] u_c;
+  vector<offset=off[(at[5] + 1):at[6]], multiplier=mul[(at[5] + 1):at[6]]>[Q - Qc] u_v;
+  vector<offset=off[(at[6] + 1):at[7]], multiplier=mul[(at[6] + 1):at[7]]>[Rl] log_tau_leaf;
+  vector<offset=off[(at[7] + 1):at[8]], multiplier=mul[(at[7] + 1):at[8]]>[Mc] eta_c;
+  vector<offset=off[(at[8] + 1):at[9]], multiplier=mul[(at[8] + 1):at[9]]>[Mn] eta_z;
+  vector<offset=off[(at[9] + 1):at[10]], multiplier=mul[(at[9] + 1):at[10]]>[S] log_sigma;
   array[student_t] real<lower=1> nu;
   array[leaf_corr] cholesky_factor_corr[Rl] leaf_chol;
 }
 transformed parameters {
+  // the SDs are sampled on the log scale (the Jacobian is added in the model block), as Stan does for
+  // <lower=0>, so that they too can be offset and scaled
+  vector<lower=0>[R] tau = exp(log_tau);
+  vector<lower=0>[Rl] tau_leaf = exp(log_tau_leaf);
+  vector<lower=0>[S] sigma = exp(log_sigma);
   vector[Q - Qc] u_z = nc_rot * u_v;
   vector[P] b0 = b0_free - b0_shift * (tau[lev_term[nc_lev]] .* u_v);
 }
@@ -190,6 +215,7 @@ model {
                 + log_inv_logit(b0[p]) + log1m_inv_logit(b0[p]);
     }
   }
+  target += sum(log_tau) + sum(log_tau_leaf) + sum(log_sigma);   // Jacobians of the exp transforms
   beta ~ normal(0, beta_sd);
   tau ~ normal(0, tau_sd);
   u_c ~ normal(0, tau[lev_term[cen_lev]]);

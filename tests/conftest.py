@@ -13,7 +13,7 @@ def quick_demo(tmp_path_factory):
     """The quick demo scenario written to a temporary folder: (comparison, dataset, truth)."""
     import pandas as pd
 
-    from leafcv.cli import load
+    from leafcv.api import load
     from leafcv.demo import write_demo
 
     folder = tmp_path_factory.mktemp("quick-demo")

@@ -12,7 +12,7 @@ from pathlib import Path
 
 import numpy as np
 
-from leafcv.design import free_parameters, Design, leaf_link_values, level_values
+from leafcv.design import with_free_parameters, Design, leaf_link_values, level_values
 from leafcv.priors import PriorSet
 from leafcv.spec import DataSpec, ParamSpec, Structure
 
@@ -105,7 +105,7 @@ def random_generic_point(design: Design, rng: np.random.Generator) -> dict[str, 
         "eta_c": rng.normal(0, 0.1, d["Mc"]), "eta_z": rng.normal(0, 1, d["Mn"]),
         "sigma": rng.uniform(0.3, 1.0, 1), "nu": np.zeros(0),
     }
-    point.update(free_parameters(design, point["b0"], point["tau"], point["u_z"]))
+    point = with_free_parameters(design, point)
     mu, _ = leaf_link_values(design, {k: v[None, ...] for k, v in point.items()})
     point["eta_c"] = mu[0].T.reshape(-1)[design.cen_cells] + point["eta_c"]
     return point

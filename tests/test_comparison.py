@@ -539,7 +539,7 @@ def test_every_new_key_loads(tmp_path: Path) -> None:
 def test_roles_fill_their_observation_columns(tmp_path: Path) -> None:
     # End to end on the demo's invented data: each role's column of the user's file arrives in the
     # observation variable of that role (the demo's own column names are kept on the right-hand side).
-    from leafcv.cli import load
+    from leafcv.api import load
     from leafcv.demo import write_demo
 
     write_demo(tmp_path, quick=True)

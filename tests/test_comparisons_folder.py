@@ -6,7 +6,7 @@ from pathlib import Path
 
 import pytest
 
-from leafcv.cli import load
+from leafcv.api import load
 from leafcv.demo import write_demo
 
 FILES = sorted((Path(__file__).resolve().parents[1] / "comparisons").glob("*.toml"))

@@ -5,6 +5,7 @@ import numpy as np
 
 from leafcv.design import build_design, natural_values
 from leafcv.inits import fit_leaves
+from .helpers import pooled_structure
 
 
 def test_treatment_coding_and_trait_centring(quick_demo):
@@ -45,7 +46,7 @@ def test_held_out_leaves_are_non_centred_and_out_of_the_likelihood(quick_demo):
 
 def test_ratio_parameters_resolve_to_natural_values(quick_demo):
     comparison, dataset, _ = quick_demo
-    design = build_design(comparison.structure("pooled"), dataset, comparison.data)
+    design = build_design(pooled_structure(comparison), dataset, comparison.data)
     eta = np.zeros((dataset.n_leaves, 5))
     eta[:, 0] = np.log(50.0)
     eta[:, 1] = np.log(1.8)

@@ -7,6 +7,7 @@ import pytest
 from leafcv.demo import GEN, N_CENTRE
 from leafcv.fitting import fit_structure, format_fit
 from leafcv.inits import fit_leaves
+from .helpers import pooled_structure
 
 pytestmark = pytest.mark.stan
 
@@ -71,7 +72,7 @@ def test_same_seed_same_draws_after_cache_deletion(quick_demo, leaf_fits):
     # deleted from httpstan's fit cache after reading (so this is a real second run, not a cached one).
     comparison, dataset, _ = quick_demo
     sampler = type(comparison.sampler)(chains=2, warmup=100, draws=50, seed=11)
-    s = comparison.structure("pooled")
+    s = pooled_structure(comparison)
     a = fit_structure(s, dataset, comparison.data, sampler, leaf_fits=leaf_fits)
     b = fit_structure(s, dataset, comparison.data, sampler, leaf_fits=leaf_fits)
     np.testing.assert_array_equal(a.draws.params["b0"], b.draws.params["b0"])

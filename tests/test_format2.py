@@ -11,7 +11,7 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-from leafcv.cli import load
+from leafcv.api import load
 from leafcv.comparison import describe
 from leafcv.demo import write_demo
 from leafcv.design import build_design

@@ -44,6 +44,8 @@ def _numpy_log_density(design, dataset, point) -> float:
     lp += stats.norm.logpdf(point["eta_c"], mu_flat[design.cen_cells],
                             np.asarray(point["tau_leaf"])[np.asarray(d["cen_term"], int) - 1]).sum()
     lp += stats.norm.logpdf(point["eta_z"]).sum()
+    # the program samples the SDs on the log scale: change of variables, Jacobian d tau / d log tau = tau
+    lp += sum(np.log(np.asarray(point[k], float)).sum() for k in ("tau", "tau_leaf", "sigma"))
     return float(lp)
 
 
@@ -65,3 +67,33 @@ def test_generic_log_density_matches_numpy(quick_demo, name):
         diffs.append(model.log_prob(upar, adjust_transform=False) - _numpy_log_density(design, dataset, point))
     # Stan's ~ statements drop constants: the difference is one constant over all points
     assert np.ptp(diffs) < 1e-6 * max(1.0, abs(np.mean(diffs))), diffs
+
+
+def test_offset_and_scale_of_the_free_parameters_is_an_exact_reparameterisation(quick_demo):
+    # Stan Reference Manual, "Affinely transformed real": x = offset + multiplier * y, whose log Jacobian
+    # is sum(log multiplier). So at any constrained point, the log density without the Jacobian is
+    # unchanged by leafcv's scaling, and with the Jacobian it moves by that constant, at every point.
+    from leafcv.inits import cold_scaling
+
+    comparison, dataset, _ = quick_demo
+    leaf_fits = fit_leaves(dataset)
+    design = build_design(comparison.structure("traits-month-random"), dataset, comparison.data, leaf_fits=leaf_fits)
+    scaling = cold_scaling(design, leaf_fits)
+    n_free = sum(np.size(design.stan_data[k]) for k in ("cen_cell", "nc_cell", "lev_term", "tau_sd", "leaf_tau_sd",
+                                                         "beta_sd", "prior_a")) + design.stan_data["S"]
+    assert scaling["n_scale"] == n_free
+    assert np.all(scaling["scale_mult"] > 0) and np.ptp(scaling["scale_mult"]) > 0.1
+    rng = np.random.default_rng(5)
+    scaling["scale_offset"] = rng.normal(0, 0.5, n_free)
+    engine = PyStanEngine(log=lambda _: None)
+    plain = engine.compile(program_text(), design.stan_data, 1)
+    scaled = engine.compile(program_text(), {**design.stan_data, **scaling}, 1)
+    log_jacobian = float(np.sum(np.log(scaling["scale_mult"])))
+    for _ in range(3):
+        point = {k: v.tolist() for k, v in random_generic_point(design, rng).items()}
+        up, us = plain.unconstrain_pars(point), scaled.unconstrain_pars(point)
+        assert not np.allclose(up, us)
+        lp, ls = plain.log_prob(up, adjust_transform=False), scaled.log_prob(us, adjust_transform=False)
+        assert ls == pytest.approx(lp, rel=1e-10, abs=1e-8)
+        lpj, lsj = plain.log_prob(up, adjust_transform=True), scaled.log_prob(us, adjust_transform=True)
+        assert lsj - lpj == pytest.approx(log_jacobian, rel=1e-8, abs=1e-8)

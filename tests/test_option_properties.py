@@ -12,7 +12,7 @@ import pandas as pd
 import pytest
 
 from leafcv import fvcb
-from leafcv.cli import load
+from leafcv.api import load
 from leafcv.cv.leafmodel import flatten_draws
 from leafcv.design import level_values
 from leafcv.fitting import fit_structure, format_fit

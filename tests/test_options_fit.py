@@ -9,7 +9,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from leafcv.cli import load
+from leafcv.api import load
 from leafcv.cv.leafmodel import flatten_draws
 from leafcv.demo import write_demo
 from leafcv.design import leaf_link_values

@@ -6,6 +6,7 @@ data or files, 2 usage, 3 an engine or internal failure (message plus where the 
 from __future__ import annotations
 
 import argparse
+import logging
 import sys
 import tempfile
 import time
@@ -30,6 +31,7 @@ def _parser() -> argparse.ArgumentParser:
     f = sub.add_parser("fit", help="fit one structure on all data")
     f.add_argument("file", type=Path)
     f.add_argument("--structure", required=True)
+    f.add_argument("--save", type=Path, metavar="FILE.nc", help="also write the fit as ArviZ InferenceData (NetCDF)")
     m = sub.add_parser("compare", help="fit every structure and rank them (the main job)")
     m.add_argument("file", type=Path)
     m.add_argument("--out", type=Path)
@@ -42,35 +44,10 @@ def _parser() -> argparse.ArgumentParser:
 
 
 def load(file: Path):
-    """Comparison, dataset and every problem between them; raises UserInputError listing all problems."""
-    from .comparison import check_against_data, load_comparison
-    from .data import load_dataset
-    from .errors import SpecError, UserInputError
+    """Comparison and dataset of ``file`` (see `leafcv.api.load`)."""
+    from .api import load as api_load
 
-    comparison = load_comparison(file)
-    try:
-        dataset = load_dataset(comparison.data)
-    except UserInputError as exc:
-        raise type(exc)(exc.source, [_with_users(m, comparison) for m in exc.problems]) from None
-    problems = check_against_data(comparison, dataset)
-    if problems:
-        raise SpecError(str(file), problems)
-    return comparison, dataset
-
-
-def _with_users(message: str, comparison) -> str:
-    """A leaf-level column that varies within a leaf: say which structures use it as a leaf-level term."""
-    if "must be constant within a leaf" not in message:
-        return message
-    uses = []
-    for name in (*comparison.data.traits, *comparison.data.groups):
-        if repr(name) not in message:
-            continue
-        for st in comparison.structures:
-            for p, ps in st.params.items():
-                if name in {*ps.fixed, *ps.random, *(x for pair in ps.slopes + ps.split for x in pair)}:
-                    uses.append(f"structure {st.name!r} uses {name!r} on {p}")
-    return message + (" (" + "; ".join(uses) + ")" if uses else "")
+    return tuple(api_load(file))
 
 
 def cmd_check(args) -> int:
@@ -91,23 +68,29 @@ def cmd_check(args) -> int:
         print(f"  trait {t}: {x.min():.4g} to {x.max():.4g}, mean {x.mean():.4g}")
     for note in dataset.notes:
         print(f"  note: {note}")
+    for warning in dataset.warnings:
+        print(f"  warning: {warning}")
     print(describe(comparison))
     return EXIT_OK
 
 
 def cmd_fit(args) -> int:
-    from .fitting import fit_structure, format_fit
+    from .api import load as api_load
 
-    comparison, dataset = load(args.file)
-    structure = comparison.structure(args.structure)
-    fit = fit_structure(structure, dataset, comparison.data, comparison.sampler, progress=_progress(structure.name))
+    study = api_load(args.file)
+    fit = study.fit(args.structure, progress=_progress(args.structure))
     sys.stderr.write("\n")
-    print(format_fit(fit, f"structure {structure.name!r} on {dataset.n_leaves} leaves"))
+    print(fit.text())
+    if args.save:
+        from .compare import write_fit
+
+        write_fit(args.save, fit.result, study.dataset, None)
+        print(f"fit written to {args.save} (ArviZ InferenceData, NetCDF)")
     return EXIT_OK
 
 
 def cmd_compare(args) -> int:
-    from .compare import run_comparison
+    from .api import load as api_load
 
     if args.scheduler:
         sys.stderr.write("leafcv compare: --scheduler (Dask) is not available in this version; run without it\n")
@@ -115,10 +98,8 @@ def cmd_compare(args) -> int:
     if args.workers not in (None, 1):
         sys.stderr.write("leafcv compare: note: structures run one after another; each fit already uses every "
                          "core through its chains (--workers is accepted for the record)\n")
-    comparison, dataset = load(args.file)
-    out = args.out or comparison.path.parent / "runs" / comparison.path.stem
-    run_comparison(comparison, dataset, out, method=args.method)
-    print(f"run folder: {out}")
+    run = api_load(args.file).run(args.out, method=args.method)
+    print(f"run folder: {run.folder}")
     return EXIT_OK
 
 
@@ -163,8 +144,21 @@ def _progress(label: str):
 COMMANDS = {"check": cmd_check, "fit": cmd_fit, "compare": cmd_compare, "demo": cmd_demo, "report": cmd_report}
 
 
+def _show_progress() -> None:
+    """Print the library's progress messages (logger "leafcv", INFO) on stdout, once."""
+    log = logging.getLogger("leafcv")
+    if not any(getattr(h, "_leafcv_cli", False) for h in log.handlers):
+        handler = logging.StreamHandler(sys.stdout)
+        handler.setFormatter(logging.Formatter("%(message)s"))
+        handler._leafcv_cli = True
+        log.addHandler(handler)
+    log.setLevel(logging.INFO)
+    log.propagate = False
+
+
 def main(argv: list[str] | None = None) -> int:
     args = _parser().parse_args(argv)
+    _show_progress()
     try:
         return COMMANDS[args.command](args)
     except UserInputError as exc:

@@ -5,6 +5,9 @@ Run folder (default ``runs/<file stem>/`` beside the comparison file):
                            and per structure its model options and priors
   structures.txt           each structure's terms, model options and priors in words
   results/<structure>.json one per structure, written atomically; reused on a re-run when its inputs match
+  fits/<structure>.nc      its full-data fit as ArviZ InferenceData (posterior, sample_stats,
+                           observed_data, and log_likelihood "leaf_log_marginal": each leaf's log marginal
+                           per draw, so that arviz.loo gives its leave-one-leaf-out PSIS)
   ranking.csv, ranking.txt the ranking (columns as in DESIGN.md)
   pointwise.csv            per held-out unit (leaf, or level of a grouping) and structure: elpd, how it
                            was scored, its Monte Carlo SE, quadrature bound and Pareto k-hat (NaN if
@@ -249,6 +252,23 @@ def write_ranking(out: Path, results: list[CVResult], all_details: dict[str, dic
     return text, table
 
 
+def write_fit(path: Path, fit, dataset: Dataset, log_m: np.ndarray | None) -> None:
+    """Write a structure's full-data fit as ArviZ InferenceData (NetCDF, h5netcdf engine) atomically."""
+    from .cv.arviz_bridge import to_inference_data
+
+    path.parent.mkdir(parents=True, exist_ok=True)
+    idata = to_inference_data(fit, dataset, log_m)
+    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix="." + path.name, suffix=".tmp")
+    os.close(fd)
+    try:
+        idata.to_netcdf(tmp, engine="h5netcdf")
+        os.chmod(tmp, 0o666 & ~_umask())
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+
+
 def rewrite_report(run_dir: Path) -> str:
     """Re-rank a run from the result files of its manifest's method; returns the ranking text."""
     from .errors import UserInputError
@@ -286,10 +306,14 @@ def seed_plan(seed: int) -> dict:
 
 
 def run_comparison(comparison: Comparison, dataset: Dataset, out: Path, *, method: str | None = None,
-                   engine=None, log: Callable[[str], None] = print, spot_checks: int = 3,
+                   engine=None, log: Callable[[str], None] | None = None, spot_checks: int = 3,
                    sampler=None) -> pd.DataFrame:
-    """Cross-validate every structure (reusing finished results whose inputs match) and rank them."""
-    from .cv.methods import cross_validate     # here, so that reading and writing run folders needs no sampler
+    """Cross-validate every structure (reusing finished results whose inputs match) and rank them.
+    Progress goes to ``log`` (default: the "leafcv" logger at INFO)."""
+    import logging
+
+    log = log or logging.getLogger("leafcv").info
+    from .cv.methods import cross_validate, estimates_fit   # here: reading run folders needs no sampler
 
     out = Path(out)
     method = method or comparison.cv.method
@@ -327,9 +351,15 @@ def run_comparison(comparison: Comparison, dataset: Dataset, out: Path, *, metho
             state["leaf_fits"] = fit_leaves(dataset)
         t = time.perf_counter()
         log(f"[{k}/{n}] {s.name}: cross-validating ({method}, by {comparison.cv.by})")
+        keep: dict = {}
         res, det = cross_validate(s, dataset, comparison, method=method, by=comparison.cv.by,
                                   folds=comparison.cv.folds, spot_checks=spot_checks, engine=engine,
-                                  leaf_fits=state["leaf_fits"], sampler=sampler)
+                                  leaf_fits=state["leaf_fits"], sampler=sampler, keep=keep)
+        if "fit" not in keep:
+            log(f"[{k}/{n}] {s.name}: fitting all leaves for the estimates ({method} scores come from refits)")
+            keep = estimates_fit(s, dataset, comparison, leaf_fits=state["leaf_fits"], engine=engine,
+                                 sampler=sampler, details=det)
+        write_fit(out / "fits" / f"{s.name}.nc", keep["fit"], dataset, keep["log_m"])
         write_atomic(path, _result_to_json(res, det, key))
         grade = {"converged": "", "marginal": " - MARGINAL CONVERGENCE", "failed": " - NOT CONVERGED"}[res.grade]
         mcse = f", MCSE {res.mcse:.2f}" if np.isfinite(res.mcse) else ""

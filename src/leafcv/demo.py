@@ -91,11 +91,23 @@ def simulate(n_leaves: int, seed: int = 20261202) -> tuple[pd.DataFrame, pd.Data
     return pd.DataFrame(rows), truth
 
 
+#: The default demo also asks whether leaves differ at all (the "pooled" baseline, one value shared by
+#: all leaves); the quick demo leaves that baseline out and asks only the season and trait question.
+QUESTION = ("do Vcmax25 and alpha need leaf effects, which traits shift them, and is month better\n"
+            "# fixed or random?")
+QUESTION_QUICK = "which traits shift Vcmax25 and alpha, and is month better fixed or random?"
+POOLED = """[[structure]]
+name = "pooled"
+jmax25 = { ratio_to = "vcmax25" }
+rd25 = { ratio_to = "vcmax25" }
+
+"""
+
 COMPARISON_TEMPLATE = """\
 # leafcv demo comparison: an invented field station, four coded species, three monthly campaigns.
-# Question: do Vcmax25 and alpha need leaf effects, which traits shift them, and is month better
-# fixed or random? Read the answer in the ranking: the best structure first; a difference of less than
-# about 4 nats, or within two standard errors, is not a clear preference.
+# Question: {question}
+# Read the answer in the ranking: the best structure first; a difference of less than about 4 nats,
+# or within two standard errors, is not a clear preference.
 # The data were simulated by `leafcv demo` from the structure "traits-month-fixed".
 
 format = 1
@@ -134,12 +146,7 @@ by = "leaf"
 method = "auto"
 folds = 10
 
-[[structure]]
-name = "pooled"
-jmax25 = {{ ratio_to = "vcmax25" }}
-rd25 = {{ ratio_to = "vcmax25" }}
-
-[[structure]]
+{pooled}[[structure]]
 name = "leaf-vcmax-alpha"
 vcmax25 = {{ random = ["leaf"] }}
 alpha = {{ random = ["leaf"] }}
@@ -170,7 +177,9 @@ def write_demo(folder: Path, quick: bool = False, seed: int = 20261202) -> Path:
     obs.to_csv(folder / "observations.csv", index=False)
     truth.to_csv(folder / "truth.csv", index=False)
     toml = COMPARISON_TEMPLATE.format(n_centre=N_CENTRE, chl_centre=CHL_CENTRE, sla_centre=SLA_CENTRE,
-                                      chains=size.chains, warmup=size.warmup, draws=size.draws)
+                                      chains=size.chains, warmup=size.warmup, draws=size.draws,
+                                      question=QUESTION_QUICK if quick else QUESTION,
+                                      pooled="" if quick else POOLED)
     path = folder / "demo.toml"
     path.write_text(toml)
     return path

@@ -281,6 +281,7 @@ def build_design(
         "Mn": len(nc_cell), "nc_cell": nc_cell, "nc_term": nc_term,
         "leaf_corr": int(structure.leaf_correlation), "lkj_eta": float(structure.lkj_eta),
         "sigma_sd": priors.sigma_scale, "nu_shape": priors.nu_shape, "nu_rate": priors.nu_rate,
+        "n_scale": 0, "scale_offset": np.zeros(0), "scale_mult": np.zeros(0),
     }
     if structure.leaf_correlation:
         prior_lines.append(f"correlation of leaf effects on {', '.join(lt.param for lt in leaf_terms)}: "
@@ -319,6 +320,10 @@ def _mean_split(group_terms: list[GroupTerm], lev_centred: np.ndarray, P: int, p
     return rot, shift, out
 
 
+#: The program's free parameter blocks, in the order of its scale_offset / scale_mult stacking.
+FREE_BLOCKS = ("b0_free", "beta", "log_tau", "u_c", "u_v", "log_tau_leaf", "eta_c", "eta_z", "log_sigma")
+
+
 def free_parameters(design: Design, b0: np.ndarray, tau: np.ndarray, u_z: np.ndarray) -> dict[str, np.ndarray]:
     """The program's free b0_free and u_v for given b0, tau and non-centred level z (inverse of its
     transformed parameters)."""
@@ -328,6 +333,21 @@ def free_parameters(design: Design, b0: np.ndarray, tau: np.ndarray, u_z: np.nda
     tau_nc = np.asarray(tau, float)[np.asarray(d["lev_term"], int)[np.asarray(d["nc_lev"], int) - 1] - 1] \
         if len(u_v) else np.zeros(0)
     return {"b0_free": np.asarray(b0, float) + shift @ (tau_nc * u_v), "u_v": u_v}
+
+
+def with_free_parameters(design: Design, init: dict) -> dict:
+    """``init`` (b0, beta, tau, u_c, u_z, tau_leaf, eta_c, eta_z, sigma, ...) with every free parameter of
+    the program added (b0_free, u_v, and the SDs on the log scale), ready to start a chain."""
+    out = dict(init)
+    out.update(free_parameters(design, init["b0"], init["tau"], init["u_z"]))
+    for name in ("tau", "tau_leaf", "sigma"):
+        out["log_" + name] = np.log(np.asarray(init[name], float))
+    return out
+
+
+def stack_free(values: dict) -> np.ndarray:
+    """The free parameter blocks of ``values`` (as `with_free_parameters` returns) stacked in FREE_BLOCKS order."""
+    return np.concatenate([np.ravel(np.asarray(values[k], float)) for k in FREE_BLOCKS])
 
 
 def _leaf_cells(structure: Structure, params, leaf_cells: list[tuple[int, np.ndarray]], L: int):

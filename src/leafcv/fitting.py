@@ -14,7 +14,7 @@ from .spec import ModelOptions
 from .diagnostics import Diagnostics, chain_arrays, diagnose
 from .engines.base import Draws, Engine
 from .engines.program import program_text
-from .inits import LeafFits, fit_leaves, structure_inits
+from .inits import LeafFits, cold_scaling, fit_leaves, structure_inits
 from .priors import PriorSet
 from .spec import LINKS, DataSpec, SamplerSpec, Structure
 
@@ -78,67 +78,103 @@ def fit_structure(
     seed: int | None = None,
     progress: Callable[[int, int], None] | None = None,
     warm_start: "StructureFit | None" = None,
+    warm_inits_too: bool = True,
 ) -> StructureFit:
     """Fit ``structure`` with chains started from per-leaf least-squares fits, dispersed; or, with
     ``warm_start`` (a fit of the same structure, e.g. on all leaves before a refit), each chain from the
-    last draw of the same chain of that fit (`warm_inits`)."""
+    last draw of the same chain of that fit (`warm_inits`; not with ``warm_inits_too`` False) and every
+    free parameter offset and scaled by that fit's posterior (`warm_scaling`)."""
     engine = engine or default_engine()
     leaf_fits = leaf_fits or fit_leaves(dataset)
     design = build_design(structure, dataset, data_spec, options, priors, train_leaves, leaf_fits)
     seed = sampler.seed if seed is None else seed
     inits = structure_inits(design, leaf_fits, dataset, sampler.chains, seed)
-    note_start = None
+    note_start, data = None, {**design.stan_data, **cold_scaling(design, leaf_fits)}
     if warm_start is not None and not design.stan_data.get("leaf_corr"):
-        inits = warm_inits(warm_start, design, sampler.chains)
-        note_start = "chains started from the last draws of the full-data fit (held-out leaves at their population mean)"
-    draws = engine.fit(program_text(), design.stan_data, sampler, seed, inits, progress)
+        if warm_inits_too:
+            inits = warm_inits(warm_start, design, sampler.chains)
+        data = {**design.stan_data, **warm_scaling(warm_start, design)}
+        note_start = ("chains started from the last draws of the full-data fit (held-out leaves at their population "
+                      "mean); " if warm_inits_too else "") + "parameters scaled by their full-data posterior means and SDs"
+    draws = engine.fit(program_text(), data, sampler, seed, inits, progress)
     add_derived(design, draws.params)
     names = [n for n in POPULATION if n in draws.params and draws.params[n].size]
     diag = diagnose(draws, names, sampler.max_treedepth)
     note = note_start or (f"chains started from per-leaf least-squares fits (SciPy; theta held at 0.7; "
             f"leaf-fit RMSE {leaf_fits.rmse:.2f} umol m-2 s-1"
             + (f"; {len(leaf_fits.failed)} leaf fits failed and used defaults" if leaf_fits.failed else "")
-            + "), dispersed by normal(0, 0.1) on the link scale")
+            + "), dispersed by normal(0, 0.1) on the link scale; parameters scaled by least-squares guesses of "
+              "their posterior SDs")
     return StructureFit(design, draws, diag, note)
 
 
-def warm_inits(fit: StructureFit, design: Design, chains: int) -> list[dict]:
-    """Inits for ``design`` from the last draw of each chain of ``fit`` (same structure and data; the
-    training leaves may differ). Link-scale values of every leaf cell and of every group level carry
-    over unchanged (the linear predictor does not depend on the training set), re-expressed in
-    ``design``'s centred and non-centred cells; held-out leaves start at their population mean."""
-    from .design import free_parameters, level_values
+def warm_values(fit: StructureFit, design: Design, chain_draw: tuple[np.ndarray, np.ndarray]) -> dict[str, np.ndarray]:
+    """Draws ``chain_draw`` (chain and draw indices) of ``fit`` expressed in ``design``'s parameters (same
+    structure and data; the training leaves may differ), each array with a leading draw axis. Link-scale
+    values of every leaf cell and of every group level carry over unchanged (the linear predictor does not
+    depend on the training set), re-expressed in ``design``'s centred and non-centred cells and in the
+    program's free parameters (`with_free_parameters`); held-out leaves sit at their population mean."""
+    from .design import FREE_BLOCKS, free_parameters, level_values
 
-    p = fit.draws.params
+    c, i = (np.asarray(a, int) for a in chain_draw)
+    src = {k: np.asarray(v, float)[c, i] for k, v in fit.draws.params.items()}
     d = design.stan_data
-    out = []
-    n_chains = p["b0"].shape[0]
-    for c in range(chains):
-        last = {k: v[c % n_chains, -1] for k, v in p.items()}
-        one = {k: np.asarray(v, float)[None, ...] for k, v in last.items()}
-        mu, eta = leaf_link_values(fit.design, one)
-        mu_flat, eta_flat = mu[0].T.reshape(-1), eta[0].T.reshape(-1)
-        held = ~design.train_leaves
-        eta_flat = np.where(np.tile(held, len(design.params)), mu_flat, eta_flat)
-        u = level_values(fit.design, one)[0]
-        tau = np.asarray(last["tau"], float)
-        lev_term = np.asarray(d["lev_term"], int) - 1
-        cen_lev, nc_lev = np.asarray(d["cen_lev"], int) - 1, np.asarray(d["nc_lev"], int) - 1
-        tau_leaf = np.asarray(last["tau_leaf"], float)
-        nc_term = np.asarray(d["nc_term"], int) - 1
-        init = {
-            "b0": np.asarray(last["b0"], float), "beta": np.asarray(last["beta"], float), "tau": tau,
-            "u_c": u[cen_lev], "u_z": u[nc_lev] / tau[lev_term[nc_lev]] if len(nc_lev) else np.zeros(0),
-            "tau_leaf": tau_leaf, "eta_c": eta_flat[design.cen_cells],
-            "eta_z": (eta_flat[design.nc_cells] - mu_flat[design.nc_cells]) / tau_leaf[nc_term] if len(nc_term)
-            else np.zeros(0),
-            "sigma": np.asarray(last["sigma"], float), "nu": np.asarray(last["nu"], float),
-        }
-        init.update(free_parameters(design, init["b0"], tau, init["u_z"]))
-        if len(init["sigma"]) != d["S"]:      # residual SDs by curve type, a type missing in training
-            init["sigma"] = np.full(d["S"], float(np.mean(init["sigma"])))
-        out.append({k: (v.tolist() if np.ndim(v) else float(v)) for k, v in init.items()})
+    mu, eta = leaf_link_values(fit.design, src)
+    n = len(c)
+    mu_flat, eta_flat = mu.transpose(0, 2, 1).reshape(n, -1), eta.transpose(0, 2, 1).reshape(n, -1)
+    held = np.tile(~design.train_leaves, len(design.params))
+    eta_flat = np.where(held[None, :], mu_flat, eta_flat)
+    u = level_values(fit.design, src)
+    tau, tau_leaf = src["tau"], src["tau_leaf"]
+    lev_term = np.asarray(d["lev_term"], int) - 1
+    cen_lev, nc_lev = np.asarray(d["cen_lev"], int) - 1, np.asarray(d["nc_lev"], int) - 1
+    nc_term = np.asarray(d["nc_term"], int) - 1
+    out = {
+        "b0": src["b0"], "beta": src["beta"], "tau": tau, "tau_leaf": tau_leaf,
+        "u_c": u[:, cen_lev], "u_z": u[:, nc_lev] / tau[:, lev_term[nc_lev]],
+        "eta_c": eta_flat[:, design.cen_cells],
+        "eta_z": (eta_flat[:, design.nc_cells] - mu_flat[:, design.nc_cells]) / tau_leaf[:, nc_term],
+        "sigma": src["sigma"], "nu": src["nu"],
+    }
+    if out["sigma"].shape[1] != d["S"]:      # residual SDs by curve type, a type missing in training
+        out["sigma"] = np.repeat(out["sigma"].mean(axis=1, keepdims=True), d["S"], axis=1)
+    free = [free_parameters(design, out["b0"][k], tau[k], out["u_z"][k]) for k in range(n)]
+    out["b0_free"] = np.array([f["b0_free"] for f in free]).reshape(n, -1)
+    out["u_v"] = np.array([f["u_v"] for f in free]).reshape(n, -1)
+    for name in ("tau", "tau_leaf", "sigma"):
+        out["log_" + name] = np.log(out[name])
+    assert all(k in out for k in FREE_BLOCKS)
     return out
+
+
+def warm_inits(fit: StructureFit, design: Design, chains: int) -> list[dict]:
+    """Inits for ``design`` from the last draw of each chain of ``fit`` (see `warm_values`)."""
+    n_chains, n_draws = fit.draws.params["b0"].shape[:2]
+    cs = np.arange(chains) % n_chains
+    vals = warm_values(fit, design, (cs, np.full(chains, n_draws - 1)))
+    return [{k: (v[j].tolist() if np.ndim(v[j]) else float(v[j])) for k, v in vals.items()} for j in range(chains)]
+
+
+#: Draws of the full-data fit used to set a refit's parameter scaling.
+SCALING_DRAWS = 400
+
+
+def warm_scaling(fit: StructureFit, design: Design) -> dict[str, np.ndarray]:
+    """The program's scale_offset / scale_mult for a refit of ``design`` started from ``fit``: every free
+    parameter offset by its posterior mean in ``fit`` and scaled by its posterior SD (an exact
+    reparameterisation; it only spares the warm-up from learning the scales). Cells the full fit cannot
+    inform (held-out leaves' standard-normal effects) keep offset 0 and scale 1."""
+    from .design import stack_free
+
+    n_chains, n_draws = fit.draws.params["b0"].shape[:2]
+    flat = np.arange(n_chains * n_draws)
+    pick = flat[np.linspace(0, flat.size - 1, min(SCALING_DRAWS, flat.size)).astype(int)]
+    vals = warm_values(fit, design, (pick // n_draws, pick % n_draws))
+    stacked = np.stack([stack_free({k: v[j] for k, v in vals.items()}) for j in range(len(pick))])
+    off, sd = stacked.mean(axis=0), stacked.std(axis=0, ddof=1)
+    fixed = ~(sd > 1e-8) | ~np.isfinite(sd)
+    off = np.where(fixed & ~np.isfinite(off), 0.0, off)
+    return {"n_scale": int(off.size), "scale_offset": off, "scale_mult": np.where(fixed, 1.0, sd)}
 
 
 def _labels(design: Design) -> dict[str, tuple[str, Callable[[np.ndarray], np.ndarray], str]]:

@@ -15,7 +15,7 @@ from scipy.special import logit
 
 from . import fvcb
 from .data.dataset import Dataset
-from .design import Design, free_parameters
+from .design import Design, with_free_parameters
 
 THETA_INIT = 0.7
 #: Plausible ranges used to clip per-leaf estimates (REFERENCES.md typical magnitudes).
@@ -131,7 +131,7 @@ def structure_inits(design: Design, fits: LeafFits, dataset: Dataset, chains: in
         for k in ("u_c", "u_z", "eta_z"):
             init[k] = init[k] + rng.normal(0, spread, init[k].shape)
         init["eta_c"] = init["eta_c"] + rng.normal(0, spread, init["eta_c"].shape) * 0.5
-        init.update(free_parameters(design, init["b0"], init["tau"], init["u_z"]))   # b0, u_z kept for readers
+        init = with_free_parameters(design, init)   # b0, u_z, tau, ... kept for readers
         out.append({k: (v.tolist() if np.ndim(v) else float(v)) for k, v in init.items()})
     return out
 
@@ -208,3 +208,52 @@ def _rmse(design: Design, cells: np.ndarray, dataset: Dataset) -> float:
         nat["vcmax25"][li], nat["jmax25"][li], nat["alpha"][li], nat["theta"][li], nat["rd25"][li],
         o2=obs["o2"].to_numpy(float))
     return float(np.sqrt(np.mean((pred - obs["a_net"].to_numpy(float)) ** 2)))
+
+
+def cold_scaling(design: Design, fits: LeafFits) -> dict[str, np.ndarray]:
+    """The program's scale_offset / scale_mult for a fit started afresh: every free parameter scaled by a
+    rough guess of its posterior SD from the per-leaf least-squares fits, so that the sampler's first
+    warm-up iterations (run with a unit metric) do not crawl along the narrowest direction. An exact
+    reparameterisation: a guess that is off costs warm-up time only, never accuracy. The guesses (common
+    practice, no source): a population mean to the between-leaf SD over sqrt(leaves); a trait slope to
+    that over the trait's SD; the log of an SD of K levels to 1 / sqrt(2 (K - 1)); a well-measured leaf's
+    own value to its least-squares standard error; a residual SD's log to 1 / sqrt(2 points);
+    standard-normal effects to 1. Offsets stay 0."""
+    d = design.stan_data
+    L, P = d["L"], len(design.params)
+    train = design.train_leaves
+    n = max(int(train.sum()), 2)
+    spread, se = np.full(P, np.nan), np.full((L, P), np.inf)
+    for i, p in enumerate(design.params):
+        v = fits.link_values(p, bool(design.ratio.get(p)))[train]
+        if p != "theta" and np.isfinite(v).sum() > 1:
+            spread[i] = float(np.nanstd(v))
+            se[:, i] = fits.link_se(p, bool(design.ratio.get(p)))
+    spread = np.where(np.isfinite(spread), spread, 0.3)
+    b0 = np.clip(spread / np.sqrt(n), 0.01, 1.0)
+    X = np.asarray(d["X"], float)
+    fmap = np.asarray(d["fixed_map"], float)
+    beta = np.ones(d["K"])
+    for k in range(d["K"]):
+        i = int(np.argmax(fmap[k]))
+        sd_x = float(np.std(X[train, k]))
+        beta[k] = np.clip(b0[i] / sd_x, 1e-4, 10.0) if sd_x > 0 else 1.0
+    levels = np.array([len(g.levels) for g in design.group_terms], float)
+    log_tau = 1 / np.sqrt(2 * np.maximum(levels - 1, 1))
+    lev_par = np.array([design.params.index(g.param) for g in design.group_terms], int)
+    lev_term = np.asarray(d["lev_term"], int) - 1
+    cen_lev = np.asarray(d["cen_lev"], int) - 1
+    u_c = np.clip(b0[lev_par[lev_term[cen_lev]]] * np.sqrt(levels[lev_term[cen_lev]]), 0.01, 1.0) \
+        if len(cen_lev) else np.zeros(0)
+    leaf_par = np.array([design.params.index(t.param) for t in design.leaf_terms], int)
+    cells = design.cen_cells
+    cell_leaf, cell_par = cells % L, cells // L
+    eta_c = np.clip(se[cell_leaf, cell_par], 0.01, np.maximum(spread[cell_par], 0.01))
+    eta_c = np.where(np.isfinite(eta_c), eta_c, np.maximum(spread[cell_par], 0.01))
+    groups = np.asarray(d["sigma_group"], int)
+    counts = np.bincount(groups, minlength=d["S"] + 1)[1:]
+    log_sigma = 1 / np.sqrt(2 * np.maximum(counts, 1))
+    mult = np.concatenate([b0, beta, log_tau, u_c, np.ones(d["Q"] - d["Qc"]),
+                           np.full(d["Rl"], 1 / np.sqrt(2 * (n - 1))), eta_c, np.ones(d["Mn"]), log_sigma])
+    assert len(leaf_par) == d["Rl"]
+    return {"n_scale": int(mult.size), "scale_offset": np.zeros(mult.size), "scale_mult": mult.astype(float)}

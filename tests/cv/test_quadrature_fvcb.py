@@ -19,7 +19,7 @@ import numpy as np
 import pytest
 from scipy.special import logit, logsumexp
 
-from leafcv.cli import load
+from leafcv.api import load
 from leafcv.cv.leafmodel import LeafModel, flatten_draws
 from leafcv.cv.quadrature import LEAF_TOL, leaf_log_marginal, log_integrand
 from leafcv.demo import GEN, write_demo

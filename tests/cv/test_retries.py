@@ -12,6 +12,7 @@ from leafcv.diagnostics import Diagnostics, worst_grade
 from leafcv.engines.base import SAMPLER_FIELDS, Draws
 from leafcv.inits import fit_leaves
 from leafcv.spec import SamplerSpec
+from ..helpers import pooled_structure
 
 
 class FakeEngine:
@@ -47,7 +48,7 @@ def test_a_retry_for_mixing_doubles_warmup_and_draws_and_the_result_counts_them(
     comparison, dataset, _ = quick_demo
     sampler = SamplerSpec(chains=4, warmup=50, draws=150, seed=3)
     engine = FakeEngine(split_below=200)
-    res, det = cross_validate(comparison.structure("pooled"), dataset, comparison, method="auto", spot_checks=0,
+    res, det = cross_validate(pooled_structure(comparison), dataset, comparison, method="auto", spot_checks=0,
                               engine=engine, leaf_fits=fit_leaves(dataset), sampler=sampler)
     full = [f for f in det.fits if f["role"] == "full data"]
     assert [f["attempt"] for f in full] == [1, 2]
@@ -74,7 +75,7 @@ def test_divergences_raise_adapt_delta_and_switch_group_effects_to_noncentred(qu
 def test_a_fit_that_keeps_failing_is_graded_failed_after_the_stated_attempts(quick_demo):
     comparison, dataset, _ = quick_demo
     engine = FakeEngine(divergent_below=1.0)          # divergences whatever adapt_delta
-    res, det = cross_validate(comparison.structure("pooled"), dataset, comparison, method="auto", spot_checks=0,
+    res, det = cross_validate(pooled_structure(comparison), dataset, comparison, method="auto", spot_checks=0,
                               engine=engine, leaf_fits=fit_leaves(dataset),
                               sampler=SamplerSpec(chains=4, warmup=50, draws=200, seed=4))
     full = [f for f in det.fits if f["role"] == "full data"]
@@ -114,7 +115,7 @@ def test_spot_checks_that_disagree_replace_psis_and_two_refit_every_leaf(quick_d
 
     monkeypatch.setattr(methods, "integrated_loo", off_by_one)
     comparison, dataset, _ = quick_demo
-    res, det = cross_validate(comparison.structure("pooled"), dataset, comparison, method="auto", spot_checks=2,
+    res, det = cross_validate(pooled_structure(comparison), dataset, comparison, method="auto", spot_checks=2,
                               engine=FakeEngine(), leaf_fits=fit_leaves(dataset),
                               sampler=SamplerSpec(chains=4, warmup=50, draws=200, seed=5))
     assert [s["disagree"] for s in det.spot_checks] == [True, True]
@@ -122,3 +123,38 @@ def test_spot_checks_that_disagree_replace_psis_and_two_refit_every_leaf(quick_d
     assert set(res.method_i) == {"refit"} and res.n_refits == dataset.n_leaves
     assert np.all(np.isnan(res.pareto_k))             # k-hat only for leaves scored by PSIS: none here
     assert any("disagree" in w for w in res.warnings) and any("every leaf was refitted" in w for w in res.warnings)
+
+
+def test_a_refit_is_scaled_by_the_full_fits_posterior_means_and_sds(quick_demo):
+    # The scaling (stan/leafcv.stan, scale_offset / scale_mult) of a refit: each free parameter's
+    # posterior mean and SD in the full-data fit (here the fake engine's draws: inits + N(0, 0.01)),
+    # and offset 0, scale 1 for the held-out leaf's standard-normal effects, which no fit informs.
+    from leafcv.design import FREE_BLOCKS, build_design
+    from leafcv.fitting import fit_structure, warm_scaling
+
+    comparison, dataset, _ = quick_demo
+    leaf_fits = fit_leaves(dataset)
+    st = comparison.structure("traits-month-fixed")
+    sampler = SamplerSpec(chains=4, warmup=50, draws=300, seed=3)
+    full = fit_structure(st, dataset, comparison.data, sampler, engine=FakeEngine(), leaf_fits=leaf_fits)
+    train = np.ones(dataset.n_leaves, bool)
+    train[3] = False
+    refit = build_design(st, dataset, comparison.data, train_leaves=train, leaf_fits=leaf_fits)
+    sc = warm_scaling(full, refit)
+    d = refit.stan_data
+    sizes = {"b0_free": len(refit.params), "beta": d["K"], "log_tau": d["R"], "u_c": d["Qc"], "u_v": d["Q"] - d["Qc"],
+             "log_tau_leaf": d["Rl"], "eta_c": d["Mc"], "eta_z": d["Mn"], "log_sigma": d["S"]}
+    at = np.cumsum([0] + [sizes[k] for k in FREE_BLOCKS])
+    assert sc["n_scale"] == at[-1] == len(sc["scale_offset"]) == len(sc["scale_mult"])
+    block = {k: slice(at[i], at[i + 1]) for i, k in enumerate(FREE_BLOCKS)}
+    b0 = full.draws.params["b0"].reshape(-1, len(refit.params))      # no group terms: b0_free = b0
+    np.testing.assert_allclose(sc["scale_offset"][block["b0_free"]], b0.mean(axis=0), atol=2e-3)
+    np.testing.assert_allclose(sc["scale_mult"][block["b0_free"]], b0.std(axis=0), rtol=0.15)
+    sigma = full.draws.params["sigma"].reshape(-1, d["S"])
+    np.testing.assert_allclose(sc["scale_mult"][block["log_sigma"]], np.log(sigma).std(axis=0), rtol=0.15)
+    held = (refit.nc_cells % dataset.n_leaves) == 3
+    assert held.any()
+    z = slice(at[FREE_BLOCKS.index("eta_z")], at[FREE_BLOCKS.index("eta_z") + 1])
+    np.testing.assert_array_equal(sc["scale_offset"][z][held], 0.0)
+    np.testing.assert_array_equal(sc["scale_mult"][z][held], 1.0)
+    assert np.all(sc["scale_mult"][z][~held] != 1.0)

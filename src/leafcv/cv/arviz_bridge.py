@@ -113,3 +113,59 @@ def compare_results(results: dict[str, CVResult]) -> pd.Series:
     weights = table["weight"].astype(float).reindex(list(results)).rename("weight")
     weights.index.name = "structure"
     return weights
+
+
+#: The log_likelihood variable of a saved fit: each leaf's log marginal likelihood per draw.
+LOG_MARGINAL = "leaf_log_marginal"
+
+#: Stan's sampler fields under the names ArviZ's sample_stats uses.
+_SAMPLE_STATS = {"lp__": "lp", "accept_stat__": "acceptance_rate", "stepsize__": "step_size",
+                 "treedepth__": "tree_depth", "n_leapfrog__": "n_steps", "divergent__": "diverging",
+                 "energy__": "energy"}
+
+
+def to_inference_data(fit, dataset, log_m: np.ndarray | None = None) -> az.InferenceData:
+    """One structure's fit as ArviZ InferenceData.
+
+    Parameters
+    ----------
+    fit
+        A :class:`leafcv.fitting.StructureFit`.
+    dataset
+        The data set it was fitted to.
+    log_m
+        Optional (draws chain after chain, leaves): each leaf's log marginal likelihood per draw, its
+        own effects integrated out (:mod:`leafcv.cv.quadrature`). Stored as the ``log_likelihood``
+        variable ``leaf_log_marginal`` (chain, draw, leaf), so that ``arviz.loo`` gives
+        leave-one-leaf-out PSIS.
+
+    Returns
+    -------
+    arviz.InferenceData
+        ``posterior`` (every parameter of the program, on its own scale), ``sample_stats``,
+        ``observed_data`` (net assimilation of the points in the likelihood, dimension ``point``) and,
+        with ``log_m``, ``log_likelihood``. The leaf ids are the ``leaf`` coordinate.
+    """
+    draws = fit.draws
+    C, D = draws.n_chains, draws.n_draws
+    posterior = {k: np.asarray(v) for k, v in draws.params.items() if np.size(v)}
+    stats = {name: np.asarray(draws.sampler[src]) for src, name in _SAMPLE_STATS.items() if src in draws.sampler}
+    if "diverging" in stats:
+        stats["diverging"] = stats["diverging"].astype(bool)
+    obs = dataset.obs.iloc[fit.design.obs_index]
+    leaves = [str(x) for x in dataset.leaves["leaf"]]
+    point_leaf = [leaves[i] for i in obs["leaf_index"].to_numpy()]
+    observed = xr.Dataset({"net_assimilation": ("point", obs["a_net"].to_numpy(float))},
+                          coords={"point": np.arange(len(obs)), "point_leaf": ("point", point_leaf)})
+    groups = {"posterior": posterior, "sample_stats": stats}
+    idata = az.from_dict(**groups, attrs={"structure": fit.design.structure.name, "engine": draws.engine,
+                                          "seed": int(draws.seed)})
+    idata.add_groups({"observed_data": observed})
+    if log_m is not None:
+        lm = np.asarray(log_m, float)
+        if lm.shape != (C * D, len(leaves)):
+            raise ValueError(f"log_m has shape {lm.shape}; expected ({C * D}, {len(leaves)})")
+        idata.add_groups({"log_likelihood": xr.Dataset(
+            {LOG_MARGINAL: (("chain", "draw", LEAF_DIM), lm.reshape(C, D, len(leaves)))},
+            coords={"chain": np.arange(C), "draw": np.arange(D), LEAF_DIM: leaves})})
+    return idata

@@ -238,11 +238,12 @@ def fit_with_retries(structure, dataset, comparison, sampler, leaf_fits, train, 
     for attempt in range(MAX_ATTEMPTS):
         s = seed + attempt * RETRY_SEED_OFFSET
         t = time.perf_counter()
-        warm = warm_start if attempt == 0 else None
+        warm = warm_start if attempt == 0 else None     # a retry starts cold, but keeps the scaling
         if attempt == 1 and warm_start is not None:
             smp = replace(smp, warmup=max(smp.warmup, sampler.warmup), draws=max(smp.draws, sampler.draws))
         fit = fit_structure(st, dataset, comparison.data, smp, engine=engine, train_leaves=train,
-                            leaf_fits=leaf_fits, seed=s, warm_start=warm, **kwargs)
+                            leaf_fits=leaf_fits, seed=s, warm_start=warm_start, warm_inits_too=warm is not None,
+                            **kwargs)
         secs = time.perf_counter() - t
         dg = fit.diagnostics
         entry = {"role": role, "attempt": attempt + 1, "seed": s, "retry_cause": cause,
@@ -259,6 +260,22 @@ def fit_with_retries(structure, dataset, comparison, sampler, leaf_fits, train, 
         cause = f"attempt {attempt + 1} {dg.grade} ({'; '.join(dg.problems)}); {cause}"
     best_entry["kept"] = True
     return best
+
+
+def estimates_fit(structure: Structure, dataset: Dataset, comparison: Comparison, *, leaf_fits: LeafFits,
+                  engine=None, sampler: SamplerSpec | None = None, details: CVDetails | None = None) -> dict:
+    """The full-data fit of a structure whose scores came from refits only (exact, K-fold): the posterior a
+    user reads estimates from. Recorded in ``details.fits`` as not contributing to the score. Returns
+    {"fit", "log_m"} as `cross_validate`'s ``keep``."""
+    sampler = sampler or comparison.sampler
+    details = details if details is not None else CVDetails()
+    n0 = len(details.fits)
+    fit = fit_with_retries(structure, dataset, comparison, sampler, leaf_fits, None, sampler.seed, engine, details,
+                           "full data (estimates only)")
+    for f in details.fits[n0:]:
+        f["contributes"] = False
+    sc = score_leaves(fit, dataset, np.arange(dataset.n_leaves), leaf_fits, in_fit=True)
+    return {"fit": fit, "log_m": sc.log_m}
 
 
 # ----------------------------------------------------------------------------------------------
@@ -338,9 +355,12 @@ def _note_quadrature(details: CVDetails, leaf_ids, leaves, quads) -> None:
 
 def cross_validate(structure: Structure, dataset: Dataset, comparison: Comparison, *, method: str = "auto",
                    by: str = "leaf", folds: int = 10, spot_checks: int = 3, engine=None,
-                   leaf_fits: LeafFits, sampler: SamplerSpec | None = None, options=None, priors=None
-                   ) -> tuple[CVResult, CVDetails]:
-    """Held-out scores of one structure by ``method`` (auto | exact | kfold)."""
+                   leaf_fits: LeafFits, sampler: SamplerSpec | None = None, options=None, priors=None,
+                   keep: dict | None = None) -> tuple[CVResult, CVDetails]:
+    """Held-out scores of one structure by ``method`` (auto | exact | kfold).
+
+    ``keep``: a dict that receives, when the method makes one, the full-data fit (``"fit"``) and each
+    leaf's log marginal likelihood per draw of it (``"log_m"``, draws chain after chain by leaves)."""
     sampler = sampler or comparison.sampler
     details = CVDetails()
     L = dataset.n_leaves
@@ -362,6 +382,8 @@ def cross_validate(structure: Structure, dataset: Dataset, comparison: Compariso
         n_draws = fit.draws.n_chains * fit.draws.n_draws
         t = time.perf_counter()
         sc = score_leaves(fit, dataset, np.arange(L), leaf_fits, in_fit=True)
+        if keep is not None:
+            keep.update(fit=fit, log_m=sc.log_m)
         est = integrated_loo(sc.log_m, sc.chains)
         _note_quadrature(details, leaf_ids, range(L), sc.quad)
         acc.elpd[:], acc.mcse[:], acc.khat[:] = est.elpd, est.mcse, est.khat

@@ -21,6 +21,14 @@ class Dataset:
     leaves
         One row per leaf in order of first appearance (row i has leaf_index i): ``leaf`` and every
         group column (str) and trait column (float), under the user's column names.
+    notes
+        How the file was read: every default, conversion and inference used (for the summary).
+    warnings
+        Things in the data worth a look that do not stop a comparison (a trait constant across
+        leaves or with outlying leaves, oxygen that may be in percent); each names the column,
+        the leaves or values and what to check.
+    delimiter, decimal_mark
+        The field delimiter found in the file (',', ';' or a tab) and its decimal mark ('.' or ',').
     """
 
     obs: pd.DataFrame
@@ -29,6 +37,9 @@ class Dataset:
     traits: tuple[str, ...]
     source: Path
     notes: tuple[str, ...] = ()
+    warnings: tuple[str, ...] = ()
+    delimiter: str = ","
+    decimal_mark: str = "."
 
     @property
     def n_leaves(self) -> int:

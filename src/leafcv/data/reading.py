@@ -6,9 +6,10 @@ All problems found are collected and raised together as one :class:`~leafcv.erro
 from __future__ import annotations
 
 import difflib
+import io
 import re
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -17,57 +18,46 @@ import pandas as pd
 from ..errors import DataError
 from ..spec import OPTIONAL_COLUMNS, REQUIRED_COLUMNS, DataSpec
 from .dataset import Dataset
+from .delimiters import DECIMAL_COMMA, decimal_mark, describe, detect_delimiter
+from .messages import MAX_LISTED
+from .messages import label as _label
+from .messages import rows as _rows
+from .messages import rows_values as _rows_values
+from .messages import show as _show
 from .roles import CI_UNITS_KEY, ROLE_OF
+from .traits import trait_warnings
+from .units import CI_UNITS, PRESSURE_RANGE_KPA, column_problems, convert_ci, plausible_pressure
 
-#: Units accepted for intercellular CO2 under ``[data.units] intercellular_co2``.
-CI_UNITS: tuple[str, ...] = ("umol/mol", "Pa")
 #: Leaf temperature (deg C) used when no column is mapped: the reference temperature to which FvCB
 #: parameters are normalised (Bernacchi et al. 2001, Plant Cell Environ 24:253-259).
 DEFAULT_T_LEAF = 25.0
 #: O2 (mmol mol-1) used when no column is mapped: 21 kPa in air (REFERENCES.md, common practice).
 DEFAULT_O2 = 210.0
 
-# Plausibility limits. All are common practice, no source, unless stated.
-CI_RANGE = (0.0, 3000.0)           # umol mol-1; A-Ci curves rarely go past about 2000
-PPFD_RANGE = (0.0, 3000.0)         # umol m-2 s-1; full sunlight is about 2000-2300 (from memory)
-A_NET_RANGE = (-50.0, 100.0)       # umol m-2 s-1; C3 leaves rarely exceed 40 (REFERENCES.md magnitudes)
-T_LEAF_RANGE = (0.0, 50.0)         # deg C
-O2_RANGE = (0.0, 1000.0)           # mmol mol-1; the physical bounds of a mole fraction
-PRESSURE_RANGE_KPA = (30.0, 110.0)  # about 101.3 at sea level, about 34 on the highest summits (from memory)
-PA_LIKE_MEDIAN = 100.0             # umol mol-1: a lower median Ci suggests Pa (ambient 40 Pa ~ 400 umol mol-1)
-UMOL_LIKE_MEDIAN_PA = 200.0        # Pa: a higher median Ci declared in Pa suggests umol mol-1
-KELVIN_LIKE_MEDIAN = 250.0         # a median leaf temperature above this suggests kelvin
+# Plausibility limits (ranges and unit mistakes: leafcv.data.units). Common practice, no source.
 MIN_POINTS_PER_LEAF = 5
 PPFD_LEVEL_TOLERANCE = 0.02        # relative: PPFD values this close form one light level
 PPFD_LEVEL_FLOOR = 1.0             # umol m-2 s-1: absolute tolerance near darkness
 MIN_ACI_POINTS = 4                 # points at one light level that make an A-Ci curve
 CONSTANT_CV = 0.02                 # a curve with both CVs below this does not vary
 CV_MEAN_FLOOR = 1.0                # floor on |mean| in the CV, so dark (PPFD 0) curves stay finite
-MAX_LISTED = 8                     # rows (or leaves) listed in one message before "and N more"
 #: Cell texts read as a missing number (compared in lower case).
 MISSING_TOKENS = frozenset({"", "na", "nan", "n/a", "null", "none"})
 
 _NUMERIC_VARIABLES = ("a_net", "ci", "ppfd", "t_leaf", "o2")
 _TEXT_VARIABLES = ("leaf", "curve")
-_RANGES = {"a_net": A_NET_RANGE, "ci": CI_RANGE, "ppfd": PPFD_RANGE, "t_leaf": T_LEAF_RANGE, "o2": O2_RANGE}
-_UNITS = {"a_net": "umol m-2 s-1", "ci": "umol/mol", "ppfd": "umol m-2 s-1", "t_leaf": "deg C",
-          "o2": "mmol/mol"}
-_RANGE_ADVICE = {
-    "a_net": "net assimilation is expected in umol m-2 s-1; check the column and remove logging errors",
-    "ci": f"intercellular CO2 is expected in umol/mol; check the column and [data.units] {CI_UNITS_KEY}",
-    "ppfd": "photon flux is the incident light in umol m-2 s-1; check the column",
-    "t_leaf": "leaf temperature is expected in deg C",
-    "o2": "oxygen is expected in mmol/mol (210 in air)",
-}
 
 
 @dataclass(frozen=True)
 class _Table:
-    """The file as stripped text: header names, cells by position, and each record's line number."""
+    """The file as stripped text: header names, cells by position, each record's line number, the
+    field delimiter and the decimal mark of its numbers."""
 
     header: list[str]
     cells: pd.DataFrame
     rows: np.ndarray
+    delimiter: str = ","
+    decimal: str = "."
 
     def has(self, name: str) -> bool:
         return name in self.header
@@ -91,19 +81,26 @@ def load_dataset(spec: DataSpec) -> Dataset:
     -------
     Dataset
         Observations in leafcv's variables and units (Ci in umol/mol) and the leaf table, with
-        notes on every default and inference used.
+        notes on every default and inference used, warnings that do not stop a comparison (traits
+        constant across leaves or with outlying leaves, oxygen that may be in percent: see
+        `leafcv.data.traits` and `leafcv.data.units`), and the file's delimiter and decimal mark.
 
     Raises
     ------
     DataError
-        With every problem found in one pass: missing or unreadable file, unknown or missing
-        columns, cells that are not numbers, missing values, implausible values, leaf-level columns
-        that vary within a leaf, leaves with too few points, duplicated rows, curves that do not vary.
+        With every problem found in one pass: missing or unreadable file (including one whose fields
+        are not separated by comma, semicolon or tab), unknown or missing columns, cells that are not
+        numbers, missing values, implausible values or likely unit mistakes, leaf-level columns that
+        vary within a leaf, leaves with too few points, duplicated rows, curves that do not vary.
 
     Notes
     -----
     Rows are cited by their line in the file (the header is line 1); blank lines are skipped but
     keep their place in the count.
+
+    Delimiter and decimal mark. Fields may be separated by commas, semicolons or tabs, found by the
+    rule in `leafcv.data.delimiters`; a file that is not comma-separated may write its numbers with
+    a decimal comma (``12,5``), but then every number must use it.
 
     Curves. With a ``curve`` column, a curve is one (leaf, curve id) pair. Without one, each leaf's
     points are split by light level: PPFD values that agree within 2 % (or 1 umol m-2 s-1 near
@@ -129,6 +126,9 @@ def load_dataset(spec: DataSpec) -> Dataset:
         raise DataError(str(spec.file), problems)
     problems += _check_header(table, spec)
     present = {var: name for var, name in _valid_mapping(spec).items() if table.has(name)}
+    table = _with_decimal_mark(table, [present[v] for v in _NUMERIC_VARIABLES if v in present]
+                               + [t for t in spec.traits if table.has(t)])
+    notes = _file_notes(table) + notes
     numbers, texts, found = _parse_cells(table, present, _NUMERIC_VARIABLES, _TEXT_VARIABLES)
     problems += found
     trait_values, _, found = _parse_cells(table, {t: t for t in spec.traits if table.has(t)}, spec.traits, (),
@@ -138,23 +138,13 @@ def load_dataset(spec: DataSpec) -> Dataset:
                                          "group")
     problems += found
 
-    if "ci" in numbers:
-        numbers["ci"], found, note = _convert_ci(numbers["ci"], table.rows, present["ci"], spec)
-        problems += found
-        notes += note
-    for var in ("a_net", "ppfd", "t_leaf", "o2"):
-        if var in numbers:
-            problems += _range_problems(numbers[var], table.rows, present[var], var)
-    if "t_leaf" in numbers:
-        problems += _kelvin_hint(numbers["t_leaf"], present["t_leaf"])
+    found, note, warnings = _units_and_ranges(numbers, table.rows, present, spec)
+    problems += found
+    notes += note
 
     n = len(table.rows)
     leaf = texts.get("leaf", np.full(n, "", dtype=object))
-    problems += _leaf_size_problems(leaf, table.rows, present.get("leaf", ""))
-    for role, columns in (("trait", trait_values), ("group", group_values)):
-        for name, values in columns.items():
-            problems += _constancy_problems(leaf, values, table.rows, name, role)
-    problems += _duplicate_problems(table)
+    problems += _leaf_problems(table, leaf, present.get("leaf", ""), trait_values, group_values)
 
     curve, curve_type, found, note = _curves(leaf, texts.get("curve"), numbers.get("ci"),
                                              numbers.get("ppfd"), table.rows, present.get("curve"))
@@ -169,6 +159,7 @@ def load_dataset(spec: DataSpec) -> Dataset:
             notes.append(f"no {ROLE_OF[var]} column mapped: {ROLE_OF[var]} set to {default:g} {unit} "
                          f"for every point")
     leaves, leaf_index = _leaf_table(leaf, group_values, trait_values)
+    warnings += trait_warnings(leaves, spec.traits)
     obs = pd.DataFrame({
         "leaf": pd.Series(leaf, dtype=str), "leaf_index": leaf_index,
         "curve": pd.Series(curve, dtype=str), "curve_type": pd.Series(curve_type, dtype=str),
@@ -176,32 +167,8 @@ def load_dataset(spec: DataSpec) -> Dataset:
         "t_leaf": numbers["t_leaf"], "o2": numbers["o2"], "row": table.rows.astype(np.int64),
     })
     return Dataset(obs=obs, leaves=leaves, groups=tuple(spec.groups), traits=tuple(spec.traits),
-                   source=Path(spec.file), notes=tuple(notes))
-
-
-# ---------------------------------------------------------------- message pieces
-
-def _rows(rows: Sequence[int], limit: int = MAX_LISTED) -> str:
-    """'row 5' or 'rows 5, 6, 7 and 12 more'."""
-    rows = [int(r) for r in rows]
-    shown = ", ".join(str(r) for r in rows[:limit])
-    more = f" and {len(rows) - limit} more" if len(rows) > limit else ""
-    return f"{'row' if len(rows) == 1 else 'rows'} {shown}{more}"
-
-
-def _rows_values(rows: Sequence[int], values: Sequence[object]) -> str:
-    """'rows 5 ('abc'), 9 ('1,2') and 3 more'."""
-    pairs = [f"{int(r)} ({_show(v)})" for r, v in zip(rows[:MAX_LISTED], values[:MAX_LISTED])]
-    more = f" and {len(rows) - MAX_LISTED} more" if len(rows) > MAX_LISTED else ""
-    return f"{'row' if len(rows) == 1 else 'rows'} {', '.join(pairs)}{more}"
-
-
-def _show(value: object) -> str:
-    return f"{value:g}" if isinstance(value, float) else repr(value)
-
-
-def _label(name: str, role: str) -> str:
-    return f"column {name!r} ({role})"
+                   source=Path(spec.file), notes=tuple(notes), warnings=tuple(warnings),
+                   delimiter=table.delimiter, decimal_mark=table.decimal)
 
 
 # ---------------------------------------------------------------- the specification
@@ -265,17 +232,13 @@ def _check_units(spec: DataSpec) -> tuple[list[str], list[str]]:
     elif unit == "Pa" and pressure is None:
         problems.append(f"[data.units] {CI_UNITS_KEY} = \"Pa\" needs pressure_kpa, the air pressure in kPa at "
                         "which intercellular CO2 was measured (about 101.3 at sea level), to convert it to umol/mol")
-    if pressure is not None and unit == "Pa" and not _plausible_pressure(pressure):
+    if pressure is not None and unit == "Pa" and not plausible_pressure(pressure):
         problems.append(f"[data.units] pressure_kpa = {pressure!r} is not a pressure between "
                         f"{PRESSURE_RANGE_KPA[0]:g} and {PRESSURE_RANGE_KPA[1]:g} kPa; give the air pressure "
                         f"in kPa (about 101.3 at sea level)")
     elif pressure is not None and unit == "umol/mol":
         notes.append(f"pressure_kpa is not used: {CI_UNITS_KEY} is declared in umol/mol")
     return problems, notes
-
-
-def _plausible_pressure(pressure: object) -> bool:
-    return isinstance(pressure, (int, float)) and PRESSURE_RANGE_KPA[0] <= pressure <= PRESSURE_RANGE_KPA[1]
 
 
 # ---------------------------------------------------------------- the file
@@ -288,15 +251,24 @@ def _read_table(path: Path) -> tuple[_Table | None, list[str]]:
     if not path.is_file():
         return None, [f"the observation file {str(path)!r} is not a file; point [data] file at the CSV"]
     try:
-        grid = pd.read_csv(path, header=None, dtype=str, keep_default_na=False, skip_blank_lines=False,
-                           encoding="utf-8-sig")
-    except pd.errors.EmptyDataError:
-        return None, ["the observation file is empty; it needs a header line and one line per point"]
-    except pd.errors.ParserError as exc:
-        return None, [_parser_problem(exc)]
+        text = path.read_text(encoding="utf-8-sig")
     except UnicodeDecodeError as exc:
         return None, [f"the observation file is not UTF-8 text (byte {exc.start}); save it as UTF-8 CSV"]
-    grid = grid.fillna("")
+    if not text.strip():
+        return None, ["the observation file is empty; it needs a header line and one line per point"]
+    delimiter, problem = detect_delimiter(text)
+    if delimiter is None:
+        return None, [problem]
+    try:
+        grid = pd.read_csv(io.StringIO(text), sep=delimiter, header=None, dtype=str, keep_default_na=False,
+                           skip_blank_lines=False)
+    except pd.errors.ParserError as exc:
+        return None, [_parser_problem(exc, delimiter)]
+    return _table(grid.fillna(""), delimiter)
+
+
+def _table(grid: pd.DataFrame, delimiter: str) -> tuple[_Table | None, list[str]]:
+    """Stripped cells with the file line of each record (quoted line breaks and blank lines counted)."""
     breaks = np.array([grid[c].str.count("\n").to_numpy() for c in grid.columns]).sum(axis=0)
     starts = 1 + np.arange(len(grid)) + np.concatenate([[0], np.cumsum(breaks)[:-1]])
     grid = grid.apply(lambda column: column.str.strip())
@@ -306,16 +278,31 @@ def _read_table(path: Path) -> tuple[_Table | None, list[str]]:
     cells = body[filled].reset_index(drop=True)
     if cells.empty:
         return None, ["the observation file has a header line but no data rows; add one line per point"]
-    return _Table(header=header, cells=cells, rows=starts[1:][filled]), []
+    return _Table(header=header, cells=cells, rows=starts[1:][filled], delimiter=delimiter), []
 
 
-def _parser_problem(exc: Exception) -> str:
+def _parser_problem(exc: Exception, delimiter: str) -> str:
     match = re.search(r"Expected (\d+) fields in line (\d+), saw (\d+)", str(exc))
+    stray = "an unquoted comma (a decimal comma?)" if delimiter == "," else f"a stray {describe(delimiter)}"
     if match:
         expected, line, seen = match.groups()
-        return (f"line {line} of the observation file has {seen} fields but the header has {expected}; "
-                f"check for an unquoted comma (a decimal comma?) or a missing header name")
-    return f"the observation file is not readable as CSV ({exc}); save it as comma-separated text"
+        return (f"line {line} of the observation file has {seen} fields but the header has {expected} "
+                f"(fields separated by {describe(delimiter)}); check for {stray} or a missing header name")
+    return (f"the observation file is not readable as delimited text with {describe(delimiter)} between fields "
+            f"({exc}); save it as CSV")
+
+
+def _with_decimal_mark(table: _Table, numeric: list[str]) -> _Table:
+    """The table with the decimal mark its numeric columns (the user's names) use."""
+    cells = [c for name in numeric for c in table.text(name)]
+    return replace(table, decimal=decimal_mark(table.delimiter, cells))
+
+
+def _file_notes(table: _Table) -> list[str]:
+    if table.delimiter == "," and table.decimal == ".":
+        return []
+    return [f"the observation file's fields are separated by {describe(table.delimiter)} and its numbers "
+            f"use {table.decimal!r} as the decimal mark"]
 
 
 def _check_header(table: _Table, spec: DataSpec) -> list[str]:
@@ -339,11 +326,8 @@ def _missing_column(name: str, role: str, section: str, header: list[str]) -> st
     close = [lowered[m] for m in difflib.get_close_matches(name.lower(), list(lowered), n=3, cutoff=0.6)]
     hint = f"; did you mean {' or '.join(map(repr, close))}?" if close else ""
     listed = ", ".join(map(repr, header[:30])) + (f" and {len(header) - 30} more" if len(header) > 30 else "")
-    separator = ""
-    if len(header) == 1 and any(s in header[0] for s in ";\t|"):
-        separator = " The file seems not to be comma-separated; save it as CSV with ',' between fields."
     return (f"{_label(name, role)} is not in the file{hint}; the file has columns: {listed}. "
-            f"Correct the name under {section}.{separator}")
+            f"Correct the name under {section}.")
 
 
 # ---------------------------------------------------------------- cells
@@ -372,13 +356,23 @@ def _numeric_column(table: _Table, name: str, role: str) -> tuple[np.ndarray, li
     """Values (NaN where missing or not a finite number) and the problems found."""
     text = table.text(name)
     missing = text.str.lower().isin(MISSING_TOKENS).to_numpy()
-    values = pd.to_numeric(text.where(~missing), errors="coerce").to_numpy(dtype=float, copy=True)
-    bad = ~missing & ~np.isfinite(values)
-    values[~np.isfinite(values)] = np.nan
+    readable = text.where(~missing)
+    mixed = np.zeros(len(text), dtype=bool)
+    if table.decimal == ",":
+        mixed = ~missing & text.str.contains(".", regex=False).to_numpy()
+        readable = readable.str.replace(",", ".", regex=False)
+    values = pd.to_numeric(readable, errors="coerce").to_numpy(dtype=float, copy=True)
+    values[mixed | ~np.isfinite(values)] = np.nan
+    bad = ~missing & ~mixed & ~np.isfinite(values)
     problems = []
+    if mixed.any():
+        problems.append(f"{_label(name, role)} has '.' in {_rows_values(table.rows[mixed], list(text[mixed]))}, "
+                        f"but the file's numbers use ',' as the decimal mark; use one decimal mark throughout "
+                        f"(remove a '.' that separates thousands)")
     if bad.any():
         shown = list(text[bad])
-        decimal = " with '.' as the decimal mark" if any(re.fullmatch(r"[-+]?\d*,\d+", v) for v in shown) else ""
+        comma = table.decimal == "." and any(DECIMAL_COMMA.fullmatch(v) for v in shown)
+        decimal = " with '.' as the decimal mark" if comma else ""
         problems.append(f"{_label(name, role)} has values that are not finite numbers in "
                         f"{_rows_values(table.rows[bad], shown)}; write plain numbers{decimal}")
     if missing.any():
@@ -412,56 +406,32 @@ def _missing_advice(role: str) -> str:
 
 # ---------------------------------------------------------------- units and ranges
 
-def _convert_ci(ci: np.ndarray, rows: np.ndarray, name: str,
-                spec: DataSpec) -> tuple[np.ndarray, list[str], list[str]]:
-    """Ci in umol/mol, with unit hints and range problems; unconvertible units skip the checks."""
-    label = _label(name, ROLE_OF["ci"])
-    finite = ci[np.isfinite(ci)]
-    median = float(np.median(finite)) if finite.size else np.nan
-    if spec.ci_unit == "umol/mol":
-        problems = []
-        if median < PA_LIKE_MEDIAN:
-            problems.append(f"{label} has a median of {median:.3g}, low for umol/mol (air gives a few hundred); "
-                            f"this looks like Pa; set {CI_UNITS_KEY} = \"Pa\" and pressure_kpa (the air "
-                            f"pressure in kPa) under [data.units]")
-        return ci, problems + _range_problems(ci, rows, name, "ci"), []
-    if spec.ci_unit != "Pa":
-        return ci, [], []
-    problems = []
-    if median > UMOL_LIKE_MEDIAN_PA:
-        problems.append(f"{label} has a median of {median:.3g}, high for Pa (air gives about 40); this looks "
-                        f"like umol/mol; set {CI_UNITS_KEY} = \"umol/mol\" under [data.units]")
-    pressure = spec.pressure_kpa
-    if not _plausible_pressure(pressure):
-        return ci, problems, []     # the pressure problem is reported with the units
-    # Dalton's law: mole fraction = partial pressure / total pressure; Pa / (kPa * 1000) * 1e6 umol/mol.
-    converted = ci * 1000.0 / pressure
-    note = [f"Ci converted from Pa to umol/mol at {pressure:g} kPa (Ci x 1000 / {pressure:g})"]
-    unit = f"umol/mol, i.e. {CI_RANGE[0]:g}-{CI_RANGE[1] * pressure / 1000:g} Pa at {pressure:g} kPa"
-    return converted, problems + _range_problems(converted, rows, name, "ci", unit, shown=ci), note
-
-
-def _range_problems(values: np.ndarray, rows: np.ndarray, name: str, var: str,
-                    unit: str | None = None, shown: np.ndarray | None = None) -> list[str]:
-    low, high = _RANGES[var]
-    outside = np.isfinite(values) & ((values < low) | (values > high))
-    if not outside.any():
-        return []
-    shown = values if shown is None else shown
-    return [f"{_label(name, ROLE_OF[var])} has {int(outside.sum())} value(s) outside the plausible range {low:g} to "
-            f"{high:g} {unit or _UNITS[var]} in {_rows_values(rows[outside], list(shown[outside]))}; "
-            f"{_RANGE_ADVICE[var]}"]
-
-
-def _kelvin_hint(t_leaf: np.ndarray, name: str) -> list[str]:
-    finite = t_leaf[np.isfinite(t_leaf)]
-    if finite.size and np.median(finite) > KELVIN_LIKE_MEDIAN:
-        return [f"{_label(name, ROLE_OF['t_leaf'])} looks like kelvin (median {np.median(finite):.4g}); "
-                f"convert it to deg C (subtract 273.15)"]
-    return []
+def _units_and_ranges(numbers: dict[str, np.ndarray], rows: np.ndarray, present: dict[str, str],
+                      spec: DataSpec) -> tuple[list[str], list[str], list[str]]:
+    """Problems, notes and warnings on the numeric columns' units and ranges; Ci is converted in ``numbers``."""
+    problems, notes, warnings = [], [], []
+    if "ci" in numbers:
+        numbers["ci"], found, notes = convert_ci(numbers["ci"], rows, present["ci"], spec)
+        problems += found
+    for var in ("a_net", "ppfd", "t_leaf", "o2"):
+        if var in numbers:
+            found, warned = column_problems(numbers[var], rows, present[var], var)
+            problems += found
+            warnings += warned
+    return problems, notes, warnings
 
 
 # ---------------------------------------------------------------- leaves
+
+def _leaf_problems(table: _Table, leaf: np.ndarray, leaf_name: str, traits: dict[str, np.ndarray],
+                   groups: dict[str, np.ndarray]) -> list[str]:
+    """Leaves with too few points, leaf-level columns that vary within a leaf, and repeated rows."""
+    problems = _leaf_size_problems(leaf, table.rows, leaf_name)
+    for role, columns in (("trait", traits), ("group", groups)):
+        for name, values in columns.items():
+            problems += _constancy_problems(leaf, values, table.rows, name, role)
+    return problems + _duplicate_problems(table)
+
 
 def _leaf_size_problems(leaf: np.ndarray, rows: np.ndarray, name: str) -> list[str]:
     problems = []

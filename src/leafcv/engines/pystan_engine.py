@@ -8,6 +8,8 @@ the disk.
 from __future__ import annotations
 
 import asyncio
+import concurrent.futures
+import logging
 import contextlib
 import io
 import json
@@ -43,7 +45,7 @@ class PyStanEngine:
     name = "pystan"
 
     def __init__(self, log: Callable[[str], None] | None = None):
-        self.log = log or (lambda text: sys.stderr.write(text + "\n"))
+        self.log = log or logging.getLogger("leafcv").info
         self.compiler_messages: dict[str, str] = {}
 
     def is_compiled(self, program: str) -> bool:
@@ -62,7 +64,7 @@ class PyStanEngine:
         out, err = io.StringIO(), io.StringIO()
         try:
             with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
-                model = stan.build(program, data=_jsonable(data or {}), random_seed=seed)
+                model = outside_event_loop(stan.build, program, data=_jsonable(data or {}), random_seed=seed)
         except Exception as exc:  # httpstan reports compile and data errors as plain exceptions
             raise EngineError(f"PyStan could not build the model: {exc}", out.getvalue() + err.getvalue() + str(exc)) from exc
         self.compiler_messages[model.model_name] = out.getvalue() + err.getvalue()
@@ -96,13 +98,25 @@ class PyStanEngine:
             })
         start = time.perf_counter()
         try:
-            outputs = asyncio.run(_run_chains(model.model_name, payloads, progress))
+            outputs = outside_event_loop(asyncio.run, _run_chains(model.model_name, payloads, progress))
         except EngineError:
             raise
         except Exception as exc:
             raise EngineError(f"PyStan sampling failed: {exc}", repr(exc)) from exc
         seconds = time.perf_counter() - start
         return _to_draws(model, outputs, settings, seed, seconds)
+
+
+def outside_event_loop(func: Callable[..., Any], *args: Any, **kwargs: Any) -> Any:
+    """``func(*args, **kwargs)``, in a worker thread when this thread runs an event loop (Jupyter, an
+    async application): PyStan and leafcv's chain client call ``asyncio.run``, which refuses to start
+    inside a running loop."""
+    try:
+        asyncio.get_running_loop()
+    except RuntimeError:
+        return func(*args, **kwargs)
+    with concurrent.futures.ThreadPoolExecutor(max_workers=1, thread_name_prefix="leafcv-stan") as pool:
+        return pool.submit(func, *args, **kwargs).result()
 
 
 async def _run_chains(
