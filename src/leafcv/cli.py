@@ -14,6 +14,7 @@ import traceback
 from pathlib import Path
 
 from .errors import EngineError, UserInputError
+from .spec import CV_METHODS
 
 EXIT_OK, EXIT_USER, EXIT_USAGE, EXIT_ENGINE = 0, 1, 2, 3
 
@@ -23,7 +24,7 @@ def _parser() -> argparse.ArgumentParser:
     sub = p.add_subparsers(dest="command", required=True)
     d = sub.add_parser("demo", help="write the invented demo scenario into DIR and run the main job on it")
     d.add_argument("dir", type=Path)
-    d.add_argument("--quick", action="store_true", help="a small version (fewer leaves, shorter chains)")
+    d.add_argument("--quick", action="store_true", help="a small version: 16 leaves, the three structures of the season and trait question")
     d.add_argument("--no-run", action="store_true", help="only write the files")
     d.add_argument("--force", action="store_true", help="write into a non-empty DIR")
     c = sub.add_parser("check", help="validate data and structures, print a summary")
@@ -35,7 +36,7 @@ def _parser() -> argparse.ArgumentParser:
     m = sub.add_parser("compare", help="fit every structure and rank them (the main job)")
     m.add_argument("file", type=Path)
     m.add_argument("--out", type=Path)
-    m.add_argument("--method", choices=("auto", "exact", "kfold"))
+    m.add_argument("--method", choices=CV_METHODS)
     m.add_argument("--workers", type=int)
     m.add_argument("--scheduler")
     r = sub.add_parser("report", help="rewrite the ranking of a run folder from its results")

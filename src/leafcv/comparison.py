@@ -34,6 +34,7 @@ from .data.roles import (
 from .errors import SpecError
 from .spec import (
     CENTRING_CHOICES,
+    CV_METHODS,
     ELECTRON_CHOICES,
     LIKELIHOOD_CHOICES,
     LINKS,
@@ -79,7 +80,6 @@ CI_UNITS: tuple[str, ...] = ("umol/mol", "Pa")
 LEAF_KEYS: tuple[str, ...] = ("groups", "traits", "centre", "scale")
 SAMPLER_KEYS: tuple[str, ...] = ("chains", "warmup", "draws", "seed", "adapt_delta", "max_treedepth")
 CV_KEYS: tuple[str, ...] = ("by", "method", "folds")
-CV_METHODS: tuple[str, ...] = ("auto", "exact", "kfold")
 PARAM_KEYS: tuple[str, ...] = ("fixed", "random", "ratio_to", "centring", "slopes", "split")
 #: The term naming the leaf id in ``random`` (and the default ``cv.by``).
 LEAF_TERM = "leaf"

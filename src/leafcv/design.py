@@ -253,7 +253,7 @@ def build_design(
         sigma_names = ("all points",)
     rset = fvcb.RUBISCO_SETS[fvcb.DEFAULT_RUBISCO_SET]
     resp = responses(options)
-    e1, e2 = (4.0, 8.0) if options.electron == "4-8" else (4.5, 10.5)
+    e1, e2 = fvcb.electron_coefficients(options.electron)
     data = {
         "N": len(fit_obs), "L": L, "leaf": fit_obs["leaf_index"].to_numpy() + 1,
         "ci": fit_obs["ci"].to_numpy(float), "q": fit_obs["ppfd"].to_numpy(float),

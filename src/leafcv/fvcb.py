@@ -369,7 +369,8 @@ def rubisco_limited(
     return np.asarray(vcmax, dtype=float) * (ci - gamma_star) / (ci + michaelis_km(kc, ko, o2))
 
 
-def _electron_coefficients(electron: str) -> tuple[float, float]:
+def electron_coefficients(electron: str) -> tuple[float, float]:
+    """(e1, e2) of Wj = J (Ci - G*) / (e1 Ci + e2 G*) for an ELECTRON_CHOICES name."""
     try:
         return _ELECTRON_COEFFICIENTS[electron]
     except (KeyError, TypeError):
@@ -400,7 +401,7 @@ def electron_limited(j: ArrayLike, ci: ArrayLike, gamma_star: ArrayLike, electro
     ValueError
         For an unknown ``electron`` option.
     """
-    a, b = _electron_coefficients(electron)
+    a, b = electron_coefficients(electron)
     ci = np.asarray(ci, dtype=float)
     return np.asarray(j, dtype=float) * (ci - gamma_star) / (a * ci + b * np.asarray(gamma_star, dtype=float))
 
@@ -480,7 +481,7 @@ def crossover_ci(
     ndarray
         Crossover Ci, umol mol-1.
     """
-    a, b = _electron_coefficients(electron)
+    a, b = electron_coefficients(electron)
     vcmax = np.asarray(vcmax, dtype=float)
     j = np.asarray(j, dtype=float)
     num = j * np.asarray(km, dtype=float) - b * vcmax * np.asarray(gamma_star, dtype=float)
@@ -593,7 +594,7 @@ def limiting_rates(
         For an unknown ``electron`` or ``transition`` option.
     """
     _check_transition(transition)
-    _electron_coefficients(electron)
+    electron_coefficients(electron)
     kc, ko, gamma_star = rubisco_constants(t_leaf_c, rset)
     km = michaelis_km(kc, ko, o2)
     vcmax = np.asarray(vcmax25, dtype=float) * temperature_factor(t_leaf_c, vcmax_response)

@@ -51,8 +51,12 @@ class CVSpec:
     folds: int = 10
 
 
+#: Cross-validation methods (see DESIGN.md): integrated PSIS checked by refits, exact refits, K-fold.
+CV_METHODS: tuple[str, ...] = ("auto", "exact", "kfold")
+
+
 #: Choices of the [model] options (see ModelOptions).
-ELECTRON_CHOICES: tuple[str, ...] = ("4-8", "4.5-10.5")
+from .fvcb import ELECTRON_CHOICES  # noqa: E402  (the model's own list)
 TRANSITION_CHOICES: tuple[str, ...] = ("min", "smooth")
 LIKELIHOOD_CHOICES: tuple[str, ...] = ("normal", "student_t")
 SIGMA_CHOICES: tuple[str, ...] = ("shared", "by_curve")

@@ -12,7 +12,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-METHODS = ("auto", "exact", "kfold")
+from ..spec import CV_METHODS as METHODS
 ENTRY_METHODS = ("psis", "refit", "exact", "kfold")
 GRADES = ("converged", "marginal", "failed")
 # how the entries of a result of each method may be scored; the first is the default
