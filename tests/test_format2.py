@@ -321,3 +321,18 @@ def test_design_errors_are_reported_for_every_structure(demo_dir):
                     groups=("taxon", "site"), traits=("n_area", "chl_ug", "sla_m2kg", "n_twice"))
     assert "structure 'a', vcmax25.slopes.n_area: grouping 'site' has a single level" in text
     assert "structure 'b': vcmax25: fixed term 'n_twice' is perfectly collinear" in text
+
+
+def test_the_varying_trait_problem_carries_its_code_and_column():
+    # callers act on a problem's code and location, never on its words (leafcv.errors.Problem)
+    import pickle
+
+    import numpy as np
+
+    from leafcv.data.reading import _constancy_problems
+    from leafcv.errors import Problem
+
+    (p,) = _constancy_problems(np.array(["L1", "L1", "L2"], dtype=object), np.array([1.0, 2.0, 3.0]), np.array([2, 3, 4]),
+                               "wobbly", "trait")
+    assert isinstance(p, Problem) and p.code == "varies-within-leaf" and p.location == "wobbly"
+    assert "leaf 'L1'" in p and pickle.loads(pickle.dumps(p)).code == p.code

@@ -62,11 +62,11 @@ def load(path: str | Path) -> "Study":
 
 def _with_users(message: str, comparison: Comparison) -> str:
     """A leaf-level column that varies within a leaf: say which structures use it as a leaf-level term."""
-    if "must be constant within a leaf" not in message:
+    if getattr(message, "code", None) != "varies-within-leaf":
         return message
     uses = []
     for name in (*comparison.data.traits, *comparison.data.groups):
-        if repr(name) not in message:
+        if name != message.location:
             continue
         for st in comparison.structures:
             for p, ps in st.params.items():

@@ -24,6 +24,22 @@ class UserInputError(LeafcvError):
         super().__init__(f"{self.source}: {len(self.problems)} problem(s)\n{lines}")
 
 
+class Problem(str):
+    """One problem sentence that also carries a code and a location, so that callers act on the code
+    and never parse the words. A ``str``: every place that shows problems shows it unchanged.
+
+    Codes in use: ``"varies-within-leaf"`` (location: the column name).
+    """
+
+    def __new__(cls, text: str, code: str, location: str = ""):
+        obj = super().__new__(cls, text)
+        obj.code, obj.location = code, location
+        return obj
+
+    def __reduce__(self):
+        return (Problem, (str(self), self.code, self.location))
+
+
 class DataError(UserInputError):
     """Problems in the observation table."""
 

@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ..errors import DataError
+from ..errors import DataError, Problem
 from ..spec import OPTIONAL_COLUMNS, REQUIRED_COLUMNS, DataSpec
 from .dataset import Dataset
 from .delimiters import DECIMAL_COMMA, decimal_mark, describe, detect_delimiter
@@ -465,8 +465,8 @@ def _constancy_problems(leaf: np.ndarray, values: np.ndarray, rows: np.ndarray, 
     if not details:
         return []
     more = f"; and {len(details) - MAX_LISTED} more leaves" if len(details) > MAX_LISTED else ""
-    return [f"{_label(name, role)} must be constant within a leaf but varies in {len(details)} leaf/leaves: "
-            f"{'. '.join(details[:MAX_LISTED])}{more}. Give each leaf one value"]
+    return [Problem(f"{_label(name, role)} must be constant within a leaf but varies in {len(details)} leaf/leaves: "
+                    f"{'. '.join(details[:MAX_LISTED])}{more}. Give each leaf one value", "varies-within-leaf", name)]
 
 
 def _duplicate_problems(table: _Table) -> list[str]:
