@@ -5,6 +5,7 @@ Run as a script: python3 examples/notebook.py [FOLDER] [--fast]
 """
 # %% Write the invented demo scenario and load it: the comparison file and its data, every problem checked
 import argparse
+import logging
 import tempfile
 from dataclasses import replace
 from pathlib import Path
@@ -19,6 +20,7 @@ ap = argparse.ArgumentParser()
 ap.add_argument("folder", nargs="?", type=Path)
 ap.add_argument("--fast", action="store_true")
 args, _ = ap.parse_known_args()
+logging.basicConfig(level=logging.INFO, format="%(message)s")   # leafcv's progress is on the "leafcv" logger
 folder = args.folder or Path(tempfile.mkdtemp(prefix="leafcv-notebook-"))
 study = leafcv.load(write_demo(folder, quick=True))
 print(study.structures)
