@@ -115,6 +115,12 @@ def outside_event_loop(func: Callable[..., Any], *args: Any, **kwargs: Any) -> A
         asyncio.get_running_loop()
     except RuntimeError:
         return func(*args, **kwargs)
+    # httpstan runs chains in a module-level fork-based process pool that starts its processes on first
+    # use; forked from the worker thread they crash (measured: a segmentation fault in every chain), so
+    # start them here, in the calling thread
+    from httpstan.services_stub import executor
+
+    executor.submit(int).result()
     with concurrent.futures.ThreadPoolExecutor(max_workers=1, thread_name_prefix="leafcv-stan") as pool:
         return pool.submit(func, *args, **kwargs).result()
 
