@@ -44,14 +44,8 @@ def _parser() -> argparse.ArgumentParser:
     return p
 
 
-def load(file: Path):
-    """Comparison and dataset of ``file`` (see `leafcv.api.load`)."""
-    from .api import load as api_load
-
-    return tuple(api_load(file))
-
-
 def cmd_check(args) -> int:
+    from .api import load
     from .comparison import describe
 
     comparison, dataset = load(args.file)

@@ -346,8 +346,10 @@ def with_free_parameters(design: Design, init: dict) -> dict:
 
 
 def stack_free(values: dict) -> np.ndarray:
-    """The free parameter blocks of ``values`` (as `with_free_parameters` returns) stacked in FREE_BLOCKS order."""
-    return np.concatenate([np.ravel(np.asarray(values[k], float)) for k in FREE_BLOCKS])
+    """The free parameter blocks of ``values`` (as `fitting.warm_values` returns them, each with a leading
+    draw axis) stacked in FREE_BLOCKS order: (draws, free parameters)."""
+    n = len(np.asarray(values[FREE_BLOCKS[0]]))
+    return np.concatenate([np.asarray(values[k], float).reshape(n, -1) for k in FREE_BLOCKS], axis=1)
 
 
 def _leaf_cells(structure: Structure, params, leaf_cells: list[tuple[int, np.ndarray]], L: int):

@@ -170,7 +170,7 @@ def warm_scaling(fit: StructureFit, design: Design) -> dict[str, np.ndarray]:
     flat = np.arange(n_chains * n_draws)
     pick = flat[np.linspace(0, flat.size - 1, min(SCALING_DRAWS, flat.size)).astype(int)]
     vals = warm_values(fit, design, (pick // n_draws, pick % n_draws))
-    stacked = np.stack([stack_free({k: v[j] for k, v in vals.items()}) for j in range(len(pick))])
+    stacked = stack_free(vals)
     off, sd = stacked.mean(axis=0), stacked.std(axis=0, ddof=1)
     fixed = ~(sd > 1e-8) | ~np.isfinite(sd)
     off = np.where(fixed & ~np.isfinite(off), 0.0, off)

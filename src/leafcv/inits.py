@@ -245,7 +245,6 @@ def cold_scaling(design: Design, fits: LeafFits) -> dict[str, np.ndarray]:
     cen_lev = np.asarray(d["cen_lev"], int) - 1
     u_c = np.clip(b0[lev_par[lev_term[cen_lev]]] * np.sqrt(levels[lev_term[cen_lev]]), 0.01, 1.0) \
         if len(cen_lev) else np.zeros(0)
-    leaf_par = np.array([design.params.index(t.param) for t in design.leaf_terms], int)
     cells = design.cen_cells
     cell_leaf, cell_par = cells % L, cells // L
     eta_c = np.clip(se[cell_leaf, cell_par], 0.01, np.maximum(spread[cell_par], 0.01))
@@ -255,5 +254,4 @@ def cold_scaling(design: Design, fits: LeafFits) -> dict[str, np.ndarray]:
     log_sigma = 1 / np.sqrt(2 * np.maximum(counts, 1))
     mult = np.concatenate([b0, beta, log_tau, u_c, np.ones(d["Q"] - d["Qc"]),
                            np.full(d["Rl"], 1 / np.sqrt(2 * (n - 1))), eta_c, np.ones(d["Mn"]), log_sigma])
-    assert len(leaf_par) == d["Rl"]
     return {"n_scale": int(mult.size), "scale_offset": np.zeros(mult.size), "scale_mult": mult.astype(float)}
