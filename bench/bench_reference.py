@@ -1,7 +1,7 @@
 """The generic program against the hand-written reference program of the same structure, side by side.
 
 Fits the reference structure (leaf effects on vcmax25 and alpha, N slope and month levels on vcmax25,
-chlorophyll and SLA slopes on alpha, jmax25 and rd25 as ratios; tests/stan/reference_traits_month.stan)
+chlorophyll and SLA slopes on alpha, jmax25 and rd25 as ratios; reference/stan/reference_traits_month.stan)
 to the demo data with both programs: same data, priors and inits, fresh seeds per repeat, runs
 interleaved. The generic program runs twice: with leafcv's automatic centring (what a user gets) and
 with every leaf effect centred (the reference's own parameterisation). Prints, per run, min ESS_bulk
@@ -31,7 +31,7 @@ from leafcv.engines.pystan_engine import PyStanEngine  # noqa: E402
 from leafcv.demo import write_demo  # noqa: E402
 from leafcv.inits import fit_leaves, structure_inits  # noqa: E402
 from leafcv.spec import SamplerSpec  # noqa: E402
-from tests.reference_programs import TRAITS_MONTH, population, reference_data, reference_inits  # noqa: E402
+from reference.programs import TRAITS_MONTH, population, reference_data, reference_inits  # noqa: E402
 
 
 def _min_ess(pop: dict[str, np.ndarray]) -> tuple[float, str]:

@@ -285,16 +285,20 @@ def test_semicolon_file_is_read(tmp_path):
 
 
 def test_two_variables_mapped_to_one_column(tmp_path):
+    # The wording of leafcv.data.mapping, shared with the comparison file (tests/data/test_mapping.py).
     spec = make_spec(write(tmp_path, make_table()), columns={**COLUMNS, "t_leaf": "Anet"})
-    message = the_problem(problems_of(spec), "'Anet'", "mapped to")
+    message = the_problem(problems_of(spec), "'Anet'", "both name the column")
     assert "net_assimilation and leaf_temperature" in message
+    assert message.code == "shared-column" and message.location == "Anet"
 
 
 def test_unknown_and_unmapped_variables(tmp_path):
     columns = {**without("ppfd"), "vpd": "VPD"}
     found = problems_of(make_spec(write(tmp_path, make_table()), columns=columns))
     assert "valid variables" in the_problem(found, "'vpd'")
-    the_problem(found, 'must map photon_flux to a column of the file (e.g. photon_flux = "your column name")')
+    missing = the_problem(found, "data.columns: required data role 'photon_flux' is missing; "
+                                 'add photon_flux = "<your column>"')
+    assert missing.code == "missing-role" and missing.location == "data.columns.photon_flux"
 
 
 def test_non_numeric_value(tmp_path):

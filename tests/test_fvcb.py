@@ -401,3 +401,37 @@ def test_properties_on_random_leaves(tpu):
 def test_theta_out_of_range_is_refused():
     with pytest.raises(ValueError, match="theta"):
         fvcb.electron_transport(0.3, 1500.0, 100.0, 1.2)
+
+
+@pytest.mark.parametrize("t", [25.0, 30.0])
+def test_point_factors_reproduce_the_worked_example(t):
+    # REFERENCES.md worked example, A at Ci 200 and 800 (both electron requirements); Bernacchi et al.
+    # 2001/2003 [S]. PointFactors is the factored form the held-out leaf model evaluates.
+    row = WORKED[t]
+    p = dict(EXAMPLE)
+    q = p.pop("q")
+    for electron, key in (("4-8", "a800"), ("4.5-10.5", "a800_45")):
+        f = fvcb.PointFactors.at([200.0, 800.0], q, t, electron=electron)
+        a = f.net_assimilation(**p)
+        if electron == "4-8":
+            assert_printed(a[0], row["a200"])
+        assert_printed(a[1], row[key])
+
+
+@pytest.mark.parametrize("transition", ["min", "smooth"])
+@pytest.mark.parametrize("tpu", [False, True])
+def test_point_factors_equal_limiting_rates_on_random_leaves(transition, tpu):
+    # the factored form and limiting_rates compute the same equations (Farquhar et al. 1980; Sharkey 1985
+    # for TPU), so they agree to rounding at random points and parameters
+    rng = np.random.default_rng(11)
+    n = 200
+    ci, q, t = rng.uniform(50, 1500, n), rng.uniform(0, 2000, n), rng.uniform(12, 38, n)
+    o2 = rng.uniform(190, 220, n)
+    pars = dict(vcmax25=rng.uniform(20, 150, n), jmax25=rng.uniform(40, 250, n), alpha=rng.uniform(0.1, 0.5, n),
+                theta=rng.uniform(0.3, 0.95, n), rd25=rng.uniform(0.3, 3, n))
+    tpu25 = rng.uniform(5, 15, n) if tpu else None
+    f = fvcb.PointFactors.at(ci, q, t, o2, electron="4.5-10.5", vcmax_response=fvcb.VCMAX_PEAKED_LEUNING2002)
+    a = f.net_assimilation(**pars, tpu25=tpu25, transition=transition, smooth_curvature=0.98)
+    ref = fvcb.net_assimilation(ci, q, t, **pars, o2=o2, tpu25=tpu25, electron="4.5-10.5", transition=transition,
+                                smooth_curvature=0.98, vcmax_response=fvcb.VCMAX_PEAKED_LEUNING2002)
+    np.testing.assert_allclose(a, ref, rtol=1e-12, atol=1e-12)

@@ -1,4 +1,5 @@
-"""Tests of the cross-validation result type, the ArviZ bridge and the ranking of structures.
+"""Tests of the ranking of structures (leafcv.ranking); the ArviZ bridge and the result type have their own
+(tests/cv/test_arviz_bridge.py, tests/cv/test_result.py).
 
 Outside references: ArviZ 0.23's ``loo`` and ``compare`` (called directly, not through
 leafcv), SciPy's SLSQP on the simplex, closed forms of the stacking objective
@@ -176,28 +177,6 @@ def test_single_structure_has_weight_one():
 # ------------------------------------------------------------------------------------------
 # result type and bridge vs ArviZ itself
 
-def test_se_and_elpd_match_arviz_loo():
-    rng = np.random.default_rng(5)
-    log_lik = rng.normal(-20.0, 1.0, size=(1, 1000, G)) + rng.normal(0.0, 2.0, size=(1, 1, G))
-    idata = az.from_dict(log_likelihood={"y": log_lik})
-    loo = az.loo(idata, pointwise=True, reff=1.0)
-    res = make("m", loo["loo_i"].values, pareto_k=loo["pareto_k"].values, n_draws=1000)
-    assert res.elpd == pytest.approx(float(loo["elpd_loo"]), rel=1e-12)
-    # ArviZ 0.23: loo_lppd_se = sqrt(n * var(loo_i)) with ddof=0; leafcv uses ddof=1
-    assert res.se == pytest.approx(float(loo["se"]) * DDOF1, rel=1e-12)
-    assert res.khat_threshold == pytest.approx(float(loo["good_k"]), rel=1e-12)
-
-
-def test_elpd_data_is_accepted_by_arviz_compare():
-    rng = np.random.default_rng(6)
-    a = make("a", rng.normal(-20, 2, G), pareto_k=rng.uniform(0, 0.5, G))
-    b = make("b", a.elpd_i + rng.normal(-0.5, 1, G))
-    table = az.compare({"a": to_elpd_data(a), "b": to_elpd_data(b)}, ic="loo", method="stacking", scale="log")
-    assert table.loc["a", "elpd_loo"] == pytest.approx(a.elpd)
-    assert table.loc["b", "se"] == pytest.approx(b.se)
-    assert list(to_elpd_data(a)["loo_i"].coords["leaf"].values) == list(LEAVES)
-
-
 def test_table_diffs_and_se_diff_agree_with_arviz_compare():
     rng = np.random.default_rng(8)
     base = rng.normal(-20, 2, G)
@@ -211,16 +190,6 @@ def test_table_diffs_and_se_diff_agree_with_arviz_compare():
     np.testing.assert_allclose(table["se_diff"], ref["dse"].astype(float) * DDOF1, atol=1e-9)
     np.testing.assert_allclose(table["weight"], ref["weight"].astype(float), atol=1e-3)
     assert table["elpd_diff"].iloc[0] == 0.0 and not np.signbit(table["elpd_diff"].iloc[0])
-
-
-def test_bridge_returns_arviz_stacking_weights_in_input_order():
-    rng = np.random.default_rng(14)
-    base = rng.normal(-20, 2, G)
-    results = {f"s{k}": make(f"s{k}", base + rng.normal(-0.5 * k, 1.0, G)) for k in (2, 0, 1)}
-    weights = compare_results(results)
-    ref = az.compare({k: to_elpd_data(r) for k, r in results.items()}, ic="loo", method="stacking", scale="log")
-    assert list(weights.index) == ["s2", "s0", "s1"] and weights.name == "weight"
-    np.testing.assert_allclose(weights.to_numpy(), ref.loc[list(results), "weight"].astype(float), atol=1e-12)
 
 
 def test_se_and_se_diff_by_hand_with_sample_variance():
@@ -393,13 +362,6 @@ def test_mismatched_leaves_raise_naming_structures():
         rank([make("ref", base), make("folded", base, method="kfold")])
     # auto and exact estimate the same leave-one-leaf-out quantity on the same leaves
     assert len(rank([make("ref", base), make("exact_one", base - 1.0, method="exact")])) == 2
-
-
-def test_result_rejects_inconsistent_shapes():
-    with pytest.raises(ValueError, match="elpd_i has 3 values"):
-        make("m", [1.0, 2.0, 3.0])
-    with pytest.raises(ValueError, match="method"):
-        make("m", np.zeros(G), method="loo")
 
 
 # ------------------------------------------------------------------------------------------

@@ -2,10 +2,12 @@
 
     import leafcv
     study = leafcv.load("compare.toml")            # comparison file + its data, every problem checked
+    study = leafcv.from_frame(df, roles={...}, structures=[...], folder="study")   # or a DataFrame
     fit = study.fit("traits-month-fixed")          # one structure on all leaves
     fit.summary; fit.diagnostics; fit.to_inference_data()
     run = study.run(out="runs/x", method="auto")   # the main job; resumable
     run.ranking; run.pointwise; run.fit("traits-month-fixed")   # read from the run folder on demand
+    run.predict("traits-month-fixed", "new_leaves.csv")         # new leaves' parameters, no sampler
     run = leafcv.open_run("runs/x")                # a finished (or unfinished) run folder
 
 Progress and notes go to the ``logging`` logger ``"leafcv"`` (the command line prints them); library
@@ -34,7 +36,7 @@ if TYPE_CHECKING:
 
 logger = logging.getLogger("leafcv")
 
-__all__ = ["Study", "Fit", "Run", "load", "open_run"]
+__all__ = ["Study", "Fit", "Run", "load", "from_frame", "open_run"]
 
 
 def load(path: str | Path) -> "Study":
@@ -58,6 +60,75 @@ def load(path: str | Path) -> "Study":
     if problems:
         raise SpecError(str(path), problems)
     return Study(comparison, dataset)
+
+
+def from_frame(
+    table: pd.DataFrame,
+    *,
+    roles: dict[str, str],
+    structures: list[dict[str, Any]],
+    folder: str | Path,
+    groups: list[str] | tuple[str, ...] = (),
+    traits: list[str] | tuple[str, ...] = (),
+    units: dict[str, Any] | None = None,
+    centre: dict[str, float] | None = None,
+    scale: dict[str, float] | None = None,
+    sampler: dict[str, Any] | None = None,
+    cv: dict[str, Any] | None = None,
+    model: dict[str, Any] | None = None,
+    question: str | None = None,
+) -> "Study":
+    """A study from a DataFrame, structures and column roles, written down as files first.
+
+    ``table`` is written to ``folder/observations.csv`` and the rest to ``folder/comparison.toml`` (the
+    comparison-file format, so the inputs of a run are files with hashes a reviewer can check and a
+    re-run can reuse); both are then read by `load` with every check a file gets.
+
+    Parameters
+    ----------
+    roles
+        Data role -> column of ``table``: ``net_assimilation``, ``intercellular_co2``, ``photon_flux``,
+        ``leaf`` (required), ``leaf_temperature``, ``oxygen``, ``curve`` (optional).
+    structures
+        One dict per structure, as a ``[[structure]]`` entry of a comparison file, e.g.
+        ``{"name": "leaf-vcmax", "vcmax25": {"random": ["leaf"]}, "jmax25": {"ratio_to": "vcmax25"}}``.
+    groups, traits, units, centre, scale
+        ``[data.leaf]`` groups and traits, ``[data.units]``, ``[data.leaf.centre]`` and ``[data.leaf.scale]``.
+    sampler, cv, model
+        ``[sampler]``, ``[cv]`` and ``[model]`` tables (defaults when None).
+    question
+        The question the comparison answers (shown in the report).
+    """
+    from .comparison.writing import comparison_text
+
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    if not isinstance(table, pd.DataFrame):
+        raise UserInputError("from_frame", [f"table: expected a pandas DataFrame, got {type(table).__name__}"])
+    table.to_csv(folder / "observations.csv", index=False)
+    leaf: dict[str, Any] = {"groups": list(groups), "traits": list(traits)}
+    if centre:
+        leaf["centre"] = dict(centre)
+    if scale:
+        leaf["scale"] = dict(scale)
+    data: dict[str, Any] = {"file": "observations.csv", "columns": dict(roles)}
+    if units:
+        data["units"] = dict(units)
+    data["leaf"] = leaf
+    raw: dict[str, Any] = {"format": 2}
+    if question:
+        raw["question"] = question
+    raw["data"] = data
+    for key, value in (("sampler", sampler), ("cv", cv), ("model", model)):
+        if value:
+            raw[key] = dict(value)
+    raw["structure"] = [dict(s) for s in structures]
+    try:
+        text = comparison_text(raw, "written by leafcv.from_frame")
+    except (TypeError, ValueError) as exc:
+        raise UserInputError(str(folder / "comparison.toml"), [str(exc)]) from None
+    (folder / "comparison.toml").write_text(text)
+    return load(folder / "comparison.toml")
 
 
 def _with_users(message: str, comparison: Comparison) -> str:
@@ -201,6 +272,22 @@ class Run:
 
         return az.from_netcdf(self._path("fits", f"{structure}.nc"), engine="h5netcdf")
 
+    def predictions(self, structure: str) -> tuple[pd.DataFrame, pd.DataFrame]:
+        """Held-out predictions of one structure: every point's observed and predicted A, and each
+        leaf's predictive curves (mean and 5-95 % interval of a new observation on a Ci or PPFD grid)."""
+        return (pd.read_csv(self._path("predictions", f"{structure}-points.csv")),
+                pd.read_csv(self._path("predictions", f"{structure}-curves.csv")))
+
+    def predict(self, structure: str, leaves: "str | Path | pd.DataFrame",
+                conditions: "str | Path | pd.DataFrame | None" = None):
+        """Vcmax25, Jmax25, alpha, theta, Rd25 of new leaves (a table or CSV of their traits and groups)
+        under ``structure``: the population-mean and the new-leaf 90 % intervals, and optionally the
+        expected A at ``conditions`` (intercellular_co2, photon_flux, leaf_temperature[, oxygen]).
+        Returns a `leafcv.predict.Prediction`; no sampler runs."""
+        from .predict import predict
+
+        return predict(self.folder, structure, leaves, conditions)
+
     def _path(self, *parts: str) -> Path:
         path = self.folder.joinpath(*parts)
         if not path.exists():
@@ -215,8 +302,7 @@ class Run:
 
 def open_run(folder: str | Path) -> Run:
     """Open a run folder (it must hold the manifest.json that ``compare`` writes first)."""
+    from .manifest import read_manifest
+
     folder = Path(folder)
-    path = folder / "manifest.json"
-    if not path.exists():
-        raise UserInputError(str(folder), ["no manifest.json here: give the run folder written by `leafcv compare`"])
-    return Run(folder, json.loads(path.read_text()))
+    return Run(folder, read_manifest(folder))

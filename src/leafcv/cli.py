@@ -39,9 +39,42 @@ def _parser() -> argparse.ArgumentParser:
     m.add_argument("--method", choices=CV_METHODS)
     m.add_argument("--workers", type=int)
     m.add_argument("--scheduler")
-    r = sub.add_parser("report", help="rewrite the ranking of a run folder from its results")
+    r = sub.add_parser("report", help="rewrite the ranking of a run folder from its results and write report.html")
     r.add_argument("rundir", type=Path)
+    r.add_argument("--structure", help="the structure whose estimates are shown (default: the best ranked)")
+    r.add_argument("--group", help="the group column the per-leaf differences are coloured by (default: the first)")
+    q = sub.add_parser("predict", help="predict Vcmax25, Jmax25, alpha, theta, Rd25 (and A) of new leaves from a run")
+    q.add_argument("rundir", type=Path)
+    q.add_argument("--structure", required=True, help="the structure whose fit predicts")
+    q.add_argument("--leaves", required=True, type=Path, metavar="NEW.csv",
+                   help="one row per new leaf: the traits and groups the structure uses (the data file's names)")
+    q.add_argument("--at", type=Path, metavar="CONDITIONS.csv",
+                   help="also the expected A at these conditions: columns intercellular_co2, photon_flux, "
+                        "leaf_temperature (and optionally oxygen)")
+    q.add_argument("--out", type=Path, metavar="DIR", help="also write parameters.csv (and assimilation.csv) here")
     return p
+
+
+def cmd_predict(args) -> int:
+    import pandas as pd
+
+    from .api import open_run
+
+    pred = open_run(args.rundir).predict(args.structure, args.leaves, args.at)
+    with pd.option_context("display.width", 160, "display.max_rows", 500):
+        print(f"structure {args.structure!r}: medians and 90 % intervals; 'mean' = the population mean for these "
+              f"traits and levels, 'new leaf' = a new leaf's own effects (and new levels) drawn too")
+        print(pred.parameters.to_string(index=False, float_format=lambda v: f"{v:.4g}"))
+        if pred.assimilation is not None:
+            print("\nexpected net assimilation A (umol m-2 s-1) at the given conditions:")
+            print(pred.assimilation.to_string(index=False, float_format=lambda v: f"{v:.4g}"))
+    if args.out:
+        args.out.mkdir(parents=True, exist_ok=True)
+        pred.parameters.to_csv(args.out / "parameters.csv", index=False)
+        if pred.assimilation is not None:
+            pred.assimilation.to_csv(args.out / "assimilation.csv", index=False)
+        print(f"written to {args.out}")
+    return EXIT_OK
 
 
 def cmd_check(args) -> int:
@@ -99,9 +132,18 @@ def cmd_compare(args) -> int:
 
 
 def cmd_report(args) -> int:
-    from .compare import rewrite_report
+    import json
 
-    print(rewrite_report(args.rundir))
+    from .compare import rewrite_report
+    from .report import write_report
+
+    manifest = args.rundir / "manifest.json"
+    if manifest.exists() and "finished" not in json.loads(manifest.read_text()):
+        print(f"{args.rundir}: the run has not finished; its ranking is not rewritten")
+    else:
+        print(rewrite_report(args.rundir))
+    path = write_report(args.rundir, structure=args.structure, group=args.group)
+    print(f"report: {path}")
     return EXIT_OK
 
 
@@ -136,7 +178,8 @@ def _progress(label: str):
     return report
 
 
-COMMANDS = {"check": cmd_check, "fit": cmd_fit, "compare": cmd_compare, "demo": cmd_demo, "report": cmd_report}
+COMMANDS = {"check": cmd_check, "fit": cmd_fit, "compare": cmd_compare, "demo": cmd_demo, "report": cmd_report,
+            "predict": cmd_predict}
 
 
 def _show_progress() -> None:

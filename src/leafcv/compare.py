@@ -8,10 +8,15 @@ Run folder (default ``runs/<file stem>/`` beside the comparison file):
   fits/<structure>.nc      its full-data fit as ArviZ InferenceData (posterior, sample_stats,
                            observed_data, and log_likelihood "leaf_log_marginal": each leaf's log marginal
                            per draw, so that arviz.loo gives its leave-one-leaf-out PSIS)
+  predictions/<structure>-points.csv   every point's observed and held-out predicted A
+  predictions/<structure>-curves.csv   each leaf's held-out predictive curves: predictive mean and the
+                           5-95 % interval of a new observation on a grid of Ci (A-Ci) or PPFD (A-Q)
+                           (leafcv.cv.predictions)
   ranking.csv, ranking.txt the ranking (columns as in DESIGN.md)
   pointwise.csv            per held-out unit (leaf, or level of a grouping) and structure: elpd, how it
                            was scored, its Monte Carlo SE, quadrature bound and Pareto k-hat (NaN if
                            not computed or not scored by PSIS)
+  report.html, figures/, tables/   the report (leafcv.report), written at the end of a run
 """
 from __future__ import annotations
 
@@ -107,9 +112,18 @@ def structure_record(structure: Structure, dataset: Dataset, comparison: Compari
     """What a reader needs to know of one structure: origin, model options and every prior in words."""
     from .design import build_design
 
+    from . import fvcb
+    from .terms import responses
+
     design = build_design(structure, dataset, comparison.data)
+    rset = fvcb.RUBISCO_SETS[fvcb.DEFAULT_RUBISCO_SET]
     return {"origin": structure.origin, "model": asdict(structure.options),
-            "leaf_correlation": structure.leaf_correlation, "priors": list(design.prior_lines)}
+            "leaf_correlation": structure.leaf_correlation, "priors": list(design.prior_lines),
+            "params": {p: asdict(ps) for p, ps in structure.params.items() if ps is not None},
+            "temperature": {"rubisco_set": fvcb.DEFAULT_RUBISCO_SET, "rubisco": asdict(rset),
+                            "responses": {k: asdict(r) for k, r in responses(structure.options).items()}},
+            "parameterisation": [f"leaf effects on {lt.param}: {lt.reason}" for lt in design.leaf_terms]
+                                + [f"{g.label}: {g.reason}" for g in design.group_terms]}
 
 
 def structures_text(comparison: Comparison, records: dict[str, dict]) -> str:
@@ -272,12 +286,10 @@ def write_fit(path: Path, fit, dataset: Dataset, log_m: np.ndarray | None) -> No
 def rewrite_report(run_dir: Path) -> str:
     """Re-rank a run from the result files of its manifest's method; returns the ranking text."""
     from .errors import UserInputError
+    from .manifest import read_manifest
 
     run_dir = Path(run_dir)
-    manifest_path = run_dir / "manifest.json"
-    if not manifest_path.exists():
-        raise UserInputError(str(run_dir), ["no manifest.json here: give the run folder written by `leafcv compare`"])
-    manifest = json.loads(manifest_path.read_text())
+    manifest = read_manifest(run_dir)
     results, details = [], {}
     for name, filename in manifest.get("results", {}).items():
         path = run_dir / "results" / filename
@@ -328,7 +340,15 @@ def run_comparison(comparison: Comparison, dataset: Dataset, out: Path, *, metho
         "versions": _versions(), "started": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
         "command": " ".join(sys.argv),
     }
+    from .cv.quadrature import LEAF_TOL
+    from .cv.result import khat_threshold
+
+    manifest["accuracy"] = {"quadrature_tolerance_nats": LEAF_TOL,
+                            "khat_threshold": f"min(1 - 1 / log10(draws), 0.7) (Vehtari et al. 2024): "
+                                              f"{khat_threshold(sampler.chains * sampler.draws):.2f} at "
+                                              f"{sampler.chains * sampler.draws} draws"}
     manifest["structures"] = {st.name: structure_record(st, dataset, comparison) for st in comparison.structures}
+    write_atomic(out / "leaves.csv", dataset.leaves.to_csv(index=False))
     write_atomic(out / "manifest.json", json.dumps(manifest, indent=1))
     write_atomic(out / "structures.txt", structures_text(comparison, manifest["structures"]))
     state = {"leaf_fits": None}
@@ -357,9 +377,11 @@ def run_comparison(comparison: Comparison, dataset: Dataset, out: Path, *, metho
                                   leaf_fits=state["leaf_fits"], sampler=sampler, keep=keep)
         if "fit" not in keep:
             log(f"[{k}/{n}] {s.name}: fitting all leaves for the estimates ({method} scores come from refits)")
-            keep = estimates_fit(s, dataset, comparison, leaf_fits=state["leaf_fits"], engine=engine,
-                                 sampler=sampler, details=det)
+            keep.update(estimates_fit(s, dataset, comparison, leaf_fits=state["leaf_fits"], engine=engine,
+                                      sampler=sampler, details=det))
         write_fit(out / "fits" / f"{s.name}.nc", keep["fit"], dataset, keep["log_m"])
+        for part in ("points", "curves"):
+            write_atomic(out / "predictions" / f"{s.name}-{part}.csv", keep[part].to_csv(index=False))
         write_atomic(path, _result_to_json(res, det, key))
         grade = {"converged": "", "marginal": " - MARGINAL CONVERGENCE", "failed": " - NOT CONVERGED"}[res.grade]
         mcse = f", MCSE {res.mcse:.2f}" if np.isfinite(res.mcse) else ""
@@ -376,4 +398,7 @@ def run_comparison(comparison: Comparison, dataset: Dataset, out: Path, *, metho
     manifest["finished"] = time.strftime("%Y-%m-%dT%H:%M:%S%z")
     write_atomic(out / "manifest.json", json.dumps(manifest, indent=1))
     log(text)
+    from .report import write_report    # here: the report needs matplotlib, the scores do not
+
+    log(f"report: {write_report(out)}")
     return table

@@ -1,88 +1,107 @@
-"""Structure specification + data -> Stan data for the generic program (stan/leafcv.stan).
+"""Structure + data -> the design of the generic program (stan/leafcv.stan), and its serialiser.
 
-The Stan program is the same for every structure: this module only builds design matrices, index
-arrays, sizes and flags. A `Design` also keeps the readable description of every coefficient, random
-term, centring choice and prior, so results can be reported by meaning.
+The Stan program is the same for every structure. `build_design` loops over the structure's terms
+(`leafcv.terms`) and keeps what they produce in typed, 0-based form: the fixed-effect columns and the
+parameter each acts on, the group and leaf terms with their levels and centring, the cells of leaf
+effects, the training points and the priors. Inits, the held-out leaf model, labels and the posterior
+reader all work from these fields. `to_stan_data` is the one place that writes them in the program's
+names and 1-based indices, at the engine boundary.
 """
 from __future__ import annotations
 
 from dataclasses import dataclass, field, replace
+from functools import cached_property
 
 import numpy as np
 
 from . import fvcb
 from .data.dataset import Dataset
-from .errors import SpecError
-from .priors import PriorSet
-from .spec import LINKS, PARAMETERS, DataSpec, ModelOptions, Structure
-
-#: Fewest training points a leaf needs for its effects to be centred (common practice, no source:
-#: a leaf informed by whole curves pins its own parameters; see DESIGN.md for the measured gain).
-MIN_POINTS_CENTRED_LEAF = 5
-#: A leaf's effect is centred when its least-squares SE is below this fraction of the between-leaf SD
-#: (the data then carry at least 80 % of the precision; common practice, no source: the centred form
-#: suits data-dominated effects, the non-centred form prior-dominated ones, Betancourt & Girolami 2015).
-CENTRED_SE_FRACTION = 0.5
-#: Fewest leaves per level for a group effect on a parameter that also has leaf effects to be centred.
-MIN_LEAVES_CENTRED_GROUP = 20
+from .errors import Problem, SpecError
+from .priors import Prior, PriorSet
+from .spec import DataSpec, ModelOptions, Structure
+from .terms import (  # noqa: F401  (Coefficient, GroupTerm, LeafTerm and the centring rules re-exported)
+    CENTRED_SE_FRACTION, MIN_LEAVES_CENTRED_GROUP, MIN_POINTS_CENTRED_LEAF, Coefficient, FixedTerm, GroupIntercept,
+    GroupTerm, LeafEffect, LeafTerm, Parameter, TermContext, parameters, responses, terms_of,
+)
 
 
-@dataclass(frozen=True)
-class Coefficient:
-    param: str
-    term: str          # trait or group column
-    label: str         # e.g. "leaf_n", "month=2026-07", "leaf_n within species"
-    kind: str          # "trait", "level", "within" or "between"
-    prior_sd: float
-    group: str = ""    # the grouping of a within/between split
+@dataclass(frozen=True, eq=False)
+class Points:
+    """The training points of a fit (rows ``Design.obs_index`` of the data), leaf 0-based."""
+
+    leaf: np.ndarray
+    ci: np.ndarray
+    q: np.ndarray
+    t_leaf: np.ndarray
+    o2: np.ndarray
+    a_net: np.ndarray
+    curve_type: np.ndarray
+    sigma_group: np.ndarray       # 0-based index into Design.sigma_groups
 
 
-@dataclass(frozen=True)
-class GroupTerm:
-    param: str
-    grouping: str
-    levels: tuple[str, ...]
-    start: int         # 0-based offset of its first level in the stacked level vector
-    centred: tuple[bool, ...]
-    reason: str
-    slope_of: str | None = None   # a random slope of this trait (None: a random intercept)
-
-    @property
-    def label(self) -> str:
-        return f"{self.grouping}-specific slopes of {self.param} on {self.slope_of}" if self.slope_of \
-            else f"{self.grouping} effects on {self.param}"
-
-
-@dataclass(frozen=True)
-class LeafTerm:
-    param: str
-    centred_leaves: int
-    noncentred_leaves: int
-    reason: str
-
-
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class Design:
+    """One structure placed on one data set (and one set of training leaves). Indices are 0-based.
+
+    Cells of leaf effects are numbered l + p L (leaf l, parameter p), the program's column-major order.
+    """
+
     structure: Structure
-    stan_data: dict
-    params: tuple[str, ...]                 # parameter order in the program
-    ratio: dict[str, bool]
+    parameters: tuple[Parameter, ...]       # program order
+    ratio: dict[str, bool]                  # parameter written as a log ratio to vcmax25
+    terms: dict[str, list]                  # parameter -> its term objects (leafcv.terms)
     coefficients: tuple[Coefficient, ...]
+    X: np.ndarray                           # (L, K) fixed-effect columns
+    coef_param: np.ndarray                  # (K,) parameter index of each column
     group_terms: tuple[GroupTerm, ...]
+    lev_term: np.ndarray                    # (Q,) group term of each stacked level
+    lev_centred: np.ndarray                 # (Q,) bool
+    nc_rot: np.ndarray                      # (Q - Qc, Q - Qc) basis of the non-centred levels
+    b0_shift: np.ndarray                    # (P, Q - Qc)
     leaf_terms: tuple[LeafTerm, ...]
+    cen_cells: np.ndarray                   # centred leaf-effect cells
+    cen_term: np.ndarray                    # their leaf term
+    nc_cells: np.ndarray
+    nc_term: np.ndarray
     trait_transform: dict[str, tuple[float, float]]   # trait -> (centre, scale)
     prior_lines: tuple[str, ...]
+    intercept_priors: tuple[Prior, ...]
+    priors: PriorSet
     train_leaves: np.ndarray                # bool per leaf
     obs_index: np.ndarray                   # rows of dataset.obs in the likelihood
-    cen_cells: np.ndarray = field(repr=False, default=None)   # flat cell indices (0-based)
-    nc_cells: np.ndarray = field(repr=False, default=None)
+    points: Points
     options: ModelOptions = ModelOptions()
     sigma_groups: tuple[str, ...] = ("all points",)   # what each residual SD covers, in program order
     sigma_kinds: tuple[str, ...] = ()       # curve type of each residual SD (sigma by curve type), program order
 
+    @property
+    def params(self) -> tuple[str, ...]:
+        return tuple(p.name for p in self.parameters)
 
-def _levels(values) -> tuple[str, ...]:
-    return tuple(sorted(set(map(str, values))))
+    @property
+    def n_leaves(self) -> int:
+        return len(self.train_leaves)
+
+    @property
+    def leaf_correlation(self) -> bool:
+        return bool(self.structure.leaf_correlation)
+
+    @property
+    def student_t(self) -> bool:
+        return bool(self.options.student_t)
+
+    def param_index(self, name: str) -> int:
+        return self.params.index(name)
+
+    @property
+    def leaf_term_params(self) -> list[int]:
+        """Parameter index of each leaf term."""
+        return [self.param_index(lt.param) for lt in self.leaf_terms]
+
+    @cached_property
+    def stan_data(self) -> dict:
+        """The program's data (`to_stan_data`), built once."""
+        return to_stan_data(self)
 
 
 def trait_transforms(dataset: Dataset, spec: DataSpec) -> dict[str, tuple[float, float]]:
@@ -103,7 +122,7 @@ def build_design(
     train_leaves: np.ndarray | None = None,
     leaf_fits=None,
 ) -> Design:
-    """Turn a structure and data into the Stan data of the generic program.
+    """Place a structure's terms on the data.
 
     Parameters
     ----------
@@ -125,170 +144,125 @@ def build_design(
     obs = dataset.obs
     obs_index = np.flatnonzero(train[obs["leaf_index"].to_numpy()])
     if obs_index.size == 0:
-        raise SpecError(structure.name, ["no training points left after holding out leaves"])
+        raise SpecError(structure.name, [Problem("no training points left after holding out leaves",
+                                                 "no-training-points", structure.name)])
     fit_obs = obs.iloc[obs_index]
-    points_per_leaf = np.bincount(fit_obs["leaf_index"].to_numpy(), minlength=L)
 
-    params = PARAMETERS + (("tpu25",) if options.tpu else ())
-    links = dict(LINKS, tpu25="log")
+    params = parameters(options.tpu)
+    names = tuple(p.name for p in params)
     P = len(params)
-    transforms = trait_transforms(dataset, spec)
-    ratio = {p: structure.params.get(p) is not None and structure.params[p].ratio_to == "vcmax25"
-             for p in params}
+    ratio = {p: structure.params.get(p) is not None and structure.params[p].ratio_to == "vcmax25" for p in names}
+    ctx = TermContext(structure, leaves, trait_transforms(dataset, spec), priors, train,
+                      np.bincount(fit_obs["leaf_index"].to_numpy(), minlength=L), leaf_fits, ratio)
+    terms = terms_of(structure, set(dataset.traits), params)
 
     coefs: list[Coefficient] = []
     columns: list[np.ndarray] = []
-    fixed_map: list[np.ndarray] = []
+    coef_param: list[int] = []
     group_terms: list[GroupTerm] = []
-    re_par, re_lev, re_x, tau_sd, lev_term, lev_centred = [], [], [], [], [], []
     leaf_terms: list[LeafTerm] = []
-    leaf_cells: list[tuple[int, np.ndarray]] = []   # (parameter index, centred mask over leaves)
-    leaf_tau_sd: list[float] = []
     prior_lines: list[str] = []
-
-    for pi, p in enumerate(params):
-        ps = structure.params.get(p)
-        fixed = ps.fixed if ps else ()
-        random = ps.random if ps else ()
-        centring = ps.centring if ps else {}
-        link = links[p]
+    n_levels = 0
+    for pi, par in enumerate(params):
+        p = par.name
         what = f"{p}/vcmax25 at reference" if ratio[p] else f"{p} at reference traits and levels"
-        prior_lines.append(priors.intercept(p, ratio[p]).describe(link, what))
-        for term in fixed:
-            if term in dataset.traits:
-                c, s = transforms[term]
-                columns.append((leaves[term].to_numpy(float) - c) / s)
-                sd = priors.slope_sd(link)
-                coefs.append(Coefficient(p, term, term, "trait", sd))
-                fixed_map.append(np.eye(P)[pi])
-                prior_lines.append(f"{p} slope on {term} (per {s:g} units, centred at {c:.4g}): normal(0, {sd:g}) on the {link} scale")
+        prior_lines.append(priors.intercept(p, ratio[p]).describe(par.link, what))
+        has_leaf_term = any(isinstance(t, LeafEffect) for t in terms[p])
+        for term in terms[p]:
+            if isinstance(term, FixedTerm):
+                for coef, col in term.columns(ctx):
+                    coefs.append(coef)
+                    columns.append(col)
+                    coef_param.append(pi)
+                prior_lines.append(term.prior_line(ctx))
+            elif isinstance(term, LeafEffect):
+                leaf_terms.append(term.place(ctx))
+                prior_lines.append(term.prior_line(ctx))
+            elif isinstance(term, GroupIntercept):
+                gt = term.place(ctx, n_levels, has_leaf_term)
+                n_levels += len(gt.levels)
+                group_terms.append(gt)
+                prior_lines.append(term.prior_line(ctx, gt))
             else:
-                levels = _levels(leaves[term])
-                for lev in levels[1:]:
-                    columns.append((leaves[term].astype(str).to_numpy() == lev).astype(float))
-                    coefs.append(Coefficient(p, term, f"{term}={lev}", "level", priors.level_sd))
-                    fixed_map.append(np.eye(P)[pi])
-                prior_lines.append(f"{p} {term} levels vs reference {levels[0]!r}: normal(0, {priors.level_sd:g}) on the {link} scale")
-        for trait, grouping in (ps.split if ps else ()):
-            # group-mean centring (e.g. Enders & Tofighi 2007, from memory): the within slope acts on
-            # the leaf's deviation from its group's mean, the between slope on the group mean itself
-            c, sc = transforms[trait]
-            x = leaves[trait].to_numpy(float)
-            gmean = leaves.groupby(leaves[grouping].astype(str))[trait].transform("mean").to_numpy(float)
-            sd = priors.slope_sd(link)
-            for kind, col in (("within", (x - gmean) / sc), ("between", (gmean - c) / sc)):
-                columns.append(col)
-                coefs.append(Coefficient(p, trait, f"{trait} {kind} {grouping}", kind, sd, grouping))
-                fixed_map.append(np.eye(P)[pi])
-            prior_lines.append(f"{p} slopes on {trait} within and between {grouping} (per {sc:g} units): "
-                               f"normal(0, {sd:g}) each on the {link} scale")
-        group_specs = [(g, None) for g in random if g != "leaf"] + [(g, t) for t, g in (ps.slopes if ps else ())]
-        if "leaf" in random:
-            choice = centring.get("leaf", "auto")
-            leaf_tau_sd.append(priors.leaf_sd_scale)
-            informed, rule = _informed_leaves(p, ratio[p], leaf_fits, points_per_leaf, train)
-            centred = informed if choice == "auto" else (np.full(L, choice == "centred") & train)
-            reason = f"{choice}: chosen by the user" if choice != "auto" else f"auto: {rule}"
-            if (~train).any():
-                reason += "; held-out leaves non-centred"
-            if structure.leaf_correlation:
-                reason += "; correlated effects: a leaf is centred only where all its effects are"
-            leaf_cells.append((pi, centred))
-            leaf_terms.append(LeafTerm(p, int(centred.sum()), int((~centred).sum()), reason))
-            prior_lines.append(f"SD of leaf effects on {p}: half-normal(0, {priors.leaf_sd_scale:g}) on the {link} scale")
-        for grouping, slope_of in group_specs:
-            choice = centring.get(grouping if slope_of is None else f"{slope_of}|{grouping}", "auto")
-            levels = _levels(leaves[grouping])
-            lev_of_leaf = np.searchsorted(levels, leaves[grouping].astype(str).to_numpy())
-            leaves_per_level = np.bincount(lev_of_leaf[train], minlength=len(levels))
-            has_leaf_term = "leaf" in random
-            if choice == "auto":
-                need = MIN_LEAVES_CENTRED_GROUP if has_leaf_term else 2
-                cen = leaves_per_level >= need
-                reason = (f"auto: centred where a level has >= {need} training leaves"
-                          + (" (the parameter also has leaf effects)" if has_leaf_term else ""))
-            else:
-                cen = np.full(len(levels), choice == "centred") & (leaves_per_level > 0)
-                reason = f"{choice}: chosen by the user"
-            if (leaves_per_level == 0).any():
-                reason += "; levels without training data non-centred"
-            r = len(re_par)
-            start = len(lev_term)
-            re_par.append(pi + 1)
-            re_lev.append(start + lev_of_leaf + 1)
-            if slope_of is None:
-                re_x.append(np.ones(L))
-            else:
-                c, sc = transforms[slope_of]
-                re_x.append((leaves[slope_of].to_numpy(float) - c) / sc)
-            tau_sd.append(priors.group_sd_scale)
-            lev_term += [r + 1] * len(levels)
-            lev_centred += list(cen)
-            gt = GroupTerm(p, grouping, levels, start, tuple(bool(c) for c in cen), reason, slope_of)
-            group_terms.append(gt)
-            prior_lines.append(f"SD of {gt.label}: half-normal(0, {priors.group_sd_scale:g}) on the {link} scale"
-                               + (f" (per {transforms[slope_of][1]:g} units)" if slope_of else ""))
+                raise TypeError(f"unknown term {term!r}")
     prior_lines.append(f"residual SD: half-normal(0, {priors.sigma_scale:g}) umol m-2 s-1")
     if options.student_t:
         prior_lines.append(f"Student-t degrees of freedom: gamma({priors.nu_shape:g}, {priors.nu_rate:g}), > 1")
 
     K = len(columns)
     X = np.column_stack(columns) if K else np.zeros((L, 0))
-    _check_fixed_columns(structure.name, params, X, fixed_map, coefs)
-    cen_cell, cen_term, nc_cell, nc_term = _leaf_cells(structure, params, leaf_cells, L)
+    coef_param_a = np.asarray(coef_param, int)
+    _check_fixed_columns(structure.name, names, X, coef_param_a, coefs)
+    cen_cell, cen_term, nc_cell, nc_term = _leaf_cells(structure, names, leaf_terms, L)
     if structure.leaf_correlation:
-        n_cen = len(cen_cell) // len(leaf_cells)
+        n_cen = len(cen_cell) // len(leaf_terms)
         leaf_terms = [replace(lt, centred_leaves=n_cen, noncentred_leaves=L - n_cen) for lt in leaf_terms]
-    lev_centred_a = np.asarray(lev_centred, bool)
-    nc_rot, b0_shift, group_terms = _mean_split(group_terms, lev_centred_a, P, params)
-    ip = [priors.intercept(p, ratio[p]) for p in params]
+        prior_lines.append(f"correlation of leaf effects on {', '.join(lt.param for lt in leaf_terms)}: "
+                           f"LKJ({structure.lkj_eta:g}) (Lewandowski, Kurowicka & Joe 2009)")
+    lev_term = np.array([r for r, gt in enumerate(group_terms) for _ in gt.levels], int)
+    lev_centred = np.array([c for gt in group_terms for c in gt.centred], bool)
+    nc_rot, b0_shift, group_terms = _mean_split(group_terms, lev_centred, P, names)
     curve_types = fit_obs["curve_type"].to_numpy()
     if options.sigma_by_curve:
         kinds = sorted(set(curve_types))
-        sigma_group = np.searchsorted(kinds, curve_types) + 1
+        sigma_group = np.searchsorted(kinds, curve_types)
         sigma_names = tuple(f"{k} curves" for k in kinds)
     else:
         kinds = []
-        sigma_group = np.ones(len(fit_obs), int)
+        sigma_group = np.zeros(len(fit_obs), int)
         sigma_names = ("all points",)
+    points = Points(fit_obs["leaf_index"].to_numpy(), fit_obs["ci"].to_numpy(float), fit_obs["ppfd"].to_numpy(float),
+                    fit_obs["t_leaf"].to_numpy(float), fit_obs["o2"].to_numpy(float), fit_obs["a_net"].to_numpy(float),
+                    curve_types, sigma_group)
+    return Design(structure, params, ratio, terms, tuple(coefs), X, coef_param_a, tuple(group_terms), lev_term,
+                  lev_centred, nc_rot, b0_shift, tuple(leaf_terms), cen_cell, cen_term, nc_cell, nc_term,
+                  ctx.transforms, tuple(prior_lines), tuple(priors.intercept(p, ratio[p]) for p in names), priors,
+                  train, obs_index, points, options, sigma_names, tuple(kinds))
+
+
+#: The program's temperature responses, in the order of its data tresp and peaked.
+PROGRAM_RESPONSES = ("vcmax", "jmax", "rd", "tpu")
+
+
+def to_stan_data(design: Design) -> dict:
+    """The data of stan/leafcv.stan: the program's names, 1-based indices. The one serialiser."""
+    d, pts, options, structure = design, design.points, design.options, design.structure
+    L, P, K = design.n_leaves, len(design.parameters), len(design.coefficients)
     rset = fvcb.RUBISCO_SETS[fvcb.DEFAULT_RUBISCO_SET]
     resp = responses(options)
     e1, e2 = fvcb.electron_coefficients(options.electron)
-    data = {
-        "N": len(fit_obs), "L": L, "leaf": fit_obs["leaf_index"].to_numpy() + 1,
-        "ci": fit_obs["ci"].to_numpy(float), "q": fit_obs["ppfd"].to_numpy(float),
-        "tleaf": fit_obs["t_leaf"].to_numpy(float), "o2": fit_obs["o2"].to_numpy(float),
-        "a": fit_obs["a_net"].to_numpy(float),
-        "S": int(sigma_group.max()), "sigma_group": sigma_group,
+    gts = design.group_terms
+    R = len(gts)
+    return {
+        "N": len(pts.leaf), "L": L, "leaf": pts.leaf + 1,
+        "ci": pts.ci, "q": pts.q, "tleaf": pts.t_leaf, "o2": pts.o2, "a": pts.a_net,
+        "S": len(design.sigma_groups), "sigma_group": pts.sigma_group + 1,
         "use_tpu": int(options.tpu), "smooth": int(options.transition == "smooth"),
         "smooth_curvature": options.smooth_curvature, "student_t": int(options.student_t),
         "e1": e1, "e2": e2,
         "rubisco": np.array([rset.kc25, rset.ko25, rset.gamma25, rset.ha_kc, rset.ha_ko, rset.ha_gamma]),
-        "tresp": np.array([[r.ha, r.hd or 0.0, r.ds or 0.0] for r in resp]),
-        "peaked": [int(r.peaked) for r in resp],
-        "ratio_j": int(ratio["jmax25"]), "ratio_rd": int(ratio["rd25"]),
-        "prior_family": [1 if pr.family == "normal" else 2 for pr in ip],
-        "prior_a": np.array([pr.a for pr in ip]), "prior_b": np.array([pr.b for pr in ip]),
-        "K": K, "X": X, "fixed_map": np.array(fixed_map).reshape(K, P),
-        "beta_sd": np.array([c.prior_sd for c in coefs]),
-        "R": len(re_par), "re_par": re_par, "re_lev": np.array(re_lev, int).reshape(len(re_par), L),
-        "re_x": np.array(re_x).reshape(len(re_par), L), "tau_sd": np.array(tau_sd),
-        "Q": len(lev_term), "lev_term": lev_term,
-        "Qc": int(lev_centred_a.sum()), "cen_lev": list(np.flatnonzero(lev_centred_a) + 1),
-        "nc_lev": list(np.flatnonzero(~lev_centred_a) + 1), "nc_rot": nc_rot, "b0_shift": b0_shift,
-        "Rl": len(leaf_tau_sd), "leaf_tau_sd": np.array(leaf_tau_sd),
-        "Mc": len(cen_cell), "cen_cell": cen_cell, "cen_term": cen_term,
-        "Mn": len(nc_cell), "nc_cell": nc_cell, "nc_term": nc_term,
+        "tresp": np.array([[r.ha, r.hd or 0.0, r.ds or 0.0] for r in (resp[k] for k in PROGRAM_RESPONSES)]),
+        "peaked": [int(resp[k].peaked) for k in PROGRAM_RESPONSES],
+        "ratio_j": int(design.ratio["jmax25"]), "ratio_rd": int(design.ratio["rd25"]),
+        "prior_family": [1 if pr.family == "normal" else 2 for pr in design.intercept_priors],
+        "prior_a": np.array([pr.a for pr in design.intercept_priors]),
+        "prior_b": np.array([pr.b for pr in design.intercept_priors]),
+        "K": K, "X": d.X, "fixed_map": np.eye(P)[d.coef_param].reshape(K, P),
+        "beta_sd": np.array([c.prior_sd for c in design.coefficients]),
+        "R": R, "re_par": [design.param_index(g.param) + 1 for g in gts],
+        "re_lev": np.array([g.start + g.level_of_leaf + 1 for g in gts], int).reshape(R, L),
+        "re_x": np.array([g.x for g in gts], float).reshape(R, L),
+        "tau_sd": np.array([g.prior_sd for g in gts], float),
+        "Q": len(d.lev_term), "lev_term": list(d.lev_term + 1),
+        "Qc": int(d.lev_centred.sum()), "cen_lev": list(np.flatnonzero(d.lev_centred) + 1),
+        "nc_lev": list(np.flatnonzero(~d.lev_centred) + 1), "nc_rot": d.nc_rot, "b0_shift": d.b0_shift,
+        "Rl": len(design.leaf_terms), "leaf_tau_sd": np.array([lt.prior_sd for lt in design.leaf_terms], float),
+        "Mc": len(d.cen_cells), "cen_cell": list(d.cen_cells + 1), "cen_term": list(d.cen_term + 1),
+        "Mn": len(d.nc_cells), "nc_cell": list(d.nc_cells + 1), "nc_term": list(d.nc_term + 1),
         "leaf_corr": int(structure.leaf_correlation), "lkj_eta": float(structure.lkj_eta),
-        "sigma_sd": priors.sigma_scale, "nu_shape": priors.nu_shape, "nu_rate": priors.nu_rate,
+        "sigma_sd": design.priors.sigma_scale, "nu_shape": design.priors.nu_shape, "nu_rate": design.priors.nu_rate,
         "n_scale": 0, "scale_offset": np.zeros(0), "scale_mult": np.zeros(0),
     }
-    if structure.leaf_correlation:
-        prior_lines.append(f"correlation of leaf effects on {', '.join(lt.param for lt in leaf_terms)}: "
-                           f"LKJ({structure.lkj_eta:g}) (Lewandowski, Kurowicka & Joe 2009)")
-    return Design(structure, data, params, ratio, tuple(coefs), tuple(group_terms), tuple(leaf_terms),
-                  transforms, tuple(prior_lines), train, obs_index,
-                  np.asarray(cen_cell, int) - 1, np.asarray(nc_cell, int) - 1, options, sigma_names, tuple(kinds))
 
 
 def _mean_split(group_terms: list[GroupTerm], lev_centred: np.ndarray, P: int, params
@@ -327,12 +301,9 @@ FREE_BLOCKS = ("b0_free", "beta", "log_tau", "u_c", "u_v", "log_tau_leaf", "eta_
 def free_parameters(design: Design, b0: np.ndarray, tau: np.ndarray, u_z: np.ndarray) -> dict[str, np.ndarray]:
     """The program's free b0_free and u_v for given b0, tau and non-centred level z (inverse of its
     transformed parameters)."""
-    d = design.stan_data
-    rot, shift = np.asarray(d["nc_rot"], float), np.asarray(d["b0_shift"], float)
-    u_v = rot.T @ np.asarray(u_z, float)
-    tau_nc = np.asarray(tau, float)[np.asarray(d["lev_term"], int)[np.asarray(d["nc_lev"], int) - 1] - 1] \
-        if len(u_v) else np.zeros(0)
-    return {"b0_free": np.asarray(b0, float) + shift @ (tau_nc * u_v), "u_v": u_v}
+    u_v = design.nc_rot.T @ np.asarray(u_z, float)
+    tau_nc = np.asarray(tau, float)[design.lev_term[~design.lev_centred]] if len(u_v) else np.zeros(0)
+    return {"b0_free": np.asarray(b0, float) + design.b0_shift @ (tau_nc * u_v), "u_v": u_v}
 
 
 def with_free_parameters(design: Design, init: dict) -> dict:
@@ -352,106 +323,82 @@ def stack_free(values: dict) -> np.ndarray:
     return np.concatenate([np.asarray(values[k], float).reshape(n, -1) for k in FREE_BLOCKS], axis=1)
 
 
-def _leaf_cells(structure: Structure, params, leaf_cells: list[tuple[int, np.ndarray]], L: int):
-    """Centred and non-centred cells (1-based, flattened l + p L) and their leaf-term numbers.
+def _leaf_cells(structure: Structure, params, leaf_terms: list[LeafTerm], L: int):
+    """Centred and non-centred cells (flattened l + p L) and their leaf-term numbers, all 0-based.
 
     Uncorrelated effects: per (leaf, parameter) cell, parameter by parameter. Correlated effects (LKJ):
-    leaf by leaf, Rl consecutive cells each in term order, a leaf wholly centred only when all its
-    cells would be, so that its vector of effects has one joint normal prior.
+    leaf by leaf, one cell per leaf term in term order, a leaf wholly centred only when all its cells
+    would be, so that its vector of effects has one joint normal prior.
     """
     cen_cell, cen_term, nc_cell, nc_term = [], [], [], []
+    pis = [params.index(lt.param) for lt in leaf_terms]
     if structure.leaf_correlation:
-        if len(leaf_cells) < 2:
-            have = ", ".join(params[pi] for pi, _ in leaf_cells) or "none"
-            raise SpecError(structure.name, [f"leaf_correlation applies only with leaf effects on two or more parameters "
-                                             f"(this structure has leaf effects on: {have}); add random = [\"leaf\"] to "
-                                             f"another parameter or drop leaf_correlation"])
-        all_centred = np.all([c for _, c in leaf_cells], axis=0)
+        if len(leaf_terms) < 2:
+            have = ", ".join(lt.param for lt in leaf_terms) or "none"
+            raise SpecError(structure.name, [Problem(
+                f"leaf_correlation applies only with leaf effects on two or more parameters (this structure has "
+                f"leaf effects on: {have}); add random = [\"leaf\"] to another parameter or drop leaf_correlation",
+                "too-few-leaf-terms", f"structure {structure.name!r} leaf_correlation")])
+        all_centred = np.all([lt.centred for lt in leaf_terms], axis=0)
         for l in range(L):
-            for k, (pi, _) in enumerate(leaf_cells):
-                (cen_cell if all_centred[l] else nc_cell).append(l + pi * L + 1)
-                (cen_term if all_centred[l] else nc_term).append(k + 1)
-        return cen_cell, cen_term, nc_cell, nc_term
-    for k, (pi, centred) in enumerate(leaf_cells):
-        cells = np.arange(L) + pi * L
-        cen_cell += list(cells[centred] + 1)
-        cen_term += [k + 1] * int(centred.sum())
-        nc_cell += list(cells[~centred] + 1)
-        nc_term += [k + 1] * int((~centred).sum())
-    return cen_cell, cen_term, nc_cell, nc_term
+            for k, pi in enumerate(pis):
+                (cen_cell if all_centred[l] else nc_cell).append(l + pi * L)
+                (cen_term if all_centred[l] else nc_term).append(k)
+    else:
+        for k, (pi, lt) in enumerate(zip(pis, leaf_terms)):
+            cells = np.arange(L) + pi * L
+            cen_cell += list(cells[lt.centred])
+            cen_term += [k] * int(lt.centred.sum())
+            nc_cell += list(cells[~lt.centred])
+            nc_term += [k] * int((~lt.centred).sum())
+    return tuple(np.asarray(a, int) for a in (cen_cell, cen_term, nc_cell, nc_term))
 
 
-def _check_fixed_columns(name: str, params, X: np.ndarray, fixed_map: list, coefs: list[Coefficient]) -> None:
+def _check_fixed_columns(name: str, params, X: np.ndarray, coef_param: np.ndarray, coefs: list[Coefficient]) -> None:
     """Every parameter's fixed columns and its intercept must be linearly independent over the leaves."""
     problems = []
     for pi, p in enumerate(params):
-        idx = [k for k, row in enumerate(fixed_map) if row[pi] > 0]
+        idx = list(np.flatnonzero(coef_param == pi))
         basis = np.ones((X.shape[0], 1))
         kept: list[int] = []
         for k in idx:
             col = X[:, k]
             if np.ptp(col) == 0:
-                problems.append(f"{p}: term {coefs[k].label!r} does not vary across leaves (one value for every leaf), "
-                                f"so it cannot be told from the intercept; drop it")
+                problems.append(Problem(f"{p}: term {coefs[k].label!r} does not vary across leaves (one value for "
+                                        f"every leaf), so it cannot be told from the intercept; drop it",
+                                        "constant-term", f"structure {name!r} {p}"))
                 continue
             trial = np.column_stack([basis, col])
             if np.linalg.matrix_rank(trial, tol=1e-8 * max(1.0, np.abs(trial).max())) < trial.shape[1]:
                 others = ", ".join(repr(coefs[j].label) for j in kept) or "nothing"
-                problems.append(f"{p}: fixed term {coefs[k].label!r} is perfectly collinear with the intercept and "
-                                f"{others}; drop one of them")
+                problems.append(Problem(f"{p}: fixed term {coefs[k].label!r} is perfectly collinear with the "
+                                        f"intercept and {others}; drop one of them", "collinear-term",
+                                        f"structure {name!r} {p}"))
                 continue
             basis, kept = trial, kept + [k]
     if problems:
         raise SpecError(name, problems)
 
 
-def _informed_leaves(param, ratio, leaf_fits, points_per_leaf, train) -> tuple[np.ndarray, str]:
-    """Which leaves' effects on ``param`` to centre, and the rule used, in words."""
-    enough = (points_per_leaf >= MIN_POINTS_CENTRED_LEAF) & train
-    if leaf_fits is None:
-        return enough, (f"centred where a leaf has >= {MIN_POINTS_CENTRED_LEAF} training points "
-                        f"(median {int(np.median(points_per_leaf[train]))})")
-    se = leaf_fits.link_se(param, ratio)
-    est = leaf_fits.link_values(param, ratio)
-    ok = train & np.isfinite(se) & np.isfinite(est)
-    if ok.sum() < 2:
-        return np.zeros_like(train), "non-centred: per-leaf fits do not inform this parameter"
-    between = float(np.sqrt(max(np.var(est[ok], ddof=1) - np.mean(se[ok] ** 2), 0.0)))
-    between = max(between, 0.02)
-    centred = enough & np.isfinite(se) & (se < CENTRED_SE_FRACTION * between)
-    return centred, (f"centred where the leaf's least-squares SE on the link scale is below {CENTRED_SE_FRACTION:g} x the between-leaf SD "
-                     f"({between:.3g}; median SE {np.median(se[ok]):.3g})")
-
-
-def responses(options: ModelOptions) -> list[fvcb.TemperatureResponse]:
-    """Temperature responses of Vcmax, Jmax, Rd and TPU (Bernacchi et al. 2001, 2003)."""
-    if options.peaked:
-        v, j = fvcb.VCMAX_PEAKED_LEUNING2002, fvcb.JMAX_PEAKED_LEUNING2002
-    else:
-        v, j = fvcb.TemperatureResponse(fvcb.VCMAX_HA), fvcb.TemperatureResponse(fvcb.JMAX_HA)
-    return [v, j, fvcb.TemperatureResponse(fvcb.RD_HA), fvcb.TemperatureResponse(fvcb.TPU_HA)]
-
-
 def level_values(design: Design, draws: dict[str, np.ndarray]) -> np.ndarray:
     """Effects of every level of every group term per draw, (S, Q), in the stacked level order."""
-    d = design.stan_data
-    u = np.zeros((draws["b0"].shape[0], d["Q"]))
-    if d["Q"]:
-        cen = np.asarray(d["cen_lev"], int) - 1
-        nc = np.asarray(d["nc_lev"], int) - 1
-        u[:, cen] = draws["u_c"]
-        u[:, nc] = draws["tau"][:, np.asarray(d["lev_term"])[nc] - 1] * draws["u_z"]
+    u = np.zeros((draws["b0"].shape[0], len(design.lev_term)))
+    if len(design.lev_term):
+        cen, nc = design.lev_centred, ~design.lev_centred      # an empty block may be absent (read from a file)
+        if cen.any():
+            u[:, cen] = draws["u_c"]
+        if nc.any():
+            u[:, nc] = draws["tau"][:, design.lev_term[nc]] * draws["u_z"]
     return u
 
 
 def heldout_levels(design: Design, leaf: int) -> list[tuple[int, int]]:
     """(group term r, stacked level index) of every level of ``leaf`` that has no training leaf."""
-    d = design.stan_data
     out = []
-    for r in range(d["R"]):
-        lev = np.asarray(d["re_lev"][r], int) - 1
+    for r, gt in enumerate(design.group_terms):
+        lev = gt.level_of_leaf
         if not design.train_leaves[lev == lev[leaf]].any():
-            out.append((r, int(lev[leaf])))
+            out.append((r, int(gt.start + lev[leaf])))
     return out
 
 
@@ -461,25 +408,26 @@ def leaf_link_values(design: Design, draws: dict[str, np.ndarray]) -> tuple[np.n
     ``draws`` holds the program's parameters flattened over chains: name -> (S, *shape).
     Returns (mu, eta), each shaped (S, L, P).
     """
-    d = design.stan_data
     S = draws["b0"].shape[0]
-    L, P = d["L"], len(design.params)
+    L, P = design.n_leaves, len(design.parameters)
     mu = np.repeat(draws["b0"][:, None, :], L, axis=1)
-    if d["K"]:
-        mu = mu + np.einsum("lk,sk,kp->slp", d["X"], draws["beta"], d["fixed_map"])
+    if len(design.coefficients):
+        fixed_map = np.eye(P)[design.coef_param]
+        mu = mu + np.einsum("lk,sk,kp->slp", design.X, draws["beta"], fixed_map)
     u = level_values(design, draws)
-    for r in range(d["R"]):
-        mu[:, :, d["re_par"][r] - 1] += u[:, d["re_lev"][r] - 1] * d["re_x"][r]
+    for gt in design.group_terms:
+        mu[:, :, design.param_index(gt.param)] += u[:, gt.start + gt.level_of_leaf] * gt.x
     mu_flat = mu.transpose(0, 2, 1).reshape(S, L * P)   # column-major cells: l + p L
     eta_flat = mu_flat.copy()
-    eta_flat[:, design.cen_cells] = draws["eta_c"]
-    if d["Mn"] and d.get("leaf_corr"):
+    if len(design.cen_cells):
+        eta_flat[:, design.cen_cells] = draws["eta_c"]
+    if len(design.nc_cells) and design.leaf_correlation:
         chol = leaf_cov_chol(design, draws)                                   # (S, Rl, Rl)
-        z = draws["eta_z"].reshape(S, -1, d["Rl"])                            # leaf by leaf
+        z = draws["eta_z"].reshape(S, -1, len(design.leaf_terms))             # leaf by leaf
         eta_flat[:, design.nc_cells] = mu_flat[:, design.nc_cells] + np.einsum("sij,slj->sli", chol, z).reshape(S, -1)
-    elif d["Mn"]:
+    elif len(design.nc_cells):
         eta_flat[:, design.nc_cells] = (mu_flat[:, design.nc_cells]
-                                        + draws["tau_leaf"][:, np.asarray(d["nc_term"]) - 1] * draws["eta_z"])
+                                        + draws["tau_leaf"][:, design.nc_term] * draws["eta_z"])
     eta = eta_flat.reshape(S, P, L).transpose(0, 2, 1)
     return mu, eta
 
@@ -487,19 +435,13 @@ def leaf_link_values(design: Design, draws: dict[str, np.ndarray]) -> tuple[np.n
 def leaf_cov_chol(design: Design, draws: dict[str, np.ndarray]) -> np.ndarray:
     """Cholesky factor of the covariance of one leaf's effects (leaf terms in order), per draw (S, Rl, Rl)."""
     tau = draws["tau_leaf"]
-    if design.stan_data.get("leaf_corr"):
+    if design.leaf_correlation:
         return tau[:, :, None] * draws["leaf_chol"][:, 0]
     return np.einsum("ij,sj->sij", np.eye(tau.shape[1]), tau)
 
 
 def natural_values(design: Design, eta: np.ndarray) -> dict[str, np.ndarray]:
     """Natural-scale leaf parameters from link-scale cells (..., L, P), ratios resolved."""
-    out = {}
     v = eta[..., 0]
-    for i, p in enumerate(design.params):
-        x = eta[..., i]
-        if LINKS.get(p, "log") == "logit":
-            out[p] = 1.0 / (1.0 + np.exp(-x))
-        else:
-            out[p] = np.exp(x + v) if design.ratio.get(p) and p != "vcmax25" else np.exp(x)
-    return out
+    return {par.name: par.from_link(eta[..., i], v if design.ratio.get(par.name) else None)
+            for i, par in enumerate(design.parameters)}

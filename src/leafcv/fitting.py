@@ -6,7 +6,6 @@ from typing import Callable
 
 import numpy as np
 import pandas as pd
-from scipy.special import expit
 
 from .data.dataset import Dataset
 from .design import Design, build_design, leaf_link_values
@@ -16,7 +15,8 @@ from .engines.base import Draws, Engine
 from .engines.program import program_text
 from .inits import LeafFits, cold_scaling, fit_leaves, structure_inits
 from .priors import PriorSet
-from .spec import LINKS, DataSpec, SamplerSpec, Structure
+from .parameters import PARAMETER
+from .spec import DataSpec, SamplerSpec, Structure
 
 #: Population-level parameters of the generic program (diagnostics and summaries run over these).
 POPULATION = ("b0", "beta", "tau", "tau_leaf", "sigma", "nu", "leaf_corr", "split_diff")
@@ -24,7 +24,7 @@ POPULATION = ("b0", "beta", "tau", "tau_leaf", "sigma", "nu", "leaf_corr", "spli
 
 def correlation_pairs(design: Design) -> list[tuple[int, int]]:
     """(i, j), i < j, leaf-term pairs whose correlation is reported when leaf effects are correlated."""
-    n = len(design.leaf_terms) if design.stan_data.get("leaf_corr") else 0
+    n = len(design.leaf_terms) if design.leaf_correlation else 0
     return [(i, j) for i in range(n) for j in range(i + 1, n)]
 
 
@@ -90,7 +90,7 @@ def fit_structure(
     seed = sampler.seed if seed is None else seed
     inits = structure_inits(design, leaf_fits, dataset, sampler.chains, seed)
     note_start, data = None, {**design.stan_data, **cold_scaling(design, leaf_fits)}
-    if warm_start is not None and not design.stan_data.get("leaf_corr"):
+    if warm_start is not None and not design.leaf_correlation:
         if warm_inits_too:
             inits = warm_inits(warm_start, design, sampler.chains)
         data = {**design.stan_data, **warm_scaling(warm_start, design)}
@@ -118,7 +118,6 @@ def warm_values(fit: StructureFit, design: Design, chain_draw: tuple[np.ndarray,
 
     c, i = (np.asarray(a, int) for a in chain_draw)
     src = {k: np.asarray(v, float)[c, i] for k, v in fit.draws.params.items()}
-    d = design.stan_data
     mu, eta = leaf_link_values(fit.design, src)
     n = len(c)
     mu_flat, eta_flat = mu.transpose(0, 2, 1).reshape(n, -1), eta.transpose(0, 2, 1).reshape(n, -1)
@@ -126,18 +125,17 @@ def warm_values(fit: StructureFit, design: Design, chain_draw: tuple[np.ndarray,
     eta_flat = np.where(held[None, :], mu_flat, eta_flat)
     u = level_values(fit.design, src)
     tau, tau_leaf = src["tau"], src["tau_leaf"]
-    lev_term = np.asarray(d["lev_term"], int) - 1
-    cen_lev, nc_lev = np.asarray(d["cen_lev"], int) - 1, np.asarray(d["nc_lev"], int) - 1
-    nc_term = np.asarray(d["nc_term"], int) - 1
+    lev_term, cen_lev, nc_lev = design.lev_term, design.lev_centred, ~design.lev_centred
     out = {
         "b0": src["b0"], "beta": src["beta"], "tau": tau, "tau_leaf": tau_leaf,
         "u_c": u[:, cen_lev], "u_z": u[:, nc_lev] / tau[:, lev_term[nc_lev]],
         "eta_c": eta_flat[:, design.cen_cells],
-        "eta_z": (eta_flat[:, design.nc_cells] - mu_flat[:, design.nc_cells]) / tau_leaf[:, nc_term],
+        "eta_z": (eta_flat[:, design.nc_cells] - mu_flat[:, design.nc_cells]) / tau_leaf[:, design.nc_term],
         "sigma": src["sigma"], "nu": src["nu"],
     }
-    if out["sigma"].shape[1] != d["S"]:      # residual SDs by curve type, a type missing in training
-        out["sigma"] = np.repeat(out["sigma"].mean(axis=1, keepdims=True), d["S"], axis=1)
+    S = len(design.sigma_groups)
+    if out["sigma"].shape[1] != S:      # residual SDs by curve type, a type missing in training
+        out["sigma"] = np.repeat(out["sigma"].mean(axis=1, keepdims=True), S, axis=1)
     free = [free_parameters(design, out["b0"][k], tau[k], out["u_z"][k]) for k in range(n)]
     out["b0_free"] = np.array([f["b0_free"] for f in free]).reshape(n, -1)
     out["u_v"] = np.array([f["u_v"] for f in free]).reshape(n, -1)
@@ -180,17 +178,14 @@ def warm_scaling(fit: StructureFit, design: Design) -> dict[str, np.ndarray]:
 def _labels(design: Design) -> dict[str, tuple[str, Callable[[np.ndarray], np.ndarray], str]]:
     """Parameter element -> (meaning, transform to the reported scale, unit)."""
     out = {}
-    link_name = {"log": "log", "logit": "logit"}
-    for i, p in enumerate(design.params):
-        link = LINKS.get(p, "log")
-        if design.ratio.get(p):
-            out[f"b0[{i + 1}]"] = (f"{p}/vcmax25 ratio at reference", np.exp, "ratio")
-        elif link == "logit":
-            out[f"b0[{i + 1}]"] = (f"{p} at reference", expit, "")
+    for i, par in enumerate(design.parameters):
+        p = par.name
+        if design.ratio.get(p):      # the intercept of a log ratio, back on the ratio scale
+            out[f"b0[{i + 1}]"] = (f"{p}/vcmax25 ratio at reference", par.from_link, "ratio")
         else:
-            out[f"b0[{i + 1}]"] = (f"{p} at reference", np.exp, "umol m-2 s-1")
+            out[f"b0[{i + 1}]"] = (f"{p} at reference", par.from_link, "" if par.link == "logit" else "umol m-2 s-1")
     for k, c in enumerate(design.coefficients):
-        target = f"log({c.param}/vcmax25)" if design.ratio.get(c.param) else f"{link_name[LINKS.get(c.param, 'log')]} {c.param}"
+        target = f"log({c.param}/vcmax25)" if design.ratio.get(c.param) else f"{PARAMETER[c.param].link} {c.param}"
         if c.kind == "trait":
             centre, scale = design.trait_transform[c.term]
             what = f"slope of {target} on {c.term} (per {scale:g} units)"
@@ -211,10 +206,10 @@ def _labels(design: Design) -> dict[str, tuple[str, Callable[[np.ndarray], np.nd
     for k, (i, j) in enumerate(correlation_pairs(design)):
         a, b = design.leaf_terms[i].param, design.leaf_terms[j].param
         out[f"leaf_corr[{k + 1}]"] = (f"correlation of leaf effects on {a} and {b}", lambda x: x, "")
-    for s in range(design.stan_data["S"]):
-        out[f"sigma[{s + 1}]"] = ("residual SD" + (f" ({design.sigma_groups[s]})" if design.stan_data["S"] > 1 else ""),
+    for s, covers in enumerate(design.sigma_groups):
+        out[f"sigma[{s + 1}]"] = ("residual SD" + (f" ({covers})" if len(design.sigma_groups) > 1 else ""),
                                   lambda x: x, "umol m-2 s-1")
-    if design.stan_data["student_t"]:
+    if design.student_t:
         out["nu[1]"] = ("Student-t degrees of freedom", lambda x: x, "")
     return out
 

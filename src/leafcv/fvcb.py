@@ -612,6 +612,65 @@ def limiting_rates(
                          gamma_star=gamma_star, km=km)
 
 
+@dataclass(frozen=True, eq=False)
+class PointFactors:
+    """The parts of the FvCB model at given points that do not depend on a leaf's parameters:
+    Wc = Vcmax25 fv fc, Wj = J(alpha, Q, Jmax25 fj, theta) fe, Rd = Rd25 fr, Wp = 3 TPU25 ft (the same
+    equations as `limiting_rates`, factored). Computed once, they let a caller evaluate A at many
+    parameter values (the quadrature over a held-out leaf's effects) for the cost of the light response.
+    """
+
+    q: FloatArray
+    fc: FloatArray      # (Ci - G*) / (Ci + Kc (1 + O / Ko))
+    fe: FloatArray      # (Ci - G*) / (e1 Ci + e2 G*)
+    fv: FloatArray
+    fj: FloatArray
+    fr: FloatArray
+    ft: FloatArray
+
+    @classmethod
+    def at(
+        cls,
+        ci: ArrayLike,
+        q: ArrayLike,
+        t_leaf_c: ArrayLike,
+        o2: ArrayLike = 210.0,
+        *,
+        electron: str = "4-8",
+        vcmax_response: TemperatureResponse = TemperatureResponse(VCMAX_HA),
+        jmax_response: TemperatureResponse = TemperatureResponse(JMAX_HA),
+        rd_response: TemperatureResponse = TemperatureResponse(RD_HA),
+        tpu_response: TemperatureResponse = TemperatureResponse(TPU_HA),
+        rset: RubiscoSet = RUBISCO_SETS[DEFAULT_RUBISCO_SET],
+    ) -> "PointFactors":
+        """The factors at points (arguments as in `limiting_rates`)."""
+        ci = np.asarray(ci, dtype=float)
+        kc, ko, gamma_star = rubisco_constants(t_leaf_c, rset)
+        e1, e2 = electron_coefficients(electron)
+        return cls(q=np.asarray(q, dtype=float),
+                   fc=(ci - gamma_star) / (ci + michaelis_km(kc, ko, o2)),
+                   fe=(ci - gamma_star) / (e1 * ci + e2 * gamma_star),
+                   fv=temperature_factor(t_leaf_c, vcmax_response), fj=temperature_factor(t_leaf_c, jmax_response),
+                   fr=temperature_factor(t_leaf_c, rd_response), ft=temperature_factor(t_leaf_c, tpu_response))
+
+    def net_assimilation(
+        self,
+        vcmax25: ArrayLike,
+        jmax25: ArrayLike,
+        alpha: ArrayLike,
+        theta: ArrayLike,
+        rd25: ArrayLike,
+        tpu25: ArrayLike | None = None,
+        transition: str = "min",
+        smooth_curvature: float = 0.99,
+    ) -> FloatArray:
+        """A at the points, broadcast over the parameters (put the point axis last)."""
+        j = electron_transport(alpha, self.q, np.asarray(jmax25, dtype=float) * self.fj, theta)
+        wc = np.asarray(vcmax25, dtype=float) * self.fv * self.fc
+        wp = None if tpu25 is None else tpu_limited(np.asarray(tpu25, dtype=float) * self.ft)
+        return _combine(wc, j * self.fe, wp, transition, smooth_curvature) - np.asarray(rd25, dtype=float) * self.fr
+
+
 def net_assimilation(
     ci: ArrayLike,
     q: ArrayLike,

@@ -11,16 +11,15 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy.optimize import least_squares
-from scipy.special import logit
 
 from . import fvcb
 from .data.dataset import Dataset
 from .design import Design, with_free_parameters
+from .parameters import PARAMETER
 
 THETA_INIT = 0.7
-#: Plausible ranges used to clip per-leaf estimates (REFERENCES.md typical magnitudes).
-_BOUNDS = {"vcmax25": (3.0, 400.0), "jmax25": (5.0, 800.0), "alpha": (0.03, 0.9), "rd25": (0.01, 10.0),
-           "tpu25": (0.5, 60.0)}
+#: The parameters fitted per leaf (theta held at THETA_INIT), in the order of LeafFits.cov.
+LEAF_FIT_PARAMETERS = ("vcmax25", "jmax25", "alpha", "rd25")
 
 
 @dataclass(frozen=True)
@@ -39,23 +38,19 @@ class LeafFits:
         """
         L = len(self.cov)
         if param == "theta":
-            return np.full(L, logit(THETA_INIT))
+            return np.full(L, PARAMETER["theta"].to_link(THETA_INIT))
         if param not in self.values:
             return np.full(L, np.nan)
-        if param == "alpha":
-            return logit(self.values["alpha"])
-        if ratio:
-            return np.log(self.values[param] / self.values["vcmax25"])
-        return np.log(self.values[param])
+        return PARAMETER[param].to_link(self.values[param], self.values["vcmax25"] if ratio else None)
 
     def link_se(self, param: str, ratio: bool) -> np.ndarray:
         """Per-leaf standard error of a parameter on its link scale (ratio: log of the ratio to Vcmax25).
 
         theta is not estimated per leaf: its standard error is infinite.
         """
-        k = {"vcmax25": 0, "jmax25": 1, "alpha": 2, "rd25": 3}.get(param)
-        if k is None:
+        if param not in LEAF_FIT_PARAMETERS:
             return np.full(len(self.cov), np.inf)
+        k = LEAF_FIT_PARAMETERS.index(param)
         if ratio and k in (1, 3):
             var = self.cov[:, k, k] + self.cov[:, 0, 0] - 2 * self.cov[:, 0, k]
         else:
@@ -67,18 +62,24 @@ def fit_leaves(dataset: Dataset) -> LeafFits:
     """Least-squares FvCB fit of each leaf's points (Vcmax25, Jmax25, alpha, Rd25; theta fixed)."""
     obs = dataset.obs
     L = dataset.n_leaves
-    out = {k: np.empty(L) for k in ("vcmax25", "jmax25", "alpha", "rd25")}
+    pars = [PARAMETER[p] for p in LEAF_FIT_PARAMETERS]
+    out = {p.name: np.empty(L) for p in pars}
     sq, n, failed = 0.0, 0, []
     cov = np.full((L, 4, 4), np.nan)
-    start = np.log([60.0, 110.0]).tolist() + [logit(0.3), np.log(1.0)]
-    lo = np.log([_BOUNDS["vcmax25"][0], _BOUNDS["jmax25"][0]]).tolist() + [logit(0.03), np.log(0.01)]
-    hi = np.log([_BOUNDS["vcmax25"][1], _BOUNDS["jmax25"][1]]).tolist() + [logit(0.9), np.log(10.0)]
+    # typical magnitudes (REFERENCES.md) as the start, each parameter's plausible bounds as the box
+    start = [p.to_link(v) for p, v in zip(pars, (60.0, 110.0, 0.3, 1.0))]
+    lo = [p.to_link(p.bounds[0]) for p in pars]
+    hi = [p.to_link(p.bounds[1]) for p in pars]
+
+    def natural(x):
+        return [p.from_link(v) for p, v in zip(pars, x)]
+
     for leaf, rows in obs.groupby("leaf_index", sort=True):
         ci, q, t, o2, a = (rows[c].to_numpy(float) for c in ("ci", "ppfd", "t_leaf", "o2", "a_net"))
 
         def resid(x):
-            return fvcb.net_assimilation(ci, q, t, np.exp(x[0]), np.exp(x[1]), 1 / (1 + np.exp(-x[2])),
-                                         THETA_INIT, np.exp(x[3]), o2=o2) - a
+            v, j, al, rd = natural(x)
+            return fvcb.net_assimilation(ci, q, t, v, j, al, THETA_INIT, rd, o2=o2) - a
 
         try:
             res = least_squares(resid, start, bounds=(lo, hi), method="trf", max_nfev=400)
@@ -89,8 +90,8 @@ def fit_leaves(dataset: Dataset) -> LeafFits:
             failed.append(int(leaf))
             x, r = np.array(start), resid(np.array(start))
             cov[leaf] = np.diag(np.full(4, np.inf))
-        out["vcmax25"][leaf], out["jmax25"][leaf] = np.exp(x[0]), np.exp(x[1])
-        out["alpha"][leaf], out["rd25"][leaf] = 1 / (1 + np.exp(-x[2])), np.exp(x[3])
+        for p, v in zip(pars, natural(x)):
+            out[p.name][leaf] = v
         sq += float(np.sum(r**2))
         n += len(r)
     return LeafFits(out, float(np.sqrt(sq / max(n, 1))), tuple(failed), cov)
@@ -102,24 +103,18 @@ def structure_inits(design: Design, fits: LeafFits, dataset: Dataset, chains: in
 
     ``spread`` is the SD of the jitter on link-scale quantities (and of the log of SDs).
     """
-    d = design.stan_data
-    L, P = d["L"], len(design.params)
+    L, P = design.n_leaves, len(design.parameters)
     train = design.train_leaves
     values = dict(fits.values)
     values["theta"] = np.full(L, THETA_INIT)
     values.setdefault("tpu25", 0.167 * values["vcmax25"] * 1.5)  # Harley et al. 1992 ratio, kept non-limiting
     link = np.empty((L, P))
-    for i, p in enumerate(design.params):
-        lo, hi = _BOUNDS.get(p, (0.05, 0.99))
-        v = np.clip(values[p], lo, hi)
-        if p in ("alpha", "theta"):
-            link[:, i] = logit(v)
-        elif design.ratio.get(p):
-            link[:, i] = np.log(v / np.clip(values["vcmax25"], *_BOUNDS["vcmax25"]))
-        else:
-            link[:, i] = np.log(v)
+    vcmax = np.clip(values["vcmax25"], *PARAMETER["vcmax25"].bounds)
+    for i, par in enumerate(design.parameters):
+        v = np.clip(values[par.name], *par.bounds)
+        link[:, i] = par.to_link(v, vcmax if design.ratio.get(par.name) else None)
     base, cells = _population_inits(design, link, train)
-    base["sigma"] = np.full(d["S"], max(_rmse(design, cells, dataset), 0.2))
+    base["sigma"] = np.full(len(design.sigma_groups), max(_rmse(design, cells, dataset), 0.2))
     rng = np.random.default_rng(seed)
     out = []
     for _ in range(chains):
@@ -138,27 +133,25 @@ def structure_inits(design: Design, fits: LeafFits, dataset: Dataset, chains: in
 
 def _population_inits(design: Design, link: np.ndarray, train: np.ndarray) -> dict:
     """Least-squares decomposition of per-leaf link values into the structure's terms."""
-    d = design.stan_data
     L, P = link.shape
-    X = d["X"]
-    fmap = d["fixed_map"]
+    X = design.X
     b0 = np.empty(P)
-    beta = np.zeros(d["K"])
+    beta = np.zeros(len(design.coefficients))
     resid = np.empty_like(link)
     for i in range(P):
-        cols = np.flatnonzero(fmap[:, i] > 0) if d["K"] else np.array([], int)
+        cols = np.flatnonzero(design.coef_param == i)
         A = np.column_stack([np.ones(L)] + [X[:, c] for c in cols])[train]
         coef, *_ = np.linalg.lstsq(A, link[train, i], rcond=None)
         b0[i] = coef[0]
         beta[cols] = coef[1:]
         full = np.column_stack([np.ones(L)] + [X[:, c] for c in cols])
         resid[:, i] = link[:, i] - full @ coef
-    u = np.zeros(d["Q"])
-    tau = np.full(d["R"], 0.1)
+    u = np.zeros(len(design.lev_term))
+    tau = np.full(len(design.group_terms), 0.1)
     for r, gt in enumerate(design.group_terms):
         if gt.slope_of:        # random slopes start at the fixed slope (deviations 0, SD 0.1)
             continue
-        lev = np.asarray(d["re_lev"][r]) - 1 - gt.start
+        lev = gt.level_of_leaf
         i = design.params.index(gt.param)
         means = np.array([resid[train & (lev == k), i].mean() if (train & (lev == k)).any() else 0.0
                           for k in range(len(gt.levels))])
@@ -166,20 +159,15 @@ def _population_inits(design: Design, link: np.ndarray, train: np.ndarray) -> di
         tau[r] = max(float(np.std(means)), 0.05)
         resid[:, i] -= means[lev]
     # leaf terms: SD of what is left per parameter
-    tau_leaf = np.full(d["Rl"], 0.1)
-    term_par = {}
-    for k, lt in enumerate(design.leaf_terms):
-        i = design.params.index(lt.param)
-        term_par[k + 1] = i
+    tau_leaf = np.full(len(design.leaf_terms), 0.1)
+    for k, i in enumerate(design.leaf_term_params):
         tau_leaf[k] = max(float(np.std(resid[train, i])), 0.05)
     mu = link - resid  # population means per cell at the inits
-    cen_lev = np.asarray(d["cen_lev"], int) - 1
-    nc_lev = np.asarray(d["nc_lev"], int) - 1
-    lev_term = np.asarray(d["lev_term"], int) - 1
+    cen_lev, nc_lev = design.lev_centred, ~design.lev_centred
+    lev_term = design.lev_term
     flat_link = link.T.reshape(-1)
     flat_mu = mu.T.reshape(-1)
-    nc_terms = np.asarray(d["nc_term"], int)
-    eta_z = np.array([(flat_link[c] - flat_mu[c]) / tau_leaf[t - 1] for c, t in zip(design.nc_cells, nc_terms)])
+    eta_z = (flat_link[design.nc_cells] - flat_mu[design.nc_cells]) / tau_leaf[design.nc_term]
     held_out = ~train
     if held_out.any() and len(design.nc_cells):
         # held-out leaves have no data: start them at the population mean
@@ -189,10 +177,10 @@ def _population_inits(design: Design, link: np.ndarray, train: np.ndarray) -> di
     cells = np.column_stack([link[:, i] if p in leaf_params else mu[:, i] for i, p in enumerate(design.params)])
     return {
         "b0": b0, "beta": beta, "tau": tau,
-        "u_c": u[cen_lev], "u_z": u[nc_lev] / tau[lev_term[nc_lev]] if len(nc_lev) else np.zeros(0),
+        "u_c": u[cen_lev], "u_z": u[nc_lev] / tau[lev_term[nc_lev]],
         "tau_leaf": tau_leaf, "eta_c": flat_link[design.cen_cells], "eta_z": np.clip(eta_z, -3, 3),
-        "nu": np.array([10.0])[: d["student_t"]],
-        **({"leaf_chol": np.eye(d["Rl"])[None]} if d["leaf_corr"] else {}),
+        "nu": np.array([10.0])[: int(design.student_t)],
+        **({"leaf_chol": np.eye(len(design.leaf_terms))[None]} if design.leaf_correlation else {}),
     }, cells
 
 
@@ -219,8 +207,7 @@ def cold_scaling(design: Design, fits: LeafFits) -> dict[str, np.ndarray]:
     that over the trait's SD; the log of an SD of K levels to 1 / sqrt(2 (K - 1)); a well-measured leaf's
     own value to its least-squares standard error; a residual SD's log to 1 / sqrt(2 points);
     standard-normal effects to 1. Offsets stay 0."""
-    d = design.stan_data
-    L, P = d["L"], len(design.params)
+    L, P = design.n_leaves, len(design.parameters)
     train = design.train_leaves
     n = max(int(train.sum()), 2)
     spread, se = np.full(P, np.nan), np.full((L, P), np.inf)
@@ -231,27 +218,23 @@ def cold_scaling(design: Design, fits: LeafFits) -> dict[str, np.ndarray]:
             se[:, i] = fits.link_se(p, bool(design.ratio.get(p)))
     spread = np.where(np.isfinite(spread), spread, 0.3)
     b0 = np.clip(spread / np.sqrt(n), 0.01, 1.0)
-    X = np.asarray(d["X"], float)
-    fmap = np.asarray(d["fixed_map"], float)
-    beta = np.ones(d["K"])
-    for k in range(d["K"]):
-        i = int(np.argmax(fmap[k]))
+    X = design.X
+    beta = np.ones(len(design.coefficients))
+    for k, i in enumerate(design.coef_param):
         sd_x = float(np.std(X[train, k]))
         beta[k] = np.clip(b0[i] / sd_x, 1e-4, 10.0) if sd_x > 0 else 1.0
     levels = np.array([len(g.levels) for g in design.group_terms], float)
     log_tau = 1 / np.sqrt(2 * np.maximum(levels - 1, 1))
     lev_par = np.array([design.params.index(g.param) for g in design.group_terms], int)
-    lev_term = np.asarray(d["lev_term"], int) - 1
-    cen_lev = np.asarray(d["cen_lev"], int) - 1
-    u_c = np.clip(b0[lev_par[lev_term[cen_lev]]] * np.sqrt(levels[lev_term[cen_lev]]), 0.01, 1.0) \
-        if len(cen_lev) else np.zeros(0)
+    cen_term = design.lev_term[design.lev_centred]
+    u_c = np.clip(b0[lev_par[cen_term]] * np.sqrt(levels[cen_term]), 0.01, 1.0) if len(cen_term) else np.zeros(0)
     cells = design.cen_cells
     cell_leaf, cell_par = cells % L, cells // L
     eta_c = np.clip(se[cell_leaf, cell_par], 0.01, np.maximum(spread[cell_par], 0.01))
     eta_c = np.where(np.isfinite(eta_c), eta_c, np.maximum(spread[cell_par], 0.01))
-    groups = np.asarray(d["sigma_group"], int)
-    counts = np.bincount(groups, minlength=d["S"] + 1)[1:]
+    counts = np.bincount(design.points.sigma_group, minlength=len(design.sigma_groups))
     log_sigma = 1 / np.sqrt(2 * np.maximum(counts, 1))
-    mult = np.concatenate([b0, beta, log_tau, u_c, np.ones(d["Q"] - d["Qc"]),
-                           np.full(d["Rl"], 1 / np.sqrt(2 * (n - 1))), eta_c, np.ones(d["Mn"]), log_sigma])
+    mult = np.concatenate([b0, beta, log_tau, u_c, np.ones(int((~design.lev_centred).sum())),
+                           np.full(len(design.leaf_terms), 1 / np.sqrt(2 * (n - 1))), eta_c,
+                           np.ones(len(design.nc_cells)), log_sigma])
     return {"n_scale": int(mult.size), "scale_offset": np.zeros(mult.size), "scale_mult": mult.astype(float)}

@@ -8,12 +8,15 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from pathlib import Path
 
-#: Structured FvCB parameters, in the order the Stan program uses.
-PARAMETERS: tuple[str, ...] = ("vcmax25", "jmax25", "alpha", "theta", "rd25")
+from .parameters import PARAMETER_TABLE, parameters
+
+#: Structured FvCB parameters a structure names, in the order the Stan program uses (tpu25 is added by
+#: the model option tpu and takes no terms).
+PARAMETERS: tuple[str, ...] = tuple(p.name for p in parameters(tpu=False))
 #: Parameters that may be tied to vcmax25 as a ratio.
-RATIO_PARAMETERS: tuple[str, ...] = ("jmax25", "rd25")
+RATIO_PARAMETERS: tuple[str, ...] = tuple(p.name for p in PARAMETER_TABLE if p.ratio_capable)
 #: Link function of each parameter.
-LINKS: dict[str, str] = {"vcmax25": "log", "jmax25": "log", "alpha": "logit", "theta": "logit", "rd25": "log"}
+LINKS: dict[str, str] = {p.name: p.link for p in PARAMETER_TABLE}
 #: leafcv's own observation variables; a comparison file names them by their data roles (leafcv.data.roles).
 REQUIRED_COLUMNS: tuple[str, ...] = ("a_net", "ci", "ppfd", "leaf")
 OPTIONAL_COLUMNS: tuple[str, ...] = ("t_leaf", "o2", "curve")
@@ -112,6 +115,7 @@ class Comparison:
     cv: CVSpec
     structures: tuple[Structure, ...]
     format: int = 1
+    question: str = ""                          # the question the comparison asks, in the user's words
 
     def structure(self, name: str) -> Structure:
         for s in self.structures:

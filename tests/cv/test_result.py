@@ -5,10 +5,12 @@ Outside references: the SE of a total elpd with the sample variance, sqrt(G · v
 against hand computations written out beside each check; the k-hat threshold
 min(1 - 1/log10 S, 0.7) (Vehtari, Simpson, Gelman, Yao & Gabry 2024, JMLR 25(72)); Monte Carlo
 variances of independent estimates add, so the MCSE of a sum is the root sum of squares
-(variance of a sum of independent variables, any probability textbook).
+(variance of a sum of independent variables, any probability textbook); ArviZ 0.23's ``loo``, called
+directly on a simulated log likelihood, for the total, its SE and the k-hat threshold.
 """
 from __future__ import annotations
 
+import arviz as az
 import numpy as np
 import pytest
 
@@ -16,6 +18,9 @@ from leafcv.cv.result import CVResult, check_comparable
 
 LEAVES = ("L1", "L2", "L3", "L4")
 ELPD = np.array([-10.0, -14.0, -12.0, -12.0])
+G = 30
+LEAVES_G = tuple(f"leaf{i:02d}" for i in range(G))
+DDOF1 = np.sqrt(G / (G - 1))     # sample SD / population SD: sqrt(G / (G - 1))
 
 
 def make(name: str = "s", elpd_i=ELPD, **kwargs) -> CVResult:
@@ -118,3 +123,22 @@ def test_non_finite_elpd_only_refused_where_the_structure_would_be_ranked():
     check_comparable([make("a"), make("f", broken, grade="failed")])
     with pytest.raises(ValueError, match="per-leaf elpd is not finite in: m"):
         check_comparable([make("a"), make("m", broken, grade="marginal")])
+
+
+def test_se_and_elpd_match_arviz_loo():
+    rng = np.random.default_rng(5)
+    log_lik = rng.normal(-20.0, 1.0, size=(1, 1000, G)) + rng.normal(0.0, 2.0, size=(1, 1, G))
+    idata = az.from_dict(log_likelihood={"y": log_lik})
+    loo = az.loo(idata, pointwise=True, reff=1.0)
+    res = make("m", loo["loo_i"].values, pareto_k=loo["pareto_k"].values, n_draws=1000, leaves=LEAVES_G)
+    assert res.elpd == pytest.approx(float(loo["elpd_loo"]), rel=1e-12)
+    # ArviZ 0.23: loo_lppd_se = sqrt(n * var(loo_i)) with ddof=0; leafcv uses ddof=1
+    assert res.se == pytest.approx(float(loo["se"]) * DDOF1, rel=1e-12)
+    assert res.khat_threshold == pytest.approx(float(loo["good_k"]), rel=1e-12)
+
+
+def test_result_rejects_inconsistent_shapes():
+    with pytest.raises(ValueError, match="elpd_i has 3 values"):
+        make("m", [1.0, 2.0, 3.0], leaves=LEAVES_G)
+    with pytest.raises(ValueError, match="method"):
+        make("m", np.zeros(G), method="loo", leaves=LEAVES_G)

@@ -124,6 +124,49 @@ _SAMPLE_STATS = {"lp__": "lp", "accept_stat__": "acceptance_rate", "stepsize__":
                  "energy__": "energy"}
 
 
+def _labelled_dims(design) -> tuple[dict[str, list[str]], dict[str, list], dict[str, tuple[str, list]]]:
+    """Dimension names, coordinates and per-coordinate attributes (as extra coordinates) of the posterior's
+    population variables, from the design's terms."""
+    params = list(design.params)
+    coefs = design.coefficients
+    dims = {"b0": ["parameter"], "b0_free": ["parameter"], "beta": ["coefficient"],
+            "tau": ["group_term"], "log_tau": ["group_term"], "tau_leaf": ["leaf_term"],
+            "log_tau_leaf": ["leaf_term"], "sigma": ["sigma_group"], "log_sigma": ["sigma_group"],
+            "leaf_value": [LEAF_DIM, "parameter"], "level_value": ["level"], "split_diff": ["split"],
+            "leaf_corr": ["leaf_pair"]}
+    coords: dict[str, list] = {
+        "parameter": params,
+        "coefficient": [c.label for c in coefs],
+        "group_term": [g.label for g in design.group_terms],
+        "leaf_term": [lt.param for lt in design.leaf_terms],
+        "sigma_group": list(design.sigma_groups),
+        "level": [f"{g.label}: {lev}" for g in design.group_terms for lev in g.levels],
+    }
+    extra = {
+        "parameter_link": ("parameter", [p.link for p in design.parameters]),
+        "parameter_ratio_to_vcmax25": ("parameter", [int(bool(design.ratio.get(p))) for p in params]),
+        "coefficient_parameter": ("coefficient", [c.param for c in coefs]),
+        "coefficient_kind": ("coefficient", [c.kind for c in coefs]),
+        "coefficient_term": ("coefficient", [c.term for c in coefs]),
+        "coefficient_grouping": ("coefficient", [c.group for c in coefs]),
+        "coefficient_centre": ("coefficient", [design.trait_transform[c.term][0] if c.kind != "level" else np.nan
+                                               for c in coefs]),
+        "coefficient_scale": ("coefficient", [design.trait_transform[c.term][1] if c.kind != "level" else np.nan
+                                              for c in coefs]),
+        "group_term_parameter": ("group_term", [g.param for g in design.group_terms]),
+        "group_term_grouping": ("group_term", [g.grouping for g in design.group_terms]),
+        "group_term_slope_of": ("group_term", [g.slope_of or "" for g in design.group_terms]),
+        "level_group_term": ("level", [g.label for g in design.group_terms for _ in g.levels]),
+        "level_name": ("level", [lev for g in design.group_terms for lev in g.levels]),
+    }
+    from ..fitting import correlation_pairs, split_pairs
+
+    coords["split"] = [f"{coefs[w].term} {coefs[w].group}" for w, _ in split_pairs(design)]
+    coords["leaf_pair"] = [f"{design.leaf_terms[i].param}~{design.leaf_terms[j].param}"
+                           for i, j in correlation_pairs(design)]
+    return dims, coords, extra
+
+
 def to_inference_data(fit, dataset, log_m: np.ndarray | None = None) -> az.InferenceData:
     """One structure's fit as ArviZ InferenceData.
 
@@ -142,24 +185,45 @@ def to_inference_data(fit, dataset, log_m: np.ndarray | None = None) -> az.Infer
     Returns
     -------
     arviz.InferenceData
-        ``posterior`` (every parameter of the program, on its own scale), ``sample_stats``,
+        ``posterior``: every parameter of the program on its own scale, the population ones labelled
+        (``b0`` over ``parameter``, on the link scale, a log ratio to vcmax25 where
+        ``parameter_ratio_to_vcmax25`` is 1; ``beta`` over ``coefficient`` with its parameter, kind, trait,
+        grouping, and the trait's centre and scale as coordinates; ``tau`` over ``group_term``;
+        ``tau_leaf`` over ``leaf_term``; ``sigma`` over ``sigma_group``; ``level_value``, the link-scale
+        effect of every level of every group term, over ``level``), plus ``leaf_value`` (leaf,
+        parameter): each leaf's parameters on the natural scale (Vcmax25, Jmax25 and Rd25 in
+        umol m-2 s-1 at 25 C; alpha, theta unitless), ratios resolved. ``sample_stats``,
         ``observed_data`` (net assimilation of the points in the likelihood, dimension ``point``) and,
         with ``log_m``, ``log_likelihood``. The leaf ids are the ``leaf`` coordinate.
     """
+    from ..design import leaf_link_values, level_values, natural_values
+
     draws = fit.draws
+    design = fit.design
     C, D = draws.n_chains, draws.n_draws
     posterior = {k: np.asarray(v) for k, v in draws.params.items() if np.size(v)}
+    flat = {k: np.asarray(v).reshape((C * D,) + np.shape(v)[2:]) for k, v in draws.params.items()}
+    _, eta = leaf_link_values(design, flat)
+    nat = natural_values(design, eta)
+    posterior["leaf_value"] = np.stack([nat[p] for p in design.params], axis=-1).reshape(C, D, eta.shape[1], -1)
+    if len(design.lev_term):
+        posterior["level_value"] = level_values(design, flat).reshape(C, D, -1)
     stats = {name: np.asarray(draws.sampler[src]) for src, name in _SAMPLE_STATS.items() if src in draws.sampler}
     if "diverging" in stats:
         stats["diverging"] = stats["diverging"].astype(bool)
-    obs = dataset.obs.iloc[fit.design.obs_index]
+    obs = dataset.obs.iloc[design.obs_index]
     leaves = [str(x) for x in dataset.leaves["leaf"]]
     point_leaf = [leaves[i] for i in obs["leaf_index"].to_numpy()]
     observed = xr.Dataset({"net_assimilation": ("point", obs["a_net"].to_numpy(float))},
                           coords={"point": np.arange(len(obs)), "point_leaf": ("point", point_leaf)})
-    groups = {"posterior": posterior, "sample_stats": stats}
-    idata = az.from_dict(**groups, attrs={"structure": fit.design.structure.name, "engine": draws.engine,
-                                          "seed": int(draws.seed)})
+    dims, coords, extra = _labelled_dims(design)
+    coords[LEAF_DIM] = leaves
+    dims = {k: v for k, v in dims.items() if k in posterior}
+    idata = az.from_dict(posterior=posterior, sample_stats=stats, dims=dims, coords=coords,
+                         attrs={"structure": design.structure.name, "engine": draws.engine, "seed": int(draws.seed)})
+    post = idata.posterior
+    post = post.assign_coords({name: (dim, values) for name, (dim, values) in extra.items() if dim in post.dims})
+    idata.posterior = post
     idata.add_groups({"observed_data": observed})
     if log_m is not None:
         lm = np.asarray(log_m, float)

@@ -11,8 +11,8 @@ from scipy import stats
 
 from .. import fvcb
 from ..data.dataset import Dataset
-from ..design import Design, heldout_levels, leaf_cov_chol, level_values, responses
-from ..spec import LINKS
+from ..design import Design, heldout_levels, leaf_cov_chol, level_values, natural_values
+from ..terms import responses
 
 
 def flatten_draws(params: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
@@ -30,22 +30,14 @@ class LeafModel:
         them in ``shared`` as (term r, level, parameter index, covariate x), for a caller that
         integrates one level effect shared by all the leaves of that level (`leafcv.cv.heldout`)."""
         self.design, self.leaf = design, leaf
-        d = design.stan_data
         obs = dataset.obs[dataset.obs["leaf_index"] == leaf]
         self.points = obs
         self.y = obs["a_net"].to_numpy(float)
-        ci, q, t, o2 = (obs[c].to_numpy(float) for c in ("ci", "ppfd", "t_leaf", "o2"))
-        kc, ko, gstar = fvcb.rubisco_constants(t)
-        self.q = q
-        self.fc = (ci - gstar) / (ci + kc * (1 + o2 / ko))
-        self.fe = (ci - gstar) / (d["e1"] * ci + d["e2"] * gstar)
-        rv, rj, rr, rt = responses(design.options)
-        self.fv, self.fj = fvcb.temperature_factor(t, rv), fvcb.temperature_factor(t, rj)
-        self.fr, self.ft = fvcb.temperature_factor(t, rr), fvcb.temperature_factor(t, rt)
+        self.factors = self.factors_at(*(obs[c].to_numpy(float) for c in ("ci", "ppfd", "t_leaf", "o2")))
         mu, eta = link_values
         self.mu, self.eta = mu[:, leaf, :].copy(), eta[:, leaf, :].copy()          # (S, P)
         S = len(self.mu)
-        leaf_pars = [design.params.index(lt.param) for lt in design.leaf_terms]
+        leaf_pars = design.leaf_term_params
         # a level with no training leaf (a held-out species or month) is integrated too: its effect
         # u ~ N(0, tau^2) enters the link value as u x, so the leaf's value on that parameter is
         # normal with the variances added (independent normal terms; random slopes scale by x^2)
@@ -55,8 +47,9 @@ class LeafModel:
         if self.heldout:
             u = level_values(design, draws)
             for r, lev in self.heldout:
-                pi = d["re_par"][r] - 1
-                x = float(d["re_x"][r][leaf])
+                gt = design.group_terms[r]
+                pi = design.param_index(gt.param)
+                x = float(gt.x[leaf])
                 self.mu[:, pi] -= u[:, lev] * x
                 if pi not in leaf_pars:
                     self.eta[:, pi] -= u[:, lev] * x    # no leaf effect: its value is the population mean
@@ -73,11 +66,12 @@ class LeafModel:
         for pi, v in extra.items():
             k = self.effect_params.index(pi)
             cov[:, k, k] += v
-        if d.get("leaf_corr"):
+        if design.leaf_correlation:
             self.sd = np.linalg.cholesky(cov)               # prior scale as a Cholesky factor (S, d, d)
         else:
             self.sd = np.sqrt(np.diagonal(cov, axis1=1, axis2=2)).copy()   # SDs (S, d)
         sig = draws["sigma"]
+        self.sigma_draws = sig
         if design.sigma_kinds:
             # residual SDs are per curve type of the training points, in the design's order
             kinds = list(design.sigma_kinds)
@@ -93,7 +87,12 @@ class LeafModel:
             self.sigma = sig[:, [kinds.index(k) for k in here]]
         else:
             self.sigma = np.repeat(sig[:, :1], len(self.y), axis=1)
-        self.nu = draws["nu"][:, 0] if d["student_t"] else None
+        self.nu = draws["nu"][:, 0] if design.student_t else None
+
+    def sigma_of(self, curve_type: str) -> np.ndarray:
+        """Residual SD of a new point of ``curve_type`` per draw, (S,)."""
+        kinds = list(self.design.sigma_kinds)
+        return self.sigma_draws[:, kinds.index(curve_type)] if kinds else self.sigma_draws[:, 0]
 
     @property
     def dim(self) -> int:
@@ -109,23 +108,22 @@ class LeafModel:
 
     def assimilation(self, eta: np.ndarray) -> np.ndarray:
         """Predicted A at the leaf's points for link-scale values eta (..., P) -> (..., n)."""
-        e = eta[..., None]
-        ratio = self.design.ratio
-        P = self.design.params
-        v25 = np.exp(e[..., 0, :])
-        j25 = np.exp(e[..., 1, :] + (e[..., 0, :] if ratio["jmax25"] else 0.0))
-        alpha = 1 / (1 + np.exp(-e[..., 2, :]))
-        theta = 1 / (1 + np.exp(-e[..., 3, :]))
-        r25 = np.exp(e[..., 4, :] + (e[..., 0, :] if ratio["rd25"] else 0.0))
-        j = fvcb.electron_transport(alpha, self.q, j25 * self.fj, np.clip(theta, 0, 1))
-        wc = v25 * self.fv * self.fc
-        wj = j * self.fe
+        return self.assimilation_at(eta, self.factors)
+
+    def assimilation_at(self, eta: np.ndarray, factors: fvcb.PointFactors) -> np.ndarray:
+        """Predicted A at other points (``factors``, e.g. a Ci or PPFD grid) for link-scale values eta
+        (..., P) -> (..., n)."""
+        nat = {k: v[..., None] for k, v in natural_values(self.design, eta).items()}
         opts = self.design.options
-        gross = fvcb.colimit(wc, wj, opts.smooth_curvature) if opts.transition == "smooth" else np.minimum(wc, wj)
-        if len(P) > 5:
-            wp = 3 * np.exp(e[..., 5, :]) * self.ft
-            gross = fvcb.colimit(gross, wp, opts.smooth_curvature) if opts.transition == "smooth" else np.minimum(gross, wp)
-        return gross - r25 * self.fr
+        return factors.net_assimilation(nat["vcmax25"], nat["jmax25"], nat["alpha"], nat["theta"], nat["rd25"],
+                                        nat.get("tpu25"), opts.transition, opts.smooth_curvature)
+
+    def factors_at(self, ci, q, t_leaf, o2) -> fvcb.PointFactors:
+        """PointFactors of this model's options at other points."""
+        r = responses(self.design.options)
+        return fvcb.PointFactors.at(ci, q, t_leaf, o2, electron=self.design.options.electron,
+                                    vcmax_response=r["vcmax"], jmax_response=r["jmax"], rd_response=r["rd"],
+                                    tpu_response=r["tpu"])
 
     def loglik_rows(self, rows: np.ndarray):
         """b (len(rows), Q, d) -> log-likelihood of the leaf's points (len(rows), Q)."""

@@ -27,6 +27,7 @@ from ..fitting import StructureFit, fit_structure
 from ..inits import LeafFits
 from ..spec import Comparison, ParamSpec, SamplerSpec, Structure
 from .leafmodel import LeafModel, flatten_draws
+from .predictions import curve_draws, curves_table, points_table, summarise_curves
 from .psis import integrated_loo, khat_threshold, refit_elpd
 from .quadrature import LEAF_TOL, QuadratureInfo, leaf_log_marginal
 from .result import CVResult
@@ -72,6 +73,7 @@ class CVDetails:
     unresolved: list[str] = field(default_factory=list)   # leaves whose quadrature bound exceeds LEAF_TOL
     notes: list[str] = field(default_factory=list)
     fits: list[dict] = field(default_factory=list)       # every fit made: role, seeds, attempts, diagnostics
+    psis_khat: list[float] = field(default_factory=list)  # PSIS k-hat of every leaf (auto), refitted ones too
 
 
 @dataclass(frozen=True)
@@ -82,6 +84,7 @@ class Scored:
     pred_mean: list[np.ndarray]       # per leaf: (S, n points) predictive means with effects integrated
     quad: list[QuadratureInfo]        # per leaf
     chains: int
+    curves: list = field(default_factory=list)   # per leaf: CurveDraws (predictive curves) or None
 
 
 def _fold_seed_base(sampler: SamplerSpec, method: str) -> int:
@@ -123,7 +126,7 @@ def score_leaves(fit: StructureFit, dataset: Dataset, leaves: np.ndarray, leaf_f
     lv = leaf_link_values(fit.design, draws)
     S = len(draws["b0"])
     log_m = np.empty((S, len(leaves)))
-    preds, quad = [], []
+    preds, quad, curves = [], [], []
     for j, g in enumerate(leaves):
         lm = LeafModel(fit.design, dataset, draws, lv, int(g))
         if lm.dim == 0:
@@ -138,7 +141,8 @@ def score_leaves(fit: StructureFit, dataset: Dataset, leaves: np.ndarray, leaf_f
                                                   weighting="importance" if in_fit else "mean")
             quad.append(info)
         preds.append(lm.predictive_mean())
-    return Scored(log_m, preds, quad, fit.draws.n_chains)
+        curves.append(curve_draws(lm, fit.draws.seed))
+    return Scored(log_m, preds, quad, fit.draws.n_chains, curves)
 
 
 def score_level(fit: StructureFit, dataset: Dataset, leaves: np.ndarray, leaf_fits: LeafFits
@@ -249,7 +253,12 @@ def fit_with_retries(structure, dataset, comparison, sampler, leaf_fits, train, 
         entry = {"role": role, "attempt": attempt + 1, "seed": s, "retry_cause": cause,
                  "warm_start": warm is not None, "contributes": True, "kept": False,
                  "chains": smp.chains, "warmup": smp.warmup, "draws": smp.draws,
-                 "adapt_delta": smp.adapt_delta, "seconds": secs, **dg.as_dict()}
+                 "adapt_delta": smp.adapt_delta, "seconds": secs, "init_note": fit.init_note,
+                 "parameterisation": [f"leaf effects on {lt.param}: {lt.centred_leaves} centred, "
+                                      f"{lt.noncentred_leaves} non-centred ({lt.reason})" for lt in fit.design.leaf_terms]
+                                     + [f"{g.label}: {sum(g.centred)} of {len(g.levels)} levels centred ({g.reason})"
+                                        for g in fit.design.group_terms],
+                 **dg.as_dict()}
         details.fits.append(entry)
         if best is None or rank[dg.grade] >= rank[best.diagnostics.grade]:
             best, best_entry = fit, entry
@@ -292,6 +301,7 @@ class _Leafwise:
     khat: np.ndarray = None
     how: list = None
     preds: dict = field(default_factory=dict)
+    curves: dict = field(default_factory=dict)
 
     def __post_init__(self):
         nan = np.full(self.L, np.nan)
@@ -321,7 +331,8 @@ def _refit_leaves(structure, dataset, comparison, sampler, leaf_fits, folds, see
         grades.append(grade)
         for j, g in enumerate(held):
             e, m = refit_elpd(sc.log_m[:, j], sc.chains)
-            out[int(g)] = (e, m, sc.quad[j].bound, sc.pred_mean[j].mean(axis=0), sc.quad[j], grade)
+            curve = summarise_curves(sc.curves[j]) if sc.curves[j] is not None else None
+            out[int(g)] = (e, m, sc.quad[j].bound, sc.pred_mean[j].mean(axis=0), sc.quad[j], grade, curve)
     return out, grades
 
 
@@ -387,10 +398,13 @@ def cross_validate(structure: Structure, dataset: Dataset, comparison: Compariso
         est = integrated_loo(sc.log_m, sc.chains)
         _note_quadrature(details, leaf_ids, range(L), sc.quad)
         acc.elpd[:], acc.mcse[:], acc.khat[:] = est.elpd, est.mcse, est.khat
+        details.psis_khat = [float(k) for k in est.khat]
         acc.bound[:] = [q.bound for q in sc.quad]
         acc.how = ["psis"] * L
         for g in range(L):
             acc.preds[g] = np.exp(est.log_weights[g]) @ sc.pred_mean[g]
+            if sc.curves[g] is not None:
+                acc.curves[g] = summarise_curves(sc.curves[g], est.log_weights[g])
         details.quadrature_seconds = time.perf_counter() - t
         thr = khat_threshold(n_draws)
         flagged = [int(g) for g in np.flatnonzero(est.khat > thr)]
@@ -432,9 +446,10 @@ def cross_validate(structure: Structure, dataset: Dataset, comparison: Compariso
             if f["role"].startswith("refit without ") and f["role"] not in used_roles:
                 f["contributes"] = False        # a spot check that agreed: recorded, not scored
         for g in replace_leaves:
-            e, m, b, pred, _, grade = ex[g]
+            e, m, b, pred, _, grade, curve = ex[g]
             acc.elpd[g], acc.mcse[g], acc.bound[g], acc.khat[g], acc.how[g] = e, m, b, np.nan, "refit"
             acc.preds[g] = pred
+            _set_curve(acc, g, curve)
             grades.append(grade)
             details.refit_leaves.append(leaf_ids[g])
         if flagged:
@@ -444,7 +459,7 @@ def cross_validate(structure: Structure, dataset: Dataset, comparison: Compariso
                         [g for g in replace_leaves if ex[g][4].bound > LEAF_TOL]
     elif by != "leaf":
         return _cross_validate_levels(structure, dataset, comparison, method, by, folds, engine, leaf_fits, sampler,
-                                      options, priors, details)
+                                      options, priors, details, keep)
     else:
         fold_sets = folds_for(dataset, by, method, folds, sampler.seed)
         base = _fold_seed_base(sampler, method)
@@ -453,12 +468,14 @@ def cross_validate(structure: Structure, dataset: Dataset, comparison: Compariso
                                         "refit" if method == "exact" else "fold")
         grades += fold_grades
         n_refits = len(fold_sets)
-        for g, (e, m, b, pred, q, _) in ex.items():
+        for g, (e, m, b, pred, q, _, curve) in ex.items():
             acc.elpd[g], acc.mcse[g], acc.bound[g], acc.how[g] = e, m, b, method
             acc.preds[g] = pred
+            _set_curve(acc, g, curve)
         _note_quadrature(details, leaf_ids, list(ex), [v[4] for v in ex.values()])
         unresolved_in = [g for g, v in ex.items() if v[4].bound > LEAF_TOL]
     rmse, r2 = _prediction_scores(dataset, acc.preds)
+    _keep_predictions(keep, dataset, acc.preds, acc.curves)
     grade = worst_grade(grades)
     warnings = _fit_warnings(details, grade)
     warnings += details.notes
@@ -473,7 +490,7 @@ def cross_validate(structure: Structure, dataset: Dataset, comparison: Compariso
 
 
 def _cross_validate_levels(structure, dataset, comparison, method, by, folds, engine, leaf_fits, sampler,
-                           options, priors, details) -> tuple[CVResult, CVDetails]:
+                           options, priors, details, keep=None) -> tuple[CVResult, CVDetails]:
     """Leave-one-level-out (or K folds of levels) of grouping ``by``: each level scored jointly, with
     the effects its leaves share integrated once per draw; SEs are then over levels."""
     L = dataset.n_leaves
@@ -483,6 +500,7 @@ def _cross_validate_levels(structure, dataset, comparison, method, by, folds, en
     base = _fold_seed_base(sampler, method)
     elpd, mcse, bound = np.full(len(levels), np.nan), np.full(len(levels), np.nan), np.full(len(levels), np.nan)
     preds: dict[int, np.ndarray] = {}
+    curves: dict[int, object] = {}
     grades, unresolved = [], []
     for i, held in enumerate(fold_sets):
         train = np.ones(L, bool)
@@ -497,6 +515,8 @@ def _cross_validate_levels(structure, dataset, comparison, method, by, folds, en
         sc = score_leaves(fit, dataset, held, leaf_fits, in_fit=False)      # predictions (and per-leaf checks)
         for j, g in enumerate(held):
             preds[int(g)] = sc.pred_mean[j].mean(axis=0)
+            if sc.curves[j] is not None:
+                curves[int(g)] = summarise_curves(sc.curves[j])
         for name in names:
             members = held[level_of[held] == name]
             joint, b, bad = score_level(fit, dataset, members, leaf_fits)
@@ -507,6 +527,7 @@ def _cross_validate_levels(structure, dataset, comparison, method, by, folds, en
                 unresolved.append(f"{by} {name} (bound {b:.3g} nats; {bad} draws unsettled)")
         details.refit_seconds += time.perf_counter() - t
     rmse, r2 = _prediction_scores(dataset, preds)
+    _keep_predictions(keep, dataset, preds, curves)
     grade = worst_grade(grades)
     warnings = _fit_warnings(details, grade) + details.notes
     unscored = ("the held-out quadrature did not settle for " + ", ".join(unresolved)) if unresolved else ""
@@ -515,6 +536,20 @@ def _cross_validate_levels(structure, dataset, comparison, method, by, folds, en
                       warnings=tuple(warnings), rmse=rmse, r2=r2, mcse_i=mcse, quad_bound_i=bound,
                       unscored=unscored, unit=by)
     return result, details
+
+
+def _set_curve(acc: _Leafwise, g: int, curve) -> None:
+    if curve is not None:
+        acc.curves[g] = curve
+    else:
+        acc.curves.pop(g, None)
+
+
+def _keep_predictions(keep: dict | None, dataset: Dataset, preds: dict, curves: dict) -> None:
+    """Put the held-out predictions (per point) and predictive curves (per leaf) into ``keep``."""
+    if keep is not None:
+        keep["points"] = points_table(dataset, preds)
+        keep["curves"] = curves_table(dataset, curves)
 
 
 def _fit_warnings(details: CVDetails, grade: str) -> list[str]:

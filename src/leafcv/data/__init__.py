@@ -1,4 +1,5 @@
-"""The data layer: read the observation CSV, map columns, convert units, validate, build the leaf table."""
+"""The data layer: read the observation CSV (or a pandas DataFrame), check the column mapping
+(`mapping.check_mapping`), convert units, validate, build the leaf table."""
 from .dataset import Dataset
 from .reading import load_dataset
 

@@ -6,6 +6,10 @@ from pathlib import Path
 
 import pandas as pd
 
+#: The leaf table's column of leaf ids. A structure names the leaf id by the same word
+#: (``random = ["leaf"]``, ``cv.by = "leaf"``), so no group or trait column may take it.
+LEAF_TERM = "leaf"
+
 
 @dataclass(frozen=True)
 class Dataset:
@@ -21,6 +25,8 @@ class Dataset:
     leaves
         One row per leaf in order of first appearance (row i has leaf_index i): ``leaf`` and every
         group column (str) and trait column (float), under the user's column names.
+    source
+        The file read, or the name given to a DataFrame read in its place ("the table" by default).
     notes
         How the file was read: every default, conversion and inference used (for the summary).
     warnings
@@ -28,7 +34,8 @@ class Dataset:
         leaves or with outlying leaves, oxygen that may be in percent); each names the column,
         the leaves or values and what to check.
     delimiter, decimal_mark
-        The field delimiter found in the file (',', ';' or a tab) and its decimal mark ('.' or ',').
+        The field delimiter found in the file (',', ';' or a tab; '' for a DataFrame) and its decimal
+        mark ('.' or ','; always '.' for a DataFrame).
     """
 
     obs: pd.DataFrame

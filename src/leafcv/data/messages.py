@@ -27,3 +27,25 @@ def show(value: object) -> str:
 
 def label(name: str, role: str) -> str:
     return f"column {name!r} ({role})"
+
+
+def kind_of(value: object) -> str:
+    """Name a written value's type, with the value when it is short: ``a string ('4')``, ``an integer (3)``.
+
+    Used for the values of a comparison file (TOML) and of a `DataSpec` built in Python alike.
+    """
+    if isinstance(value, bool):
+        return f"true/false ({str(value).lower()})"
+    if isinstance(value, int):
+        return f"an integer ({value})"
+    if isinstance(value, float):
+        return f"a number ({value:g})"
+    if isinstance(value, str):
+        return f"a string ({value!r})"
+    if isinstance(value, (list, tuple)):
+        return "a list"
+    if isinstance(value, dict):
+        return "a table"
+    if value is None:
+        return "nothing (None)"
+    return f"a date/time ({value})" if hasattr(value, "isoformat") else f"a {type(value).__name__}"

@@ -1,7 +1,8 @@
-"""Read the user's observation CSV into a validated :class:`~leafcv.data.dataset.Dataset`.
+"""Read the user's observation CSV (or a pandas DataFrame) into a validated :class:`~leafcv.data.dataset.Dataset`.
 
-The file is read as text first, so every cell that is not a number can be reported with its line.
-All problems found are collected and raised together as one :class:`~leafcv.errors.DataError`.
+The file is read as text first, so every cell that is not a number can be reported with its line; a
+DataFrame is turned into the same text cells, so it goes through exactly the same checks. All problems
+found are collected and raised together as one :class:`~leafcv.errors.DataError`.
 """
 from __future__ import annotations
 
@@ -17,16 +18,17 @@ import pandas as pd
 
 from ..errors import DataError, Problem
 from ..spec import OPTIONAL_COLUMNS, REQUIRED_COLUMNS, DataSpec
-from .dataset import Dataset
+from .dataset import LEAF_TERM, Dataset
 from .delimiters import DECIMAL_COMMA, decimal_mark, describe, detect_delimiter
+from .mapping import check_mapping
 from .messages import MAX_LISTED
 from .messages import label as _label
 from .messages import rows as _rows
 from .messages import rows_values as _rows_values
 from .messages import show as _show
-from .roles import CI_UNITS_KEY, ROLE_OF
+from .roles import ROLE_OF
 from .traits import trait_warnings
-from .units import CI_UNITS, PRESSURE_RANGE_KPA, column_problems, convert_ci, plausible_pressure
+from .units import column_problems, convert_ci
 
 #: Leaf temperature (deg C) used when no column is mapped: the reference temperature to which FvCB
 #: parameters are normalised (Bernacchi et al. 2001, Plant Cell Environ 24:253-259).
@@ -45,19 +47,23 @@ CV_MEAN_FLOOR = 1.0                # floor on |mean| in the CV, so dark (PPFD 0)
 MISSING_TOKENS = frozenset({"", "na", "nan", "n/a", "null", "none"})
 
 _NUMERIC_VARIABLES = ("a_net", "ci", "ppfd", "t_leaf", "o2")
-_TEXT_VARIABLES = ("leaf", "curve")
+_TEXT_VARIABLES = (LEAF_TERM, "curve")
+#: How messages name a DataFrame given in place of the file, when no name is given.
+TABLE_LABEL = "the table"
 
 
 @dataclass(frozen=True)
 class _Table:
-    """The file as stripped text: header names, cells by position, each record's line number, the
-    field delimiter and the decimal mark of its numbers."""
+    """The file (or DataFrame) as stripped text: header names, cells by position, each record's line
+    number, the field delimiter ('' for a DataFrame), the decimal mark of its numbers, and how messages
+    name it ("the file", or the DataFrame's label)."""
 
     header: list[str]
     cells: pd.DataFrame
     rows: np.ndarray
     delimiter: str = ","
     decimal: str = "."
+    label: str = "the file"
 
     def has(self, name: str) -> bool:
         return name in self.header
@@ -67,7 +73,7 @@ class _Table:
         return self.cells[self.header.index(name)]
 
 
-def load_dataset(spec: DataSpec) -> Dataset:
+def load_dataset(spec: DataSpec, table: pd.DataFrame | None = None, *, name: str | None = None) -> Dataset:
     """Read, check and convert the observation table described by ``spec``.
 
     Parameters
@@ -76,6 +82,14 @@ def load_dataset(spec: DataSpec) -> Dataset:
         Where the file is, how its columns map to leafcv's observation variables (``spec.columns``
         is keyed by variable: ``a_net``, ``ci``, ...; messages name each by its data role, the key
         the user wrote under [data.columns]), the Ci unit, and the leaf-level group and trait columns.
+        The mapping is checked by `leafcv.data.mapping.check_mapping`, as a comparison file's is.
+    table
+        A pandas DataFrame read in place of ``spec.file`` (which is then not opened): one column per
+        variable, group or trait under the names ``spec`` gives, one row per point. Its cells are
+        written as text (a missing value as an empty cell) and go through exactly the checks a file's
+        cells do.
+    name
+        How messages, the `DataError` and ``Dataset.source`` name ``table`` (default: "the table").
 
     Returns
     -------
@@ -96,7 +110,8 @@ def load_dataset(spec: DataSpec) -> Dataset:
     Notes
     -----
     Rows are cited by their line in the file (the header is line 1); blank lines are skipped but
-    keep their place in the count.
+    keep their place in the count. A DataFrame's rows are cited as in a CSV file written from it: its
+    first row is row 2 (its position + 2); a row with no values is skipped but keeps its number.
 
     Delimiter and decimal mark. Fields may be separated by commas, semicolons or tabs, found by the
     rule in `leafcv.data.delimiters`; a file that is not comma-separated may write its numbers with
@@ -118,24 +133,32 @@ def load_dataset(spec: DataSpec) -> Dataset:
     >>> spec = DataSpec(file=Path("/data/obs.csv"), columns={"a_net": "Anet", "ci": "Ci_in",
     ...                 "ppfd": "Light", "leaf": "LeafID"}, traits=("N_area",))
     >>> dataset = load_dataset(spec)  # doctest: +SKIP
+    >>> frame = pd.read_excel("obs.xlsx")  # doctest: +SKIP
+    >>> dataset = load_dataset(spec, frame, name="obs.xlsx")  # doctest: +SKIP
     """
-    problems, notes = _check_spec(spec)
-    table, read_problems = _read_table(Path(spec.file))
-    problems += read_problems
+    checked = check_mapping(spec.columns, spec.groups, spec.traits, spec.ci_unit, spec.pressure_kpa)
+    problems, notes = list(checked.problems), list(checked.notes)
+    source = str(spec.file) if table is None else (name or TABLE_LABEL)
     if table is None:
-        raise DataError(str(spec.file), problems)
-    problems += _check_header(table, spec)
+        cells, read_problems = _read_table(Path(spec.file))
+    else:
+        cells, read_problems = _frame_table(table, source)
+    problems += read_problems
+    if cells is None:
+        raise DataError(source, problems)
+    table = cells
+    groups, traits = _names(spec.groups), _names(spec.traits)
+    problems += _check_header(table, spec, groups, traits)
     present = {var: name for var, name in _valid_mapping(spec).items() if table.has(name)}
-    table = _with_decimal_mark(table, [present[v] for v in _NUMERIC_VARIABLES if v in present]
-                               + [t for t in spec.traits if table.has(t)])
+    if table.delimiter:
+        table = _with_decimal_mark(table, [present[v] for v in _NUMERIC_VARIABLES if v in present]
+                                   + [t for t in traits if table.has(t)])
     notes = _file_notes(table) + notes
     numbers, texts, found = _parse_cells(table, present, _NUMERIC_VARIABLES, _TEXT_VARIABLES)
     problems += found
-    trait_values, _, found = _parse_cells(table, {t: t for t in spec.traits if table.has(t)}, spec.traits, (),
-                                         "trait")
+    trait_values, _, found = _parse_cells(table, {t: t for t in traits if table.has(t)}, traits, (), "trait")
     problems += found
-    _, group_values, found = _parse_cells(table, {g: g for g in spec.groups if table.has(g)}, (), spec.groups,
-                                         "group")
+    _, group_values, found = _parse_cells(table, {g: g for g in groups if table.has(g)}, (), groups, "group")
     problems += found
 
     found, note, warnings = _units_and_ranges(numbers, table.rows, present, spec)
@@ -151,7 +174,7 @@ def load_dataset(spec: DataSpec) -> Dataset:
     problems += found
     notes += note
     if problems:
-        raise DataError(str(spec.file), problems)
+        raise DataError(source, problems)
 
     for var, default, unit in (("t_leaf", DEFAULT_T_LEAF, "deg C"), ("o2", DEFAULT_O2, "mmol/mol")):
         if var not in numbers:
@@ -167,78 +190,25 @@ def load_dataset(spec: DataSpec) -> Dataset:
         "t_leaf": numbers["t_leaf"], "o2": numbers["o2"], "row": table.rows.astype(np.int64),
     })
     return Dataset(obs=obs, leaves=leaves, groups=tuple(spec.groups), traits=tuple(spec.traits),
-                   source=Path(spec.file), notes=tuple(notes), warnings=tuple(warnings),
+                   source=Path(source), notes=tuple(notes), warnings=tuple(warnings),
                    delimiter=table.delimiter, decimal_mark=table.decimal)
 
 
 # ---------------------------------------------------------------- the specification
 
 def _valid_mapping(spec: DataSpec) -> dict[str, str]:
-    """Mapped leafcv variables that are known and have a column name."""
+    """Mapped leafcv variables that are known and have a column name (`check_mapping` reports the rest)."""
     known = REQUIRED_COLUMNS + OPTIONAL_COLUMNS
-    return {var: name for var, name in spec.columns.items() if var in known and name}
+    return {var: name for var, name in spec.columns.items() if var in known and _is_name(name)}
 
 
-def _check_spec(spec: DataSpec) -> tuple[list[str], list[str]]:
-    """Problems and notes found in the mapping and units alone (no file needed)."""
-    problems: list[str] = []
-    known = REQUIRED_COLUMNS + OPTIONAL_COLUMNS
-    unknown = [v for v in spec.columns if v not in known]
-    if unknown:
-        # DataSpec.columns is keyed by observation variable; a comparison file's data roles are
-        # translated (and checked) by leafcv.comparison before they get here.
-        problems.append(f"DataSpec.columns has unknown observation variable(s) {', '.join(map(repr, unknown))}; "
-                        f"valid variables: {', '.join(known)}")
-    for var in REQUIRED_COLUMNS:
-        if not spec.columns.get(var):
-            problems.append(f"[data.columns] must map {ROLE_OF[var]} to a column of the file "
-                            f"(e.g. {ROLE_OF[var]} = \"your column name\")")
-    by_name: dict[str, list[str]] = {}
-    for var, name in _valid_mapping(spec).items():
-        by_name.setdefault(name, []).append(ROLE_OF[var])
-    for name, variables in by_name.items():
-        if len(variables) > 1:
-            problems.append(f"column {name!r} is mapped to {' and '.join(variables)} under [data.columns]; "
-                            f"each data role needs its own column")
-    problems += _check_leaf_columns(spec)
-    unit_problems, notes = _check_units(spec)
-    return problems + unit_problems, notes
+def _names(names) -> list[str]:
+    """The group or trait names that are names, each once (`check_mapping` reports the rest)."""
+    return list(dict.fromkeys(n for n in names if _is_name(n)))
 
 
-def _check_leaf_columns(spec: DataSpec) -> list[str]:
-    problems = []
-    for kind, names in (("groups", spec.groups), ("traits", spec.traits)):
-        for name in sorted({n for n in names if list(names).count(n) > 1}):
-            problems.append(f"column {name!r} is listed twice in [data.leaf] {kind}; list it once")
-    for name in sorted(set(spec.groups) & set(spec.traits)):
-        problems.append(f"column {name!r} is listed both in [data.leaf] groups and traits; a column is "
-                        f"either categorical (groups) or numeric (traits)")
-    if "leaf" in spec.groups or "leaf" in spec.traits:
-        problems.append("[data.leaf] lists a column named 'leaf', which clashes with the leaf table's own "
-                        "'leaf' column (the leaf id); remove it from [data.leaf] or rename it in the file")
-    return problems
-
-
-def _check_units(spec: DataSpec) -> tuple[list[str], list[str]]:
-    problems, notes = [], []
-    unit, pressure = spec.ci_unit, spec.pressure_kpa
-    if unit not in CI_UNITS:
-        close = difflib.get_close_matches(str(unit).lower(), [u.lower() for u in CI_UNITS], n=1, cutoff=0.5)
-        if str(unit).lower() in {"ppm", "µmol/mol", "umol mol-1", "µmol mol-1"}:
-            close = ["umol/mol"]
-        hint = f" (did you mean {next(u for u in CI_UNITS if u.lower() == close[0].lower())!r}?)" if close else ""
-        problems.append(f"[data.units] {CI_UNITS_KEY} = {unit!r} is not a known unit{hint}; valid units: "
-                        f"{', '.join(map(repr, CI_UNITS))} ('Pa' also needs pressure_kpa)")
-    elif unit == "Pa" and pressure is None:
-        problems.append(f"[data.units] {CI_UNITS_KEY} = \"Pa\" needs pressure_kpa, the air pressure in kPa at "
-                        "which intercellular CO2 was measured (about 101.3 at sea level), to convert it to umol/mol")
-    if pressure is not None and unit == "Pa" and not plausible_pressure(pressure):
-        problems.append(f"[data.units] pressure_kpa = {pressure!r} is not a pressure between "
-                        f"{PRESSURE_RANGE_KPA[0]:g} and {PRESSURE_RANGE_KPA[1]:g} kPa; give the air pressure "
-                        f"in kPa (about 101.3 at sea level)")
-    elif pressure is not None and unit == "umol/mol":
-        notes.append(f"pressure_kpa is not used: {CI_UNITS_KEY} is declared in umol/mol")
-    return problems, notes
+def _is_name(name: object) -> bool:
+    return isinstance(name, str) and bool(name.strip())
 
 
 # ---------------------------------------------------------------- the file
@@ -272,13 +242,37 @@ def _table(grid: pd.DataFrame, delimiter: str) -> tuple[_Table | None, list[str]
     breaks = np.array([grid[c].str.count("\n").to_numpy() for c in grid.columns]).sum(axis=0)
     starts = 1 + np.arange(len(grid)) + np.concatenate([[0], np.cumsum(breaks)[:-1]])
     grid = grid.apply(lambda column: column.str.strip())
-    header = [str(h) for h in grid.iloc[0]]
-    body = grid.iloc[1:]
-    filled = ~(body == "").all(axis=1).to_numpy()
-    cells = body[filled].reset_index(drop=True)
+    return _filled(_Table(header=[str(h) for h in grid.iloc[0]], cells=grid.iloc[1:], rows=starts[1:],
+                          delimiter=delimiter),
+                   "the observation file has a header line but no data rows; add one line per point")
+
+
+def _frame_table(frame: object, label: str) -> tuple[_Table | None, list[str]]:
+    """A DataFrame as the stripped text cells a file would give (a missing value as an empty cell), its
+    rows numbered as in a CSV file written from it (the first row is row 2)."""
+    if not isinstance(frame, pd.DataFrame):
+        return None, [f"{label} must be a pandas DataFrame, got a {type(frame).__name__}"]
+    if frame.shape[1] == 0:
+        return None, [f"{label} has no columns; it needs one column per variable, group and trait"]
+    cells = pd.DataFrame({i: _cell_texts(frame.iloc[:, i]) for i in range(frame.shape[1])}, index=range(len(frame)))
+    table = _Table(header=[str(h).strip() for h in frame.columns], cells=cells, rows=np.arange(len(frame)) + 2,
+                   delimiter="", label=label)
+    return _filled(table, f"{label} has no rows with values; add one row per point")
+
+
+def _cell_texts(column: pd.Series) -> list[str]:
+    """Each value written as text (as a CSV file would hold it), stripped; '' where missing."""
+    missing = column.isna().to_numpy()
+    return ["" if gone else str(value).strip() for value, gone in zip(column.astype(object).to_numpy(), missing)]
+
+
+def _filled(table: _Table, no_rows: str) -> tuple[_Table | None, list[str]]:
+    """The table without its rows of empty cells (they keep their numbers), or None and ``no_rows``."""
+    filled = ~(table.cells == "").all(axis=1).to_numpy()
+    cells = table.cells[filled].reset_index(drop=True)
     if cells.empty:
-        return None, ["the observation file has a header line but no data rows; add one line per point"]
-    return _Table(header=header, cells=cells, rows=starts[1:][filled], delimiter=delimiter), []
+        return None, [no_rows]
+    return replace(table, cells=cells, rows=table.rows[filled]), []
 
 
 def _parser_problem(exc: Exception, delimiter: str) -> str:
@@ -299,34 +293,36 @@ def _with_decimal_mark(table: _Table, numeric: list[str]) -> _Table:
 
 
 def _file_notes(table: _Table) -> list[str]:
-    if table.delimiter == "," and table.decimal == ".":
+    if table.delimiter in (",", "") and table.decimal == ".":
         return []
     return [f"the observation file's fields are separated by {describe(table.delimiter)} and its numbers "
             f"use {table.decimal!r} as the decimal mark"]
 
 
-def _check_header(table: _Table, spec: DataSpec) -> list[str]:
+def _check_header(table: _Table, spec: DataSpec, groups: list[str], traits: list[str]) -> list[str]:
     wanted = [(name, ROLE_OF[var], f"[data.columns] {ROLE_OF[var]}") for var, name in _valid_mapping(spec).items()]
-    wanted += [(name, "group", "[data.leaf] groups") for name in spec.groups]
-    wanted += [(name, "trait", "[data.leaf] traits") for name in spec.traits]
+    wanted += [(name, "group", "[data.leaf] groups") for name in groups]
+    wanted += [(name, "trait", "[data.leaf] traits") for name in traits]
+    header = "the header" if table.delimiter else f"the column names of {table.label}"
     problems = []
     for name, role, section in wanted:
         count = table.header.count(name)
         if count == 0:
-            problems.append(_missing_column(name, role, section, table.header))
+            problems.append(_missing_column(name, role, section, table))
         elif count > 1:
             places = [str(i + 1) for i, h in enumerate(table.header) if h == name]
-            problems.append(f"{_label(name, role)} appears {count} times in the header (columns "
+            problems.append(f"{_label(name, role)} appears {count} times in {header} (columns "
                             f"{', '.join(places)}); rename the copies so each name is unique")
     return problems
 
 
-def _missing_column(name: str, role: str, section: str, header: list[str]) -> str:
+def _missing_column(name: str, role: str, section: str, table: _Table) -> str:
+    header = table.header
     lowered = {h.lower(): h for h in header}
     close = [lowered[m] for m in difflib.get_close_matches(name.lower(), list(lowered), n=3, cutoff=0.6)]
     hint = f"; did you mean {' or '.join(map(repr, close))}?" if close else ""
     listed = ", ".join(map(repr, header[:30])) + (f" and {len(header) - 30} more" if len(header) > 30 else "")
-    return (f"{_label(name, role)} is not in the file{hint}; the file has columns: {listed}. "
+    return (f"{_label(name, role)} is not in {table.label}{hint}; {table.label} has columns: {listed}. "
             f"Correct the name under {section}.")
 
 
@@ -367,7 +363,7 @@ def _numeric_column(table: _Table, name: str, role: str) -> tuple[np.ndarray, li
     problems = []
     if mixed.any():
         problems.append(f"{_label(name, role)} has '.' in {_rows_values(table.rows[mixed], list(text[mixed]))}, "
-                        f"but the file's numbers use ',' as the decimal mark; use one decimal mark throughout "
+                        f"but {table.label}'s numbers use ',' as the decimal mark; use one decimal mark throughout "
                         f"(remove a '.' that separates thousands)")
     if bad.any():
         shown = list(text[bad])

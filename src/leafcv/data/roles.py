@@ -6,6 +6,7 @@ quantities are the observation variables of `DataSpec.columns` and the columns o
 """
 from __future__ import annotations
 
+from ..errors import Problem
 from ..spec import OPTIONAL_COLUMNS, REQUIRED_COLUMNS
 
 __all__ = ["ROLE_OF", "VARIABLE_OF", "RENAMED_KEYS", "REQUIRED_ROLES", "OPTIONAL_ROLES", "CI_UNITS_KEY",
@@ -43,8 +44,9 @@ def role(variable: str) -> str:
     return ROLE_OF.get(variable, variable)
 
 
-def renamed_key_problem(file_name: str, table: str, key: str) -> str | None:
-    """The refusal of a renamed key, or None when ``key`` was never renamed.
+def renamed_key_problem(file_name: str, table: str, key: str) -> Problem | None:
+    """The refusal of a renamed key (code ``renamed-key``, location e.g. ``[data.columns] ci``), or None
+    when ``key`` was never renamed.
 
     >>> renamed_key_problem("demo.toml", "[data.columns]", "ci")
     "demo.toml: [data.columns] key 'ci' was renamed: use 'intercellular_co2'"
@@ -52,4 +54,4 @@ def renamed_key_problem(file_name: str, table: str, key: str) -> str | None:
     new = RENAMED_KEYS.get(key)
     if new is None:
         return None
-    return f"{file_name}: {table} key {key!r} was renamed: use {new!r}"
+    return Problem(f"{file_name}: {table} key {key!r} was renamed: use {new!r}", "renamed-key", f"{table} {key}")

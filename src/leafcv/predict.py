@@ -1,0 +1,245 @@
+"""Predictions for new leaves from a finished run (``leafcv predict``).
+
+For each new leaf, given its traits and groups, the posterior of one structure's fit (``fits/<name>.nc``)
+gives two intervals of Vcmax25, Jmax25, alpha, theta and Rd25:
+
+- the population mean: the structure's mean for a leaf with these traits and levels (uncertainty of
+  the population effects only);
+- a new leaf: that mean plus a new leaf's own effects, drawn from their fitted distribution (and, for a
+  level of a random grouping the fit has not seen, a new level's effect drawn likewise).
+
+A level of a fixed grouping the fit has not seen has no estimate and is refused. Optionally the
+expected net assimilation A at given conditions, under both intervals. No sampler runs.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from .errors import DataError, UserInputError
+from .terms import FixedTerm, GroupIntercept, LeafEffect, TermContext
+
+#: Central interval reported.
+INTERVAL = 0.90
+#: Seed stream of the new-leaf effect draws (added to the run seed).
+PREDICT_STREAM = 31
+#: Condition columns of ``--at`` (leafcv's data roles; oxygen optional, default 210 mmol mol-1).
+CONDITION_COLUMNS = {"intercellular_co2": "ci", "photon_flux": "ppfd", "leaf_temperature": "t_leaf",
+                     "oxygen": "o2"}
+
+
+@dataclass(frozen=True)
+class Prediction:
+    """``parameters``: one row per new leaf and parameter; ``assimilation``: one row per new leaf and
+    condition (None without conditions)."""
+
+    parameters: pd.DataFrame
+    assimilation: pd.DataFrame | None
+
+
+def predict(run_dir: str | Path, structure: str, leaves: str | Path | pd.DataFrame,
+            conditions: str | Path | pd.DataFrame | None = None) -> Prediction:
+    """Predict the FvCB parameters (and optionally A) of new leaves under ``structure`` of a run."""
+    import arviz as az
+
+    from .api import load
+    from .compare import file_hash
+    from .design import build_design
+
+    from .manifest import read_manifest
+
+    run_dir = Path(run_dir)
+    manifest = read_manifest(run_dir)
+    fit_path = run_dir / "fits" / f"{structure}.nc"
+    if not fit_path.exists():
+        have = sorted(p.stem for p in (run_dir / "fits").glob("*.nc"))
+        raise UserInputError(str(run_dir), [f"no fit of structure {structure!r} in {run_dir / 'fits'}; fits there: "
+                                            f"{', '.join(have) or 'none (the run has not finished a structure)'}"])
+    comparison, dataset = load(manifest["comparison"])
+    if file_hash(comparison.data.file) != manifest.get("data_sha256"):
+        raise UserInputError(str(comparison.data.file), [
+            "the data file has changed since the run (its SHA-256 differs from the manifest's); predictions need "
+            "the data the fit was made on: restore it, or run `leafcv compare` again"])
+    st = comparison.structure(structure)
+    design = build_design(st, dataset, comparison.data)
+    post = az.from_netcdf(fit_path).posterior
+    _check_fit_matches(design, post, fit_path)
+
+    source = "the new-leaf table" if isinstance(leaves, pd.DataFrame) else str(leaves)
+    new = leaves.copy() if isinstance(leaves, pd.DataFrame) else _read(Path(leaves))
+    leaf_col = comparison.data.columns.get("leaf")
+    ids = (new[leaf_col].astype(str).to_numpy() if leaf_col in new.columns
+           else np.array([f"row {i + 2}" for i in range(len(new))]))
+    ctx = TermContext(st, dataset.leaves, design.trait_transform, design.priors, design.train_leaves,
+                      np.zeros(dataset.n_leaves, int))
+    _check_new_leaves(design, ctx, new, source)
+
+    draws = {k: post[k].values.reshape((-1,) + post[k].shape[2:]) for k in post.data_vars}
+    S, N, P = len(draws["b0"]), len(new), len(design.parameters)
+    rng = np.random.default_rng([int(manifest["settings"]["sampler"]["seed"]), PREDICT_STREAM])
+    mean = np.repeat(draws["b0"][:, None, :], N, axis=1)          # (S, N, P) link scale
+    extra = np.zeros_like(mean)                                      # a new leaf's own (and new levels') effects
+    k = r = 0          # the next coefficient and group term, in the order build_design placed them
+    leaf_terms = [t for p in design.params for t in design.terms[p] if isinstance(t, LeafEffect)]
+    for pi, p in enumerate(design.params):
+        for term in design.terms[p]:
+            if isinstance(term, FixedTerm):
+                for _, col in term.columns(ctx, new):
+                    mean[:, :, pi] += draws["beta"][:, k, None] * col[None, :]
+                    k += 1
+            elif isinstance(term, GroupIntercept):
+                gt = design.group_terms[r]
+                idx, x = term.locate(ctx, new)
+                known = idx >= 0
+                u = np.zeros((S, N))
+                u[:, known] = draws["level_value"][:, gt.start + idx[known]]
+                mean[:, :, pi] += u * x
+                extra[:, ~known, pi] += draws["tau"][:, r, None] * rng.standard_normal((S, int((~known).sum()))) \
+                    * x[None, ~known]
+                r += 1
+    if leaf_terms:
+        z = rng.standard_normal((S, N, len(leaf_terms)))
+        tau = draws["tau_leaf"]
+        if design.leaf_correlation:
+            effect = np.einsum("sij,snj->sni", tau[:, :, None] * draws["leaf_chol"][:, 0], z)
+        else:
+            effect = tau[:, None, :] * z
+        for j, pi in enumerate(design.leaf_term_params):
+            extra[:, :, pi] += effect[:, :, j]
+    pop, one = _natural(design, mean), _natural(design, mean + extra)
+    lo, hi = (1 - INTERVAL) / 2, 1 - (1 - INTERVAL) / 2
+    rows = []
+    for i in range(N):
+        for p in design.params:
+            a, b = pop[p][:, i], one[p][:, i]
+            rows.append({"leaf": ids[i], "parameter": p, "median": float(np.median(a)),
+                         "mean_q05": float(np.quantile(a, lo)), "mean_q95": float(np.quantile(a, hi)),
+                         "new_leaf_q05": float(np.quantile(b, lo)), "new_leaf_q95": float(np.quantile(b, hi))})
+    table = pd.DataFrame(rows)
+    assim = None
+    if conditions is not None:
+        assim = _assimilation(design, pop, one, ids, conditions, lo, hi)
+    return Prediction(table, assim)
+
+
+def _natural(design, eta: np.ndarray) -> dict[str, np.ndarray]:
+    from .design import natural_values
+
+    return natural_values(design, eta)
+
+
+def _read(path: Path) -> pd.DataFrame:
+    if not path.exists():
+        raise UserInputError(str(path), ["file not found: give a CSV of the new leaves (one row per leaf)"])
+    try:
+        return pd.read_csv(path, sep=None, engine="python")
+    except (pd.errors.ParserError, UnicodeDecodeError, pd.errors.EmptyDataError) as exc:
+        raise DataError(str(path), [f"cannot read the table: {exc}"]) from None
+
+
+def _check_fit_matches(design, post, path: Path) -> None:
+    """The fit file's labels must be those of the structure built from the run's files."""
+    problems = []
+    if list(post["parameter"].values) != list(design.params):
+        problems.append("its parameters differ from the structure's")
+    if "coefficient" in post.dims and list(post["coefficient"].values) != [c.label for c in design.coefficients]:
+        problems.append("its coefficients differ from the structure's")
+    if design.group_terms and "level_value" not in post:
+        problems.append("it has no level_value (written by an older leafcv); run `leafcv compare` again")
+    if problems:
+        raise UserInputError(str(path), [f"the fit does not match the structure in the comparison file: {p}"
+                                         for p in problems])
+
+
+def _check_new_leaves(design, ctx: TermContext, new: pd.DataFrame, source: str) -> None:
+    """Every trait and grouping the structure uses is present and usable in every row."""
+    from .terms import LevelContrasts
+
+    traits, groups, fixed_groups = set(), set(), set()
+    for p in design.params:
+        for t in design.terms[p]:
+            for name in ("trait", "grouping"):
+                v = getattr(t, name, None)
+                if v:
+                    (traits if name == "trait" else groups).add(v)
+            if isinstance(t, LevelContrasts):
+                fixed_groups.add(t.grouping)
+    groups -= traits
+    missing = sorted((traits | groups) - set(new.columns))
+    problems = []
+    if missing:
+        problems.append(f"column(s) {', '.join(map(repr, missing))} missing: structure {design.structure.name!r} "
+                        f"uses them; add them with the same names as in the data file")
+    if len(new) == 0:
+        problems.append("no rows: give one row per new leaf")
+    for t in sorted(traits - set(missing)):
+        x = pd.to_numeric(new[t], errors="coerce")
+        bad = np.flatnonzero(~np.isfinite(x.to_numpy(float)))
+        if bad.size:
+            problems.append(f"column {t!r}: no number in row(s) {', '.join(str(b + 2) for b in bad[:10])} "
+                            f"(rows counted with the header as row 1); give each new leaf's value")
+        else:
+            new[t] = x
+    for g in sorted(groups - set(missing)):
+        empty = np.flatnonzero(new[g].isna().to_numpy())
+        if empty.size:
+            problems.append(f"column {g!r}: empty in row(s) {', '.join(str(b + 2) for b in empty[:10])}; give each "
+                            f"new leaf's level (a level the fit has not seen is allowed for a random grouping)")
+    for g in sorted(fixed_groups - set(missing)):
+        levels, _ = ctx.levels(g)
+        for i, v in enumerate(new[g].astype(str)):
+            if v not in levels and not pd.isna(new[g].iloc[i]):
+                problems.append(f"column {g!r}, row {i + 2}: level {v!r} was not in the fitted data "
+                                f"({', '.join(levels)}); {g} is a fixed effect in structure "
+                                f"{design.structure.name!r}, so a new level has no estimate: use a fitted level, "
+                                f"or a structure with {g} as a random effect")
+    if problems:
+        raise DataError(source, problems)
+
+
+def _assimilation(design, pop, one, ids, conditions, lo, hi) -> pd.DataFrame:
+    from . import fvcb
+    from .terms import responses
+
+    source = "the conditions table" if isinstance(conditions, pd.DataFrame) else str(conditions)
+    cond = conditions.copy() if isinstance(conditions, pd.DataFrame) else _read(Path(conditions))
+    need = [c for c in CONDITION_COLUMNS if c != "oxygen"]
+    missing = [c for c in need if c not in cond.columns]
+    problems = [f"column {c!r} missing; the conditions table needs {', '.join(need)} (and optionally oxygen, "
+                f"mmol mol-1)" for c in missing]
+    values = {}
+    for role, var in CONDITION_COLUMNS.items():
+        if role in missing:
+            continue
+        x = pd.to_numeric(cond[role], errors="coerce").to_numpy(float) if role in cond.columns \
+            else np.full(len(cond), 210.0)
+        bad = np.flatnonzero(~np.isfinite(x))
+        if bad.size:
+            problems.append(f"column {role!r}: no number in row(s) {', '.join(str(b + 2) for b in bad[:10])}")
+        values[var] = x
+    if problems:
+        raise DataError(source, problems)
+    r = responses(design.options)
+    f = fvcb.PointFactors.at(values["ci"], values["ppfd"], values["t_leaf"], values["o2"],
+                             electron=design.options.electron, vcmax_response=r["vcmax"], jmax_response=r["jmax"],
+                             rd_response=r["rd"], tpu_response=r["tpu"])
+    opts = design.options
+    rows = []
+    for i, leaf in enumerate(ids):
+        a = {}
+        for name, nat in (("mean", pop), ("new_leaf", one)):
+            v = {p: nat[p][:, i, None] for p in nat}
+            a[name] = f.net_assimilation(v["vcmax25"], v["jmax25"], v["alpha"], v["theta"], v["rd25"], v.get("tpu25"),
+                                         opts.transition, opts.smooth_curvature)
+        for j in range(len(cond)):
+            rows.append({"leaf": leaf, "intercellular_co2": values["ci"][j], "photon_flux": values["ppfd"][j],
+                         "leaf_temperature": values["t_leaf"][j], "oxygen": values["o2"][j],
+                         "a_median": float(np.median(a["mean"][:, j])),
+                         "mean_q05": float(np.quantile(a["mean"][:, j], lo)),
+                         "mean_q95": float(np.quantile(a["mean"][:, j], hi)),
+                         "new_leaf_q05": float(np.quantile(a["new_leaf"][:, j], lo)),
+                         "new_leaf_q95": float(np.quantile(a["new_leaf"][:, j], hi))})
+    return pd.DataFrame(rows)

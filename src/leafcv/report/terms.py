@@ -1,0 +1,170 @@
+"""The terms of each structure, and which pairs of structures differ in exactly one term.
+
+A term is keyed by (parameter, variable) and says how the variable enters: ``fixed`` (a trait slope
+or a factor's levels), ``random`` (intercepts by a grouping; the variable ``leaf`` is the leaf
+effect), ``split`` (within- and between-group slopes of a trait), ``slopes`` (random slopes of a
+trait by a grouping), or ``ratio`` (jmax25 or rd25 tied to vcmax25). Model options and correlated
+leaf effects are terms too. Two structures differ in one term when exactly one key is present in
+one only, or present in both entering differently (e.g. campaign on vcmax25 fixed in one, random
+in the other).
+
+The terms are read from ``manifest["structures"][name]["params"]`` when the manifest carries it
+(each parameter's ``fixed``, ``random``, ``ratio_to``, ``slopes`` and ``split`` as in
+:class:`leafcv.spec.ParamSpec`), else from the parameter lines of ``structures.txt``.
+"""
+from __future__ import annotations
+
+import re
+from itertools import combinations
+
+from ..spec import PARAMETERS
+
+#: Term key -> how it enters.
+Terms = dict[tuple[str, str], str]
+
+#: Model options in words (a value of each option -> its description).
+OPTION_WORDS = {
+    "electron": lambda v: f"{str(v).replace('-', '/')} electrons per CO2",
+    "transition": lambda v: "hard minimum of the limitations" if v == "min" else "smooth co-limitation",
+    "smooth_curvature": lambda v: f"co-limitation curvature {v:g}",
+    "tpu": lambda v: "TPU limitation" if v else "no TPU limitation",
+    "student_t": lambda v: "Student-t likelihood" if v else "normal likelihood",
+    "sigma_by_curve": lambda v: "one residual SD per curve type" if v else "one residual SD",
+    "peaked": lambda v: "peaked Arrhenius for Vcmax and Jmax" if v else "Arrhenius",
+}
+
+
+def _from_params(params: dict) -> Terms:
+    terms: Terms = {}
+    for p, spec in params.items():
+        for v in spec.get("fixed", []):
+            terms[(p, v)] = "fixed"
+        for v in spec.get("random", []):
+            terms[(p, v)] = "random"
+        for t, g in spec.get("split", []):
+            terms[(p, t)] = f"split:{g}"
+        for t, g in spec.get("slopes", []):
+            terms[(p, f"{t}|{g}")] = "slopes"
+        if spec.get("ratio_to"):
+            terms[(p, spec["ratio_to"])] = "ratio"
+    return terms
+
+
+def _param_line(line: str) -> Terms:
+    """Terms of one parameter line of structures.txt (see leafcv.comparison.describe_param)."""
+    p, rest = line.split(":", 1)
+    p, rest = p.strip(), rest.strip()
+    terms: Terms = {}
+    ratio = re.match(r"log\((\w+)/(\w+)\)", rest)
+    if ratio:
+        terms[(p, ratio.group(2))] = "ratio"
+    rest = re.sub(r"\s*\(centring: [^)]*\)\s*$", "", rest)
+    if "; " not in rest:
+        return terms
+    for part in rest.split("; ", 1)[1].split(" + "):
+        part = part.strip()
+        if part.startswith("random slopes "):
+            for item in part[len("random slopes "):].split(", "):
+                t, g = item.split(" by ", 1)
+                terms[(p, f"{t}|{g}")] = "slopes"
+        elif part.startswith("random "):
+            for g in part[len("random "):].split(", "):
+                terms[(p, g)] = "random"
+        elif part.startswith("fixed "):
+            for v in part[len("fixed "):].split(", "):
+                terms[(p, v)] = "fixed"
+        elif part.startswith("split "):
+            for item in part[len("split "):].split(", "):
+                t, g = item.split(" within/between ", 1)
+                terms[(p, t)] = f"split:{g}"
+    return terms
+
+
+def terms_from_text(text: str) -> dict[str, Terms]:
+    """Per structure, the terms of its parameter lines in structures.txt."""
+    out: dict[str, Terms] = {}
+    current = None
+    for line in text.splitlines():
+        head = re.match(r"^structure (['\"])(.*)\1", line)
+        if head:
+            current = head.group(2)
+            out[current] = {}
+            continue
+        stripped = line.strip()
+        if current is not None and line.startswith("  ") and not line.startswith("    ") \
+                and stripped.split(":", 1)[0] in PARAMETERS + ("tpu25",):
+            out[current].update(_param_line(stripped))
+    return out
+
+
+def structure_terms(manifest: dict, structures_text: str) -> dict[str, Terms]:
+    """Per structure of the manifest, its terms (parameters, model options, leaf correlation).
+
+    Structures whose parameter terms cannot be found (neither in the manifest nor in
+    structures.txt) are left out.
+    """
+    parsed = terms_from_text(structures_text)
+    out: dict[str, Terms] = {}
+    for name, record in manifest.get("structures", {}).items():
+        if "params" in record:
+            terms = _from_params(record["params"])
+        elif name in parsed:
+            terms = dict(parsed[name])
+        else:
+            continue
+        for key, value in (record.get("model") or {}).items():
+            terms[("model", key)] = repr(value)
+        terms[("model", "leaf_correlation")] = repr(bool(record.get("leaf_correlation", False)))
+        out[name] = terms
+    return out
+
+
+def _how(how: str, p: str, v: str) -> str:
+    if how == "fixed":
+        return f"a fixed effect of {v} on {p}"
+    if how == "random":
+        return f"leaf effects on {p}" if v == "leaf" else f"random {v} effects on {p}"
+    if how == "ratio":
+        return f"{p} tied to {v} as a ratio"
+    if how == "slopes":
+        t, g = v.split("|", 1)
+        return f"{g}-specific slopes of {p} on {t}"
+    if how.startswith("split:"):
+        return f"separate within- and between-{how[6:]} slopes of {p} on {v}"
+    return f"{v} on {p} ({how})"
+
+
+def _option(key: str, value: str) -> str:
+    import ast
+
+    v = ast.literal_eval(value)
+    if key == "leaf_correlation":
+        return "correlated leaf effects" if v else "independent leaf effects"
+    return OPTION_WORDS.get(key, lambda x: f"{key} = {x}")(v)
+
+
+def one_term_difference(a: Terms, b: Terms, name_a: str = "the first", name_b: str = "the second") -> str | None:
+    """The one term in which structure ``a`` differs from ``b``, in words; None unless exactly one."""
+    keys = [k for k in sorted(set(a) | set(b)) if a.get(k) != b.get(k)]
+    if len(keys) != 1:
+        return None
+    (p, v), = keys
+    if p == "model":
+        return f"{_option(v, a[(p, v)])} in {name_a}, {_option(v, b[(p, v)])} in {name_b}"
+    if (p, v) not in b:
+        return f"{name_a} adds {_how(a[(p, v)], p, v)}"
+    if (p, v) not in a:
+        return f"{name_b} adds {_how(b[(p, v)], p, v)}"
+    return f"{_how(a[(p, v)], p, v)} in {name_a}, {_how(b[(p, v)], p, v)} in {name_b}"
+
+
+def one_term_pairs(names: list[str], terms: dict[str, Terms]) -> list[tuple[str, str, str]]:
+    """(first, second, difference in words) for every pair of ``names`` (in their order, so the
+    better-ranked structure first) that differ in exactly one term."""
+    out = []
+    for a, b in combinations(names, 2):
+        if a in terms and b in terms:
+            words = one_term_difference(terms[a], terms[b], a, b)
+            if words:
+                out.append((a, b, words))
+    return out

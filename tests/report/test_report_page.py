@@ -1,0 +1,255 @@
+"""report.html of an invented run folder, written with every engine disabled: sections in order, a page
+that needs nothing outside itself, numbers equal to ranking.csv and the tables after rounding to the
+digits shown, the decision's sentences, unfinished runs, options and the command line."""
+from __future__ import annotations
+
+import base64
+import io
+import json
+import re
+from decimal import Decimal
+
+import numpy as np
+import pandas as pd
+import pytest
+from PIL import Image
+
+from leafcv.errors import UserInputError
+from leafcv.report import write_report
+
+from .conftest import page_tables
+from .fake_run import QUESTION
+
+pytestmark = pytest.mark.filterwarnings("ignore:The inplace keyword")
+
+SECTIONS = ["decision", "ranking", "leaves", "predictions", "estimates", "diagnostics", "priors", "methods", "reproduction"]
+
+
+def shown_equals(cell: str, value: float) -> bool:
+    """Whether the text of a cell is ``value`` rounded to the digits the cell shows (a dash for NaN)."""
+    if cell == "–":
+        return bool(np.isnan(value))
+    text = cell.replace("−", "-").replace("+", "")
+    digits = Decimal(text)
+    quantum = Decimal(1).scaleb(digits.as_tuple().exponent)        # 0.1 for "−233.5", 1 for "3", 10 for "1.2e+03"
+    return abs(Decimal(repr(float(value))) - digits) <= quantum / 2 + Decimal("1e-12")
+
+
+def test_shown_equals_is_strict_enough():
+    assert shown_equals("−233.5", -233.54) and not shown_equals("−233.5", -233.56)
+    assert shown_equals("0.00", 5.4e-14) and shown_equals("3", 2.9997) and not shown_equals("3", 3.6)
+    assert shown_equals("–", float("nan")) and not shown_equals("–", 1.0)
+
+
+def test_every_section_in_order_and_every_file_written(written):
+    run, path, html = written
+    assert path == run / "report.html"
+    positions = [html.index(f'<section id="{s}">') for s in SECTIONS]
+    assert positions == sorted(positions)
+    figures = ("ranking", "leaves", "predicted_observed", "predictive_curves", "khat")
+    for name in figures:
+        for ext in ("png", "svg", "csv"):
+            assert (run / "figures" / f"{name}.{ext}").stat().st_size > 0
+    for name in ("ranking", "contrasts", "leaves_by_group", "prediction_scores", "population_estimates",
+                 "leaf_estimates", "scoring_fits",
+                 "scoring_accuracy", "fits", "spot_checks", "priors", "reproduction"):
+        assert (run / "tables" / f"{name}.csv").exists(), name
+    assert html.count("<figure") == len(figures)
+
+
+def test_page_needs_nothing_outside_itself(written):
+    _, _, html = written
+    assert "<script" not in html.lower()
+    assert not re.search(r"""(src|href)\s*=\s*["']?(https?:|//|file:)""", html, re.IGNORECASE)
+    assert "<link" not in html.lower()
+    sources = re.findall(r'<img src="([^"]+)"', html)
+    assert len(sources) == 5                 # ranking, leaves, predicted-observed, curves, k-hat
+    for src in sources:
+        assert src.startswith("data:image/png;base64,")
+        image = Image.open(io.BytesIO(base64.b64decode(src.split(",", 1)[1])))
+        image.verify()                                          # a PNG that decodes
+        assert image.size[0] >= 1200                            # 6.7 in at 200 dpi: sharp at A4 width
+
+
+def test_every_table_on_the_page_equals_its_csv_after_rounding(written):
+    run, _, html = written
+    tables = page_tables(html)
+    assert set(tables) >= {"tables/ranking.csv", "tables/contrasts.csv", "tables/population_estimates.csv",
+                           "tables/leaf_estimates.csv", "tables/fits.csv"}
+    for name, rows in tables.items():
+        csv = pd.read_csv(run / name, dtype=str, keep_default_na=False)       # every cell as written
+        assert len(rows) == len(csv), name
+        for row, (_, expected) in zip(rows, csv.iterrows()):
+            for col, cell in row.items():
+                value = expected[col]
+                if value == "":                                    # NaN or an empty text
+                    assert cell in ("", "–"), (name, col, cell)
+                elif re.fullmatch(r"[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?|nan|inf|-inf", value):
+                    assert shown_equals(cell, float(value)), (name, col, cell, value)
+                else:
+                    assert cell == value, (name, col, cell, value)
+
+
+def test_ranking_on_the_page_is_ranking_csv(written):
+    run, _, html = written
+    rows = page_tables(html)["tables/ranking.csv"]
+    ranking = pd.read_csv(run / "ranking.csv")
+    assert [r["structure"] for r in rows] == list(ranking["structure"])
+    for row, (_, r) in zip(rows, ranking.iterrows()):
+        for col in ("elpd", "se", "elpd_diff", "se_diff"):
+            assert len(row[col].split(".")[1]) == 1                       # shown to 0.1 nats
+            assert shown_equals(row[col], r[col])
+        assert shown_equals(row["weight"], r["weight"])
+        assert row["rank"] == ("–" if pd.isna(r["rank"]) else str(int(r["rank"])))
+
+
+def test_the_decision_names_best_close_structures_weights_and_the_question(written):
+    run, _, html = written
+    ranking = pd.read_csv(run / "ranking.csv")
+    decision = html[html.index('<section id="decision">'):html.index('<section id="ranking">')]
+    assert "The best ranked structure is traits-month-fixed</b>" in decision
+    close = ranking.set_index("structure").loc["traits-month-random"]
+    diff = f"{close['elpd_diff']:.1f}".replace("-", "−")
+    assert (f"Not distinguishable from it (within 2 SE of the difference or 4 nats): traits-month-random "
+            f"(Δelpd {diff} ± {close['se_diff']:.1f})") in decision
+    assert "leaf-vcmax (Δelpd" not in decision                         # 20 nats behind: told apart
+    assert "are <b>not</b> posterior probabilities that a structure is true" in decision
+    assert f"<i>{QUESTION}</i>" in decision                            # two comment lines, cut at the "?"
+
+
+def test_a_failed_structure_that_scores_higher_is_announced_before_the_best(written):
+    _, _, html = written
+    announced = html.index("<b>Announced first:</b> traits-month-fixed-t scored")
+    assert announced < html.index("The best ranked structure is")
+    assert "not ranked (fits did not converge)" in html
+
+
+def test_contrasts_are_the_one_term_pairs_with_paired_differences(written):
+    run, _, _ = written
+    contrasts = pd.read_csv(run / "tables" / "contrasts.csv")
+    pointwise = pd.read_csv(run / "pointwise.csv")
+    ranking = pd.read_csv(run / "ranking.csv").set_index("structure")
+    assert set(zip(contrasts["first"], contrasts["second"])) == {("traits-month-fixed", "traits-month-random"),
+                                                                 ("leaf-vcmax", "pooled")}
+    for _, c in contrasts.iterrows():
+        d = pointwise[f"elpd:{c['first']}"] - pointwise[f"elpd:{c['second']}"]
+        assert c["elpd_diff"] == pytest.approx(d.sum())
+        # paired SE over leaves, sqrt(G var(d, ddof=1)) (Vehtari, Gelman & Gabry 2017, sec. 5.2)
+        assert c["se_diff"] == pytest.approx(np.sqrt(len(d) * d.var(ddof=1)))
+    first = contrasts[contrasts["first"] == "traits-month-fixed"].iloc[0]
+    assert first["elpd_diff"] == pytest.approx(-ranking.loc["traits-month-random", "elpd_diff"])
+    assert first["se_diff"] == pytest.approx(ranking.loc["traits-month-random", "se_diff"])
+    assert first["told_apart"] == "no" and "campaign" in first["difference"]
+    other = contrasts[contrasts["first"] == "leaf-vcmax"].iloc[0]
+    assert other["told_apart"] == "yes" and other["difference"] == "leaf-vcmax adds leaf effects on vcmax25"
+
+
+def test_diagnostics_list_every_fit_of_every_structure(written):
+    run, _, html = written
+    fits = pd.read_csv(run / "tables" / "fits.csv", keep_default_na=False)
+    for name in [p.stem for p in (run / "results").glob("*.json")]:
+        stored = json.loads((run / "results" / f"{name}.json").read_text())["details"]["fits"]
+        mine = fits[fits["structure"] == name]
+        assert list(mine["role"]) == [f["role"] for f in stored]
+        assert list(mine["seed"]) == [f["seed"] for f in stored]
+        assert list(mine["used"]) == ["retried", "yes", "yes", "spot check"]
+    assert "attempt 1 marginal (R-hat 1.080 &gt; 1.05); mixing" in html     # the retry's cause
+    accuracy = pd.read_csv(run / "tables" / "scoring_accuracy.csv").set_index("structure")
+    result = json.loads((run / "results" / "pooled.json").read_text())
+    assert accuracy.loc["pooled", "max_quad_bound"] == pytest.approx(max(result["quad_bound_i"]))
+    assert accuracy.loc["pooled", "max_mcse_i"] == pytest.approx(max(result["mcse_i"]))
+
+
+def test_methods_text_cites_its_sources_and_reproduction_lists_hashes(written):
+    run, _, html = written
+    methods = html[html.index('<section id="methods">'):html.index('<section id="reproduction">')]
+    for ref in ("Farquhar GD, von Caemmerer S, Berry JA (1980)", "Bernacchi CJ, Singsaas EL", "Vehtari A, Gelman A, "
+                "Gabry J (2017)", "Pareto smoothed importance sampling. Journal of Machine Learning Research 25(72)",
+                "Yao Y, Vehtari A, Simpson D, Gelman A (2018)", "Sivula T, Magnusson M"):
+        assert ref in methods
+    assert "here 12 leaves, fewer than 100" in methods
+    repro = pd.read_csv(run / "tables" / "reproduction.csv").set_index("item")["value"]
+    manifest = json.loads((run / "manifest.json").read_text())
+    assert repro["data SHA-256"] == manifest["data_sha256"]
+    assert repro["command"] == manifest["command"]
+    assert len(repro["SHA-256 of results/pooled.json"]) == 64
+    priors = html[html.index('<section id="priors">'):html.index('<section id="methods">')]
+    assert "vcmax25 slope on n_area (per 0.5 units, centred at 2)" in priors
+    assert "Student-t likelihood" in priors                             # traits-month-fixed-t's option
+
+
+def test_an_unfinished_run_names_the_structures_it_lacks(fresh_run, no_engine, capsys):
+    manifest = json.loads((fresh_run / "manifest.json").read_text())
+    del manifest["finished"], manifest["results"]
+    (fresh_run / "manifest.json").write_text(json.dumps(manifest))
+    for name in ("pooled", "traits-month-random"):
+        (fresh_run / "results" / f"{name}.json").unlink()
+    html = write_report(fresh_run).read_text()
+    assert "<b>Unfinished run.</b>" in html
+    assert "structures without a result: pooled, traits-month-random." in html
+    assert "it lists pooled, traits-month-random, which have no result" in html     # ranking.csv is older
+    assert "3 of 5 structures scored; NOT FINISHED" in html
+    from leafcv.cli import main
+
+    assert main(["report", str(fresh_run)]) == 0            # the ranking is left alone, the page is written
+    assert "the run has not finished; its ranking is not rewritten" in capsys.readouterr().out
+
+
+def test_options_choose_the_structure_and_the_group(fresh_run, no_engine):
+    html = write_report(fresh_run, structure="traits-month-random", group="campaign").read_text()
+    assert "What traits-month-random estimates" in html and "has no saved fit" in html
+    leaves = pd.read_csv(fresh_run / "figures" / "leaves.csv")
+    assert set(leaves["group"]) == {"2026-05", "2026-06"}
+    with pytest.raises(UserInputError, match="valid: taxon, campaign"):
+        write_report(fresh_run, group="site")
+    with pytest.raises(UserInputError, match="no structure 'nope'"):
+        write_report(fresh_run, structure="nope")
+
+
+def test_tables_and_figures_of_an_earlier_report_do_not_stay(fresh_run, no_engine):
+    write_report(fresh_run)
+    assert (fresh_run / "tables" / "population_estimates.csv").exists()
+    (fresh_run / "figures" / "old-figure.png").write_bytes(b"left by an earlier version")
+    write_report(fresh_run, structure="traits-month-random")         # it has no saved fit
+    assert not (fresh_run / "tables" / "population_estimates.csv").exists()
+    assert not (fresh_run / "tables" / "leaf_estimates.csv").exists()
+    assert not (fresh_run / "figures" / "old-figure.png").exists()
+    assert (fresh_run / "tables" / "ranking.csv").exists() and (fresh_run / "figures" / "khat.svg").exists()
+
+
+def test_groups_of_a_changed_data_file_are_not_used(fresh_run, no_engine):
+    data = fresh_run.parent.parent / "observations.csv"
+    data.write_text(data.read_text().replace("SP-A", "SP-Z"))
+    html = write_report(fresh_run).read_text()
+    assert "has changed since the run" in html
+    assert set(pd.read_csv(fresh_run / "figures" / "leaves.csv")["group"]) == {"all"}
+
+
+def test_cli_report_rewrites_the_ranking_then_writes_the_page(fresh_run, no_engine, capsys):
+    from leafcv.cli import main
+
+    (fresh_run / "ranking.txt").write_text("stale")
+    assert main(["report", str(fresh_run), "--group", "taxon"]) == 0
+    out = capsys.readouterr().out
+    assert (fresh_run / "ranking.txt").read_text().startswith("structure")
+    assert f"report: {fresh_run / 'report.html'}" in out
+    assert main(["report", str(fresh_run), "--structure", "nope"]) == 1
+
+
+def test_report_of_a_folder_without_manifest_is_a_user_error(tmp_path):
+    with pytest.raises(UserInputError, match="no manifest.json"):
+        write_report(tmp_path)
+
+
+
+def test_the_disabled_engines_really_are_disabled(no_engine):
+    """The guard the report is written under: constructing an engine fails."""
+    import leafcv.engines.pystan_engine as pystan_engine
+    import leafcv.fitting as fitting
+
+    from .conftest import EngineUsed
+
+    with pytest.raises(EngineUsed):
+        fitting.default_engine()
+    with pytest.raises(EngineUsed):
+        pystan_engine.PyStanEngine()

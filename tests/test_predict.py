@@ -1,0 +1,100 @@
+"""Predictions for new leaves (leafcv.predict) from a run made with the fake engine (no sampler): a new
+leaf that copies a fitted leaf's traits and levels gets exactly that leaf's population mean; a new level
+of a random grouping is integrated over, one of a fixed grouping is refused; expected A follows the FvCB
+model (Farquhar, von Caemmerer & Berry 1980) at the predicted parameters."""
+from __future__ import annotations
+
+import shutil
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from leafcv import fvcb
+from leafcv.api import load
+from leafcv.compare import run_comparison
+from leafcv.demo import write_demo
+from leafcv.design import build_design, leaf_link_values, natural_values
+from leafcv.errors import DataError, UserInputError
+from leafcv.inits import fit_leaves
+from leafcv.predict import predict
+from leafcv.spec import SamplerSpec
+from .fakes import FakeEngine
+
+
+@pytest.fixture(scope="module")
+def fake_run(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("predict")
+    path = write_demo(folder, quick=True)
+    comparison, dataset = load(path)
+    out = folder / "run"
+    run_comparison(comparison, dataset, out, engine=FakeEngine(), spot_checks=0,
+                   sampler=SamplerSpec(chains=2, warmup=10, draws=100, seed=9), log=lambda m: None)
+    return comparison, dataset, out
+
+
+def _leaf_rows(dataset, idx):
+    cols = ["leaf", *dataset.groups, *dataset.traits]
+    return dataset.leaves.iloc[idx][cols].rename(columns={"leaf": "plant_leaf"}).reset_index(drop=True)
+
+
+def test_a_copy_of_a_fitted_leaf_has_that_leafs_population_mean(fake_run):
+    import arviz as az
+
+    comparison, dataset, out = fake_run
+    name = "traits-month-random"
+    pred = predict(out, name, _leaf_rows(dataset, [0, 5]))
+    design = build_design(comparison.structure(name), dataset, comparison.data, leaf_fits=fit_leaves(dataset))
+    post = az.from_netcdf(out / "fits" / f"{name}.nc").posterior
+    draws = {k: post[k].values.reshape((-1,) + post[k].shape[2:]) for k in post.data_vars}
+    mu, _ = leaf_link_values(design, draws)
+    nat = natural_values(design, mu)
+    t = pred.parameters.set_index(["leaf", "parameter"])
+    for i, leaf in ((0, dataset.leaves["leaf"].iloc[0]), (5, dataset.leaves["leaf"].iloc[5])):
+        for p in design.params:
+            assert t.loc[(leaf, p), "median"] == pytest.approx(float(np.median(nat[p][:, i])), rel=1e-10)
+            lo, hi = t.loc[(leaf, p), ["new_leaf_q05", "new_leaf_q95"]]
+            m_lo, m_hi = t.loc[(leaf, p), ["mean_q05", "mean_q95"]]
+            if p in ("vcmax25", "alpha"):           # leaf effects: a new leaf is more uncertain
+                assert hi - lo > m_hi - m_lo
+
+
+def test_a_new_level_of_a_random_grouping_is_integrated_and_of_a_fixed_one_refused(fake_run):
+    comparison, dataset, out = fake_run
+    rows = _leaf_rows(dataset, [0])
+    rows.loc[0, "campaign"] = "a-campaign-never-seen"
+    pred = predict(out, "traits-month-random", rows)
+    assert len(pred.parameters) == 5 and np.isfinite(pred.parameters["new_leaf_q95"]).all()
+    with pytest.raises(DataError) as err:
+        predict(out, "traits-month-fixed", rows)
+    msg = str(err.value)
+    assert "'campaign'" in msg and "row 2" in msg and "a-campaign-never-seen" in msg and "random effect" in msg
+
+
+def test_missing_columns_and_unknown_structures_are_named(fake_run):
+    comparison, dataset, out = fake_run
+    rows = _leaf_rows(dataset, [0]).drop(columns=["n_area"])
+    with pytest.raises(DataError, match="'n_area'"):
+        predict(out, "traits-month-fixed", rows)
+    with pytest.raises(UserInputError, match="no fit of structure 'nope'"):
+        predict(out, "nope", _leaf_rows(dataset, [0]))
+
+
+def test_expected_assimilation_is_the_fvcb_model_at_the_predicted_parameters(fake_run):
+    comparison, dataset, out = fake_run
+    cond = pd.DataFrame({"intercellular_co2": [150.0, 600.0], "photon_flux": [1500.0, 300.0],
+                         "leaf_temperature": [25.0, 31.0]})
+    rows = _leaf_rows(dataset, [2])
+    pred = predict(out, "leaf-vcmax-alpha", rows, cond)
+    a = pred.assimilation
+    assert list(a["intercellular_co2"]) == [150.0, 600.0] and (a["oxygen"] == 210.0).all()
+    # leaf-vcmax-alpha has no traits: the population mean is the same for every leaf, so the medians of
+    # A follow from the medians of the parameters only through the model's monotonicity; check instead
+    # that the interval of a new leaf contains the model at the parameters' medians
+    t = pred.parameters.set_index("parameter")["median"]
+    jmax = t["jmax25"]
+    for j, row in a.iterrows():
+        at_median = float(fvcb.net_assimilation(row["intercellular_co2"], row["photon_flux"], row["leaf_temperature"],
+                                                t["vcmax25"], jmax, t["alpha"], t["theta"], t["rd25"]))
+        assert row["new_leaf_q05"] <= at_median <= row["new_leaf_q95"]
+        assert row["new_leaf_q05"] <= row["mean_q05"] <= row["a_median"] <= row["mean_q95"] <= row["new_leaf_q95"]
