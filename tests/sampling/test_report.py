@@ -48,6 +48,11 @@ def test_the_quick_demo_report_renders_with_the_runs_numbers(demo_run, chromium,
     other = leaves["other"].iloc[0]
     np.testing.assert_allclose(leaves.loc[leaves["other"] == other, "delta"],
                                pointwise[f"elpd:{best}"] - pointwise[f"elpd:{other}"])
+    khat = pd.read_csv(out / "figures" / "khat.csv")
+    stored = json.loads((out / "results" / f"{best}.json").read_text())["details"]["psis_khat"]
+    np.testing.assert_allclose(khat.loc[khat["structure"] == best, "psis_khat"], stored)
+    refit = khat[(khat["structure"] == best) & (khat["method"] != "psis")]
+    assert refit["khat"].isna().all() and np.isfinite(refit["psis_khat"]).all()
     shot = tmp_path / "report.png"
     height = int(attrs["data-height"])
     done = _run(chromium, tmp_path / "profile2", f"--screenshot={shot}", f"--window-size=1240,{height}", (out / "report.html").as_uri())

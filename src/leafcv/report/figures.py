@@ -184,17 +184,23 @@ def leaves_figure(data: pd.DataFrame, unit: str, group: str | None) -> Figure:
 # ----------------------------------------------------------------------------------------------
 # Pareto k-hat per unit
 
-def khat_data(pointwise: pd.DataFrame, unit: str, structures: list[str], thresholds: dict[str, float]) -> pd.DataFrame:
-    """Per unit and structure: k-hat (NaN unless scored by PSIS), how it was scored, and the threshold."""
+def khat_data(pointwise: pd.DataFrame, unit: str, structures: list[str], thresholds: dict[str, float],
+              psis_khat: dict[str, list] | None = None) -> pd.DataFrame:
+    """Per unit and structure: k-hat (NaN unless scored by PSIS), how it was scored, the threshold, and
+    ``psis_khat``: the PSIS k-hat of every unit, refitted ones too, where the run stored it."""
     rows = []
     for s in structures:
         if f"khat:{s}" not in pointwise:
             continue
-        rows.append(pd.DataFrame({unit: pointwise[unit].astype(str), "structure": s,
-                                  "khat": pointwise[f"khat:{s}"].to_numpy(float),
+        psis = (psis_khat or {}).get(s)
+        khat = pointwise[f"khat:{s}"].to_numpy(float)
+        rows.append(pd.DataFrame({unit: pointwise[unit].astype(str), "structure": s, "khat": khat,
+                                  "psis_khat": np.asarray(psis, float) if psis is not None and len(psis) == len(khat)
+                                  else khat,
                                   "method": pointwise[f"method:{s}"].astype(str),
                                   "threshold": thresholds.get(s, np.nan)}))
-    return pd.concat(rows, ignore_index=True) if rows else pd.DataFrame(columns=[unit, "structure", "khat", "method", "threshold"])
+    return pd.concat(rows, ignore_index=True) if rows else pd.DataFrame(
+        columns=[unit, "structure", "khat", "psis_khat", "method", "threshold"])
 
 
 def khat_figure(data: pd.DataFrame, unit: str) -> Figure:
@@ -220,14 +226,16 @@ def khat_figure(data: pd.DataFrame, unit: str) -> Figure:
             refit = d["method"].to_numpy() != "psis"
             if refit.any():
                 ax.plot(x[refit], np.full(refit.sum(), 0.97), "|", color=colour(k), ms=8, mew=1.6, transform=top)
-        finite = data["khat"].to_numpy(float)
+                ax.plot(x[refit], d["psis_khat"].to_numpy(float)[refit], markers[k % len(markers)], color=colour(k),
+                        mfc="white", ms=4, ls="none")
+        finite = data["psis_khat" if "psis_khat" in data else "khat"].to_numpy(float)
         finite = finite[np.isfinite(finite)]
         top_value = max([*finite, *data["threshold"].dropna().to_numpy(float), 0.5])
         ax.set_ylim(min([*finite, 0.0]) - 0.05, top_value + 0.15)
         handles, names = ax.get_legend_handles_labels()
         handles += [Line2D([], [], color=GREY, ls="--", lw=0.9), Line2D([], [], color=GREY, marker="|", ms=8, mew=1.6,
                                                                         ls="none")]
-        names += ["k̂ threshold min(1 − 1/log10 S, 0.7)", "scored by an exact refit (no k̂ kept)"]
+        names += ["k̂ threshold min(1 − 1/log10 S, 0.7)", "scored by an exact refit (its PSIS k̂ hollow)"]
         fig.legend(handles, names, loc="upper center", ncol=2 if len(handles) > 3 else len(handles), frameon=False,
                    bbox_to_anchor=(0.5, 1.0))
         ax.set_ylabel("Pareto k̂")

@@ -65,7 +65,7 @@ def scatter_figure(data: pd.DataFrame, scores: pd.DataFrame) -> Figure:
                 e = d[d["structure"] == s]
                 sc = scores[(scores["structure"] == s) & (scores["curve_type"] == kind)].iloc[0]
                 ax.plot(e["observed"], e["predicted"], "osD"[k % 3], ms=2.6, alpha=0.55, color=colour(k), ls="none",
-                        label=f"{s}: RMSE {sc['rmse']:.2f}, R² {sc['r2']:.3f}")
+                        label=f"{s}: RMSE {sc['rmse']:.2f}, R² {sc['r2']:.3f}", zorder=3 + len(structures) - k)
             ax.set_title(CURVE_NAMES.get(kind, kind), loc="left")
             ax.set_xlabel("observed " + A_LABEL)
             ax.set_ylabel("held-out predicted " + A_LABEL)

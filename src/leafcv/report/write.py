@@ -142,11 +142,12 @@ def _diagnostics_section(run: RunFolder, tables: Tables) -> str:
     if run.pointwise is None:
         return diagnostics_html(run, tables, "<p>No pointwise.csv: no k̂ per unit.</p>")
     names = [s for s in run.results if f"khat:{s}" in run.pointwise]
-    data = figures.khat_data(run.pointwise, run.unit, names, thresholds(run))
+    psis = {s: run.results[s].get("details", {}).get("psis_khat") for s in names}
+    data = figures.khat_data(run.pointwise, run.unit, names, thresholds(run), {s: k for s, k in psis.items() if k})
     b64 = figures.save(figures.khat_figure(data, run.unit), data, "khat", run.path / "figures", tables.figures)
     html = figure(b64, "khat", "Pareto k-hat per unit and structure",
                   "Pareto k̂ of each unit's PSIS estimate (Vehtari et al. 2024); above the threshold the unit was "
-                  "refitted exactly.")
+                  "refitted exactly (hollow: the PSIS k̂ of a refitted unit, where the run kept it).")
     return diagnostics_html(run, tables, html)
 
 
