@@ -314,7 +314,8 @@ def seed_plan(seed: int) -> dict:
             "kfold_fold": f"{seed} + {KFOLD_SEED_OFFSET} + fold index", "kfold_assignment": seed,
             "spot_checks": f"numpy default_rng([{seed}, {SPOT_STREAM}]) orders the leaves; the first leaves not "
                            f"flagged by k-hat are checked",
-            "retries": f"attempt a (1-based) of any fit: its seed + (a - 1) x {RETRY_SEED_OFFSET}"}
+            "retries": f"attempt a (1-based) of any fit: its seed + (a - 1) x {RETRY_SEED_OFFSET}",
+            "range": "every fit's seed is taken modulo 2^32"}
 
 
 def run_comparison(comparison: Comparison, dataset: Dataset, out: Path, *, method: str | None = None,

@@ -12,6 +12,11 @@ import arviz as az
 import numpy as np
 
 from .engines.base import Draws
+from .errors import Problem
+
+#: Codes of the sampler problems a fit can have (`diagnose`); `leafcv.cv.methods.remedy` acts on them.
+MIXING_CODES = ("rhat", "ess-bulk", "ess-tail", "ebfmi", "treedepth")
+DIVERGENCE_CODE = "divergences"
 
 RHAT_MAX = 1.01
 ESS_PER_CHAIN_MIN = 100
@@ -131,15 +136,15 @@ def diagnose(draws: Draws, names: list[str] | None = None, max_treedepth: int = 
     min_tail = min(tail.values(), default=np.nan)
     problems = []
     if max_rhat > RHAT_MAX:
-        problems.append(f"R-hat {max_rhat:.3f} > {RHAT_MAX} (worst: {worst})")
+        problems.append(Problem(f"R-hat {max_rhat:.3f} > {RHAT_MAX} (worst: {worst})", "rhat", worst))
     if min_bulk < ESS_PER_CHAIN_MIN * chains:
-        problems.append(f"bulk ESS {min_bulk:.0f} < {ESS_PER_CHAIN_MIN * chains}")
+        problems.append(Problem(f"bulk ESS {min_bulk:.0f} < {ESS_PER_CHAIN_MIN * chains}", "ess-bulk"))
     if min_tail < ESS_PER_CHAIN_MIN * chains:
-        problems.append(f"tail ESS {min_tail:.0f} < {ESS_PER_CHAIN_MIN * chains}")
+        problems.append(Problem(f"tail ESS {min_tail:.0f} < {ESS_PER_CHAIN_MIN * chains}", "ess-tail"))
     if div:
-        problems.append(f"{div} divergent transition(s)")
+        problems.append(Problem(f"{div} divergent transition(s)", "divergences"))
     if hits > TREEDEPTH_HIT_FRACTION_MAX * chains * n:
-        problems.append(f"{hits} iterations hit the maximum tree depth {max_treedepth}")
+        problems.append(Problem(f"{hits} iterations hit the maximum tree depth {max_treedepth}", "treedepth"))
     if np.min(bfmi) < EBFMI_MIN:
-        problems.append(f"E-BFMI {np.min(bfmi):.2f} < {EBFMI_MIN} in some chain")
+        problems.append(Problem(f"E-BFMI {np.min(bfmi):.2f} < {EBFMI_MIN} in some chain", "ebfmi"))
     return Diagnostics(max_rhat, min_bulk, min_tail, div, hits, float(np.min(bfmi)), n, chains, worst, tuple(problems))

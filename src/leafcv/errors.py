@@ -54,6 +54,8 @@ class Problem(str):
     ``too-many-folds``; the design's own problems (`leafcv.design`): ``constant-term``, ``collinear-term``,
     ``too-few-leaf-terms``, ``no-training-points``, and ``not-estimable`` for any without a code.
     The observation table: ``varies-within-leaf`` (location: the column name).
+    A fit's sampler diagnostics (`leafcv.diagnostics.diagnose`): ``rhat`` (location: the worst
+    parameter), ``ess-bulk``, ``ess-tail``, ``divergences``, ``treedepth``, ``ebfmi``.
     """
 
     def __new__(cls, text: str, code: str, location: str = ""):

@@ -16,6 +16,7 @@ import numpy as np
 import pandas as pd
 
 from . import fvcb
+from .data.dataset import LEAF_TERM
 from .parameters import PARAMETER, RATIO_TARGET, Parameter, parameters  # noqa: F401  (re-exported)
 from .priors import PriorSet
 from .spec import ModelOptions, Structure
@@ -275,7 +276,7 @@ class LeafEffect:
 
     def place(self, ctx: TermContext) -> LeafTerm:
         ps = ctx.structure.params.get(self.param)
-        choice = (ps.centring if ps else {}).get("leaf", "auto")
+        choice = (ps.centring if ps else {}).get(LEAF_TERM, "auto")
         informed, rule = informed_leaves(self.param, ctx.ratio.get(self.param, False), ctx.leaf_fits,
                                          ctx.points_per_leaf, ctx.train)
         centred = informed if choice == "auto" else (np.full(len(ctx.train), choice == "centred") & ctx.train)
@@ -305,9 +306,9 @@ def terms_of(structure: Structure, traits, params: tuple[Parameter, ...]) -> dic
         if ps is not None:
             terms += [TraitSlope(p.name, t) if t in traits else LevelContrasts(p.name, t) for t in ps.fixed]
             terms += [SplitSlope(p.name, t, g) for t, g in ps.split]
-            if "leaf" in ps.random:
+            if LEAF_TERM in ps.random:
                 terms.append(LeafEffect(p.name))
-            terms += [GroupIntercept(p.name, g) for g in ps.random if g != "leaf"]
+            terms += [GroupIntercept(p.name, g) for g in ps.random if g != LEAF_TERM]
             terms += [RandomSlope(p.name, g, t) for t, g in ps.slopes]
         out[p.name] = terms
     return out

@@ -51,13 +51,16 @@ def test_a_retry_for_mixing_doubles_warmup_and_draws_and_the_result_counts_them(
 def test_divergences_raise_adapt_delta_and_switch_group_effects_to_noncentred(quick_demo):
     comparison, _, _ = quick_demo
     st = comparison.structure("traits-month-random")
-    smp, new, cause = remedy(("3 divergent transition(s)",), SamplerSpec(adapt_delta=0.8), st, 1)
+    from leafcv.errors import Problem
+
+    smp, new, cause = remedy((Problem("3 divergent transition(s)", "divergences"),), SamplerSpec(adapt_delta=0.8), st, 1)
     assert smp.adapt_delta == 0.95 and smp.draws == SamplerSpec().draws
     assert new.params["vcmax25"].centring["campaign"] == "noncentred"
     assert "leaf" not in new.params["vcmax25"].centring       # leaf effects keep their own choice
-    smp2, _, _ = remedy(("1 divergent transition(s)",), smp, new, 2)
+    smp2, _, _ = remedy((Problem("1 divergent transition(s)", "divergences"),), smp, new, 2)
     assert smp2.adapt_delta == 0.99
-    smp3, _, cause3 = remedy(("R-hat 1.030 > 1.01 (worst: b0[1])",), SamplerSpec(warmup=300, draws=400), st, 1)
+    smp3, _, cause3 = remedy((Problem("R-hat 1.030 > 1.01 (worst: b0[1])", "rhat", "b0[1]"),),
+                             SamplerSpec(warmup=300, draws=400), st, 1)
     assert (smp3.warmup, smp3.draws) == (600, 800) and "mixing" in cause3
 
 
@@ -96,3 +99,18 @@ def test_spot_checks_that_disagree_replace_psis_and_two_refit_every_leaf(quick_d
     assert set(res.method_i) == {"refit"} and res.n_refits == dataset.n_leaves
     assert np.all(np.isnan(res.pareto_k))             # k-hat only for leaves scored by PSIS: none here
     assert any("disagree" in w for w in res.warnings) and any("every leaf was refitted" in w for w in res.warnings)
+
+
+def test_seeds_near_the_top_of_the_range_wrap_instead_of_overflowing(quick_demo):
+    # Stan's seeds are unsigned 32-bit integers (Stan Reference Manual, "random_seed"); the comparison
+    # file accepts run seeds up to 2^32 - 1, so refit and retry offsets must wrap
+    from leafcv.comparison import MAX_SEED
+
+    comparison, dataset, _ = quick_demo
+    sampler = SamplerSpec(chains=2, warmup=10, draws=150, seed=MAX_SEED)
+    engine = FakeEngine(split_below=200)                    # the full fit fails once: a retry seed too
+    _, det = cross_validate(pooled_structure(comparison), dataset, comparison, method="auto", spot_checks=2,
+                            engine=engine, leaf_fits=fit_leaves(dataset), sampler=sampler)
+    seeds = [f["seed"] for f in det.fits]
+    assert len(seeds) >= 4 and all(0 <= s <= MAX_SEED for s in seeds)
+    assert seeds[0] == MAX_SEED and seeds[1] == (MAX_SEED + 7919) % 2**32      # the retry of the full fit

@@ -19,9 +19,9 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
-from ..data.dataset import Dataset
+from ..data.dataset import LEAF_TERM, Dataset
 from ..design import leaf_link_values
-from ..diagnostics import worst_grade
+from ..diagnostics import DIVERGENCE_CODE, MIXING_CODES, worst_grade
 from ..errors import SpecError
 from ..fitting import StructureFit, fit_structure
 from ..inits import LeafFits
@@ -49,6 +49,9 @@ WARM_DRAWS_MIN = 200
 RETRY_SEED_OFFSET = 7919
 REFIT_SEED_OFFSET = 1000
 KFOLD_SEED_OFFSET = 5000
+#: Every fit's seed is taken modulo 2^32 (Stan's seeds are unsigned 32-bit), so a run seed near the top of
+#: the range a comparison file accepts still gives valid refit and retry seeds.
+SEED_MODULUS = 2**32
 #: Stream of the run seed that orders leaves for spot checks (the same leaves for every structure).
 SPOT_STREAM = 17
 #: A spot check disagrees when |PSIS - exact| > max(SPOT_MIN_NATS, SPOT_MCSE_MULTIPLE sqrt(mcse_psis^2 + mcse_exact^2)).
@@ -95,7 +98,7 @@ def _fold_seed_base(sampler: SamplerSpec, method: str) -> int:
 def folds_for(dataset: Dataset, by: str, method: str, k: int, seed: int) -> list[np.ndarray]:
     """Held-out leaf sets: one per leaf, per level of grouping ``by``, or K seeded grouped folds."""
     L = dataset.n_leaves
-    if by == "leaf":
+    if by == LEAF_TERM:
         units = np.arange(L)
     else:
         levels = sorted(dataset.leaves[by].astype(str).unique())
@@ -189,7 +192,7 @@ def _noncentred_groups(structure: Structure) -> Structure:
             continue
         centring = dict(ps.centring)
         for g in ps.random:
-            if g != "leaf":
+            if g != LEAF_TERM:
                 centring[g] = "noncentred"
         for trait, g in ps.slopes:
             centring[f"{trait}|{g}"] = "noncentred"
@@ -205,8 +208,9 @@ def remedy(problems: tuple[str, ...], sampler: SamplerSpec, structure: Structure
     effects, the non-centred form (few, weakly informed levels sample better so; DESIGN.md).
     R-hat, ESS, E-BFMI or tree depth: twice the warm-up and twice the draws.
     """
-    divergent = any("divergent" in p for p in problems)
-    mixing = any(p.startswith(("R-hat", "bulk ESS", "tail ESS", "E-BFMI")) or "tree depth" in p for p in problems)
+    codes = {getattr(p, "code", "") for p in problems}
+    divergent = DIVERGENCE_CODE in codes
+    mixing = bool(codes & set(MIXING_CODES))
     causes, new, st = [], sampler, structure
     if divergent:
         new = replace(new, adapt_delta=max(new.adapt_delta, 0.95 if attempt == 1 else 0.99))
@@ -240,7 +244,7 @@ def fit_with_retries(structure, dataset, comparison, sampler, leaf_fits, train, 
         smp = replace(sampler, warmup=max(WARM_WARMUP_MIN, int(sampler.warmup * WARM_WARMUP_FRACTION)),
                       draws=max(WARM_DRAWS_MIN, int(sampler.draws * WARM_DRAWS_FRACTION)))
     for attempt in range(MAX_ATTEMPTS):
-        s = seed + attempt * RETRY_SEED_OFFSET
+        s = (seed + attempt * RETRY_SEED_OFFSET) % SEED_MODULUS
         t = time.perf_counter()
         warm = warm_start if attempt == 0 else None     # a retry starts cold, but keeps the scaling
         if attempt == 1 and warm_start is not None:
@@ -380,7 +384,7 @@ def cross_validate(structure: Structure, dataset: Dataset, comparison: Compariso
     grades: list[str] = []
     n_refits = 0
     n_draws = sampler.chains * sampler.draws
-    if method == "auto" and by != "leaf":
+    if method == "auto" and by != LEAF_TERM:
         details.notes.append(f"integrated PSIS integrates one leaf's effects; folds by {by!r} are refitted exactly, "
                              f"each held-out leaf scored with the effects of its held-out {by} integrated too")
         method = "exact"
@@ -457,7 +461,7 @@ def cross_validate(structure: Structure, dataset: Dataset, comparison: Compariso
                                  + ", ".join(leaf_ids[g] for g in flagged))
         unresolved_in = [g for g in range(L) if acc.how[g] == "psis" and sc.quad[g].bound > LEAF_TOL] + \
                         [g for g in replace_leaves if ex[g][4].bound > LEAF_TOL]
-    elif by != "leaf":
+    elif by != LEAF_TERM:
         return _cross_validate_levels(structure, dataset, comparison, method, by, folds, engine, leaf_fits, sampler,
                                       options, priors, details, keep)
     else:
