@@ -98,3 +98,22 @@ def test_expected_assimilation_is_the_fvcb_model_at_the_predicted_parameters(fak
                                                 t["vcmax25"], jmax, t["alpha"], t["theta"], t["rd25"]))
         assert row["new_leaf_q05"] <= at_median <= row["new_leaf_q95"]
         assert row["new_leaf_q05"] <= row["mean_q05"] <= row["a_median"] <= row["mean_q95"] <= row["new_leaf_q95"]
+
+
+def test_the_new_leaf_file_keeps_levels_as_written(tmp_path):
+    # a level that looks like a number stays the text the data reader keeps ("05" is not 5)
+    from leafcv.predict import _read
+
+    path = tmp_path / "new.csv"
+    path.write_text("plant_leaf;campaign;n_area\nN1; 05 ;1.5\nN2;007;\n")
+    t = _read(path)
+    assert list(t["campaign"]) == ["05", "007"] and list(t["n_area"]) == ["1.5", ""]
+
+
+def test_a_csv_of_new_leaves_predicts_as_the_same_frame(fake_run, tmp_path):
+    comparison, dataset, out = fake_run
+    rows = _leaf_rows(dataset, [1, 3])
+    rows.to_csv(tmp_path / "new.csv", index=False)
+    a = predict(out, "traits-month-random", rows).parameters
+    b = predict(out, "traits-month-random", tmp_path / "new.csv").parameters
+    pd.testing.assert_frame_equal(a, b)

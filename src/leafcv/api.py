@@ -127,7 +127,7 @@ def from_frame(
         text = comparison_text(raw, "written by leafcv.from_frame")
     except (TypeError, ValueError) as exc:
         raise UserInputError(str(folder / "comparison.toml"), [str(exc)]) from None
-    (folder / "comparison.toml").write_text(text)
+    (folder / "comparison.toml").write_text(text, encoding="utf-8")
     return load(folder / "comparison.toml")
 
 

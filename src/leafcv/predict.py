@@ -135,9 +135,12 @@ def _read(path: Path) -> pd.DataFrame:
     if not path.exists():
         raise UserInputError(str(path), ["file not found: give a CSV of the new leaves (one row per leaf)"])
     try:
-        return pd.read_csv(path, sep=None, engine="python")
+        # every cell as text, as the data reader keeps group levels ("05" stays "05"); numbers are converted
+        # where they are needed
+        table = pd.read_csv(path, sep=None, engine="python", dtype=str, keep_default_na=False)
     except (pd.errors.ParserError, UnicodeDecodeError, pd.errors.EmptyDataError) as exc:
         raise DataError(str(path), [f"cannot read the table: {exc}"]) from None
+    return table.apply(lambda col: col.str.strip())
 
 
 def _check_fit_matches(design, post, path: Path) -> None:
@@ -145,7 +148,8 @@ def _check_fit_matches(design, post, path: Path) -> None:
     problems = []
     if list(post["parameter"].values) != list(design.params):
         problems.append("its parameters differ from the structure's")
-    if "coefficient" in post.dims and list(post["coefficient"].values) != [c.label for c in design.coefficients]:
+    if "coefficient" in post.dims and list(post["coefficient"].values) != [f"{c.param}: {c.label}"
+                                                                           for c in design.coefficients]:
         problems.append("its coefficients differ from the structure's")
     if design.group_terms and "level_value" not in post:
         problems.append("it has no level_value (written by an older leafcv); run `leafcv compare` again")
@@ -184,14 +188,14 @@ def _check_new_leaves(design, ctx: TermContext, new: pd.DataFrame, source: str) 
         else:
             new[t] = x
     for g in sorted(groups - set(missing)):
-        empty = np.flatnonzero(new[g].isna().to_numpy())
+        empty = np.flatnonzero((new[g].isna() | (new[g].astype(str).str.strip() == "")).to_numpy())
         if empty.size:
             problems.append(f"column {g!r}: empty in row(s) {', '.join(str(b + 2) for b in empty[:10])}; give each "
                             f"new leaf's level (a level the fit has not seen is allowed for a random grouping)")
     for g in sorted(fixed_groups - set(missing)):
         levels, _ = ctx.levels(g)
         for i, v in enumerate(new[g].astype(str)):
-            if v not in levels and not pd.isna(new[g].iloc[i]):
+            if v not in levels and not pd.isna(new[g].iloc[i]) and v.strip():
                 problems.append(f"column {g!r}, row {i + 2}: level {v!r} was not in the fitted data "
                                 f"({', '.join(levels)}); {g} is a fixed effect in structure "
                                 f"{design.structure.name!r}, so a new level has no estimate: use a fitted level, "

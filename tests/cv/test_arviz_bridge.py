@@ -65,8 +65,9 @@ def test_a_fit_is_labelled_by_its_terms_and_carries_each_leafs_natural_values(qu
     post = idata.posterior
     design = fit.design
     assert list(post["parameter"].values) == ["vcmax25", "jmax25", "alpha", "theta", "rd25"]
-    assert list(post["coefficient"].values) == [c.label for c in design.coefficients]
-    assert "n_area" in list(post["coefficient"].values)
+    assert list(post["coefficient"].values) == [f"{c.param}: {c.label}" for c in design.coefficients]
+    assert list(post["coefficient_label"].values) == [c.label for c in design.coefficients]
+    assert "vcmax25: n_area" in list(post["coefficient"].values)
     assert list(post["coefficient_parameter"].values) == [c.param for c in design.coefficients]
     assert list(post["leaf_term"].values) == ["vcmax25", "alpha"]
     assert list(post["leaf"].values) == [str(x) for x in dataset.leaves["leaf"]]
@@ -91,6 +92,27 @@ def test_a_fit_is_labelled_by_its_terms_and_carries_each_leafs_natural_values(qu
     idata.to_netcdf(path)
     back = az.from_netcdf(path)
     assert list(back.posterior["coefficient_kind"].values) == [c.kind for c in design.coefficients]
-    assert float(back.posterior["coefficient_scale"].sel(coefficient="chl_ug").values) == 10.0
+    assert float(back.posterior["coefficient_scale"].sel(coefficient="alpha: chl_ug").values) == 10.0
     summary = az.summary(back, var_names=["b0"], kind="stats")
     assert len(summary) == 5 and summary.index[0] == "b0[vcmax25]"
+
+
+def test_a_trait_acting_on_two_parameters_gets_two_coordinates(quick_demo):
+    # the coordinate names the parameter, so each coefficient can be selected alone (ArviZ's summary
+    # needs unique coordinate values)
+    from dataclasses import replace
+
+    from leafcv.spec import ParamSpec
+
+    comparison, dataset, _ = quick_demo
+    st = comparison.structure("leaf-vcmax-alpha")
+    params = dict(st.params, vcmax25=ParamSpec(fixed=("n_area",), random=("leaf",)),
+                  alpha=ParamSpec(fixed=("n_area",), random=("leaf",)))
+    fit = fit_structure(replace(st, params=params), dataset, comparison.data,
+                        SamplerSpec(chains=2, warmup=10, draws=40, seed=4), engine=FakeEngine(),
+                        leaf_fits=fit_leaves(dataset))
+    post = to_inference_data(fit, dataset).posterior
+    assert list(post["coefficient"].values) == ["vcmax25: n_area", "alpha: n_area"]
+    assert post["beta"].sel(coefficient="alpha: n_area").shape == (2, 40)
+    summary = az.summary(post, var_names=["beta"], kind="stats")
+    assert list(summary.index) == ["beta[vcmax25: n_area]", "beta[alpha: n_area]"]

@@ -23,9 +23,10 @@ def _value(v: Any) -> str:
     if isinstance(v, float):
         if not math.isfinite(v):
             raise ValueError(f"a comparison file holds finite numbers only, got {v!r}")
-        return repr(v)
+        return repr(float(v))                          # float(): a NumPy float's repr is not TOML
     if isinstance(v, str):
-        return json.dumps(v, ensure_ascii=False)       # JSON string escapes are valid TOML basic strings
+        # JSON string escapes are valid TOML basic strings; TOML also forbids a raw DEL
+        return json.dumps(v, ensure_ascii=False).replace("\x7f", "\\u007f")
     if isinstance(v, (list, tuple)):
         return "[" + ", ".join(_value(x) for x in v) + "]"
     if isinstance(v, dict):

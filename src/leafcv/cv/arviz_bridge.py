@@ -136,7 +136,7 @@ def _labelled_dims(design) -> tuple[dict[str, list[str]], dict[str, list], dict[
             "leaf_corr": ["leaf_pair"]}
     coords: dict[str, list] = {
         "parameter": params,
-        "coefficient": [c.label for c in coefs],
+        "coefficient": [f"{c.param}: {c.label}" for c in coefs],      # unique: a trait may act on two parameters
         "group_term": [g.label for g in design.group_terms],
         "leaf_term": [lt.param for lt in design.leaf_terms],
         "sigma_group": list(design.sigma_groups),
@@ -145,6 +145,7 @@ def _labelled_dims(design) -> tuple[dict[str, list[str]], dict[str, list], dict[
     extra = {
         "parameter_link": ("parameter", [p.link for p in design.parameters]),
         "parameter_ratio_to_vcmax25": ("parameter", [int(bool(design.ratio.get(p))) for p in params]),
+        "coefficient_label": ("coefficient", [c.label for c in coefs]),
         "coefficient_parameter": ("coefficient", [c.param for c in coefs]),
         "coefficient_kind": ("coefficient", [c.kind for c in coefs]),
         "coefficient_term": ("coefficient", [c.term for c in coefs]),
@@ -161,7 +162,7 @@ def _labelled_dims(design) -> tuple[dict[str, list[str]], dict[str, list], dict[
     }
     from ..fitting import correlation_pairs, split_pairs
 
-    coords["split"] = [f"{coefs[w].term} {coefs[w].group}" for w, _ in split_pairs(design)]
+    coords["split"] = [f"{coefs[w].param}: {coefs[w].term} {coefs[w].group}" for w, _ in split_pairs(design)]
     coords["leaf_pair"] = [f"{design.leaf_terms[i].param}~{design.leaf_terms[j].param}"
                            for i, j in correlation_pairs(design)]
     return dims, coords, extra
@@ -187,8 +188,9 @@ def to_inference_data(fit, dataset, log_m: np.ndarray | None = None) -> az.Infer
     arviz.InferenceData
         ``posterior``: every parameter of the program on its own scale, the population ones labelled
         (``b0`` over ``parameter``, on the link scale, a log ratio to vcmax25 where
-        ``parameter_ratio_to_vcmax25`` is 1; ``beta`` over ``coefficient`` with its parameter, kind, trait,
-        grouping, and the trait's centre and scale as coordinates; ``tau`` over ``group_term``;
+        ``parameter_ratio_to_vcmax25`` is 1; ``beta`` over ``coefficient`` ("parameter: label", e.g.
+        "vcmax25: n_area") with its label, parameter, kind, trait, grouping, and the trait's centre and scale
+        as coordinates; ``tau`` over ``group_term``;
         ``tau_leaf`` over ``leaf_term``; ``sigma`` over ``sigma_group``; ``level_value``, the link-scale
         effect of every level of every group term, over ``level``), plus ``leaf_value`` (leaf,
         parameter): each leaf's parameters on the natural scale (Vcmax25, Jmax25 and Rd25 in

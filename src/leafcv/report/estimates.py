@@ -164,7 +164,7 @@ def _param_of_group_term(label: str) -> str | None:
 
 
 def _coefficient_rows(beta, prior_lines: list[str], ratio: set[str]) -> list[dict]:
-    labels = [str(v) for v in beta["coefficient"].values]
+    labels = _meta(beta, "coefficient", "coefficient_label") or [str(v) for v in beta["coefficient"].values]
     params = _meta(beta, "coefficient", "coefficient_parameter", "parameter", "param")
     kinds = _meta(beta, "coefficient", "coefficient_kind", "kind") or [_kind(lab) for lab in labels]
     traits = _meta(beta, "coefficient", "coefficient_term", "coefficient_trait", "trait", "term")

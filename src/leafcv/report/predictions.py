@@ -46,7 +46,8 @@ def fit_scores(data: pd.DataFrame) -> pd.DataFrame:
             err = e["observed"] - e["predicted"]
             sst = float(np.sum((e["observed"] - e["observed"].mean()) ** 2))
             rows.append({"structure": s, "curve_type": kind, "points": len(e),
-                         "rmse": float(np.sqrt(np.mean(err ** 2))), "r2": 1 - float(np.sum(err ** 2)) / sst})
+                         "rmse": float(np.sqrt(np.mean(err ** 2))),
+                         "r2": 1 - float(np.sum(err ** 2)) / sst if sst > 0 else float("nan")})
     return pd.DataFrame(rows)
 
 
