@@ -162,3 +162,31 @@ def _current_umask() -> int:
     old = os.umask(0)
     os.umask(old)
     return old
+
+
+def test_a_rerun_reuses_finished_structures_unless_their_fit_or_predictions_are_missing(quick_demo, tmp_path):
+    from dataclasses import replace
+
+    from leafcv.compare import run_comparison
+    from leafcv.spec import SamplerSpec
+
+    from .fakes import FakeEngine
+
+    comparison, dataset, _ = quick_demo
+    comp = replace(comparison, structures=(comparison.structure("leaf-vcmax-alpha"),))
+    out = tmp_path / "run"
+    sampler = SamplerSpec(chains=2, warmup=10, draws=60, seed=3)
+
+    def run():
+        logs: list[str] = []
+        engine = FakeEngine()
+        run_comparison(comp, dataset, out, engine=engine, spot_checks=0, sampler=sampler, log=logs.append)
+        return logs, engine
+
+    run()
+    logs, engine = run()
+    assert any("reusing" in m for m in logs) and engine.calls == []
+    (out / "predictions" / "leaf-vcmax-alpha-curves.csv").unlink()
+    logs, engine = run()
+    assert any("computing again" in m for m in logs) and engine.calls
+    assert (out / "predictions" / "leaf-vcmax-alpha-curves.csv").exists()

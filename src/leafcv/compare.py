@@ -365,9 +365,13 @@ def run_comparison(comparison: Comparison, dataset: Dataset, out: Path, *, metho
                 old_key, res, det = _result_from_json(path.read_text())
             except (ValueError, KeyError, TypeError):
                 old_key = None
-            if old_key == key:
+            kept = [out / "fits" / f"{s.name}.nc"] + [out / "predictions" / f"{s.name}-{part}.csv"
+                                                      for part in ("points", "curves")]
+            if old_key == key and all(f.exists() for f in kept):
                 log(f"[{k}/{n}] {s.name}: reusing the finished result in {path}")
                 return res, det
+            if old_key == key:
+                log(f"[{k}/{n}] {s.name}: the result matches but its fit or predictions are missing: computing again")
         if state["leaf_fits"] is None:
             state["leaf_fits"] = fit_leaves(dataset)
         t = time.perf_counter()

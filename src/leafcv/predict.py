@@ -152,10 +152,11 @@ def _check_fit_matches(design, post, path: Path) -> None:
                                                                            for c in design.coefficients]:
         problems.append("its coefficients differ from the structure's")
     if design.group_terms and "level_value" not in post:
-        problems.append("it has no level_value (written by an older leafcv); run `leafcv compare` again")
+        problems.append("it has no level_value")
     if problems:
-        raise UserInputError(str(path), [f"the fit does not match the structure in the comparison file: {p}"
-                                         for p in problems])
+        raise UserInputError(str(path), [f"the fit does not match the structure in the comparison file: {p}; it was "
+                                         f"written for another version of the structure or by an earlier leafcv: "
+                                         f"run `leafcv compare` into a new --out folder" for p in problems])
 
 
 def _check_new_leaves(design, ctx: TermContext, new: pd.DataFrame, source: str) -> None:
