@@ -102,12 +102,17 @@ def test_expected_assimilation_is_the_fvcb_model_at_the_predicted_parameters(fak
 
 def test_the_new_leaf_file_keeps_levels_as_written(tmp_path):
     # a level that looks like a number stays the text the data reader keeps ("05" is not 5)
+    # and the file goes through the data layer's reader: semicolons with decimal commas, as an observation
+    # file may be written, and line numbers for messages
     from leafcv.predict import _read
 
     path = tmp_path / "new.csv"
-    path.write_text("plant_leaf;campaign;n_area\nN1; 05 ;1.5\nN2;007;\n")
-    t = _read(path)
-    assert list(t["campaign"]) == ["05", "007"] and list(t["n_area"]) == ["1.5", ""]
+    path.write_text("plant_leaf;campaign;n_area\nN1; 05 ;1,5\n\nN2;007;\n")
+    t, rows, source = _read(path, "new-leaf", "leaf", ["n_area"])
+    assert list(t["campaign"]) == ["05", "007"] and t["n_area"].iloc[0] == 1.5 and np.isnan(t["n_area"].iloc[1])
+    assert list(rows) == [2, 4] and source == str(path)
+    with pytest.raises(DataError, match="the new-leaf file .* does not exist"):
+        _read(tmp_path / "nope.csv", "new-leaf", "leaf", [])
 
 
 def test_a_csv_of_new_leaves_predicts_as_the_same_frame(fake_run, tmp_path):

@@ -38,6 +38,7 @@ from .cv.result import CVResult
 from .diagnostics import grade_definitions
 from .data.dataset import Dataset
 from .inits import fit_leaves
+from .manifest import file_hash, json_float
 from .ranking import format_ranking, rank, summary_notes
 from .spec import Comparison, Structure
 
@@ -45,14 +46,6 @@ if TYPE_CHECKING:
     from .cv.methods import CVDetails
 
 RESULT_VERSION = 2
-
-
-def file_hash(path: Path) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for chunk in iter(lambda: fh.read(1 << 20), b""):
-            h.update(chunk)
-    return h.hexdigest()
 
 
 def _umask() -> int:
@@ -158,14 +151,9 @@ def _json_safe(value: object) -> object:
     return value
 
 
-def _float(value: object) -> float:
-    """One number written by :func:`_json_safe` read back: null as NaN, "inf"/"-inf" as infinities."""
-    return float("nan") if value is None else float(value)
-
-
 def _floats(values: list | None) -> np.ndarray | None:
     """An array written by :func:`_json_safe` read back as floats; None stays None."""
-    return None if values is None else np.array([_float(v) for v in values], dtype=float)
+    return None if values is None else np.array([json_float(v) for v in values], dtype=float)
 
 
 def _result_to_json(result: CVResult, details: CVDetails | dict, key: str) -> str:
@@ -186,7 +174,7 @@ def _result_from_json(text: str) -> tuple[str, CVResult, dict]:
     grade, no per-entry methods or errors) are read too."""
     d = json.loads(text)
     grade = d["grade"] if "grade" in d else ("converged" if d["converged"] else "failed")
-    metrics = {name: {k: _float(v) for k, v in d[name].items()} for name in ("rmse", "r2")}
+    metrics = {name: {k: json_float(v) for k, v in d[name].items()} for name in ("rmse", "r2")}
     res = CVResult(d["structure"], d["method"], tuple(d["leaves"]), _floats(d["elpd_i"]), d["n_draws"],
                    pareto_k=_floats(d["pareto_k"]), n_refits=d["n_refits"], grade=grade,
                    warnings=tuple(d["warnings"]), rmse=metrics["rmse"], r2=metrics["r2"],

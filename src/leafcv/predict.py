@@ -46,8 +46,8 @@ def predict(run_dir: str | Path, structure: str, leaves: str | Path | pd.DataFra
     import arviz as az
 
     from .api import load
-    from .compare import file_hash
-    from .design import build_design
+    from .manifest import file_hash
+    from .design import build_design, natural_values
 
     from .manifest import read_manifest
 
@@ -68,14 +68,14 @@ def predict(run_dir: str | Path, structure: str, leaves: str | Path | pd.DataFra
     post = az.from_netcdf(fit_path).posterior
     _check_fit_matches(design, post, fit_path)
 
-    source = "the new-leaf table" if isinstance(leaves, pd.DataFrame) else str(leaves)
-    new = leaves.copy() if isinstance(leaves, pd.DataFrame) else _read(Path(leaves))
+    traits, groups, fixed_groups = _used_columns(design)
+    new, rows, source = _read(leaves, "new-leaf", "leaf", sorted(traits))
     leaf_col = comparison.data.columns.get("leaf")
     ids = (new[leaf_col].astype(str).to_numpy() if leaf_col in new.columns
-           else np.array([f"row {i + 2}" for i in range(len(new))]))
+           else np.array([f"row {r}" for r in rows]))
     ctx = TermContext(st, dataset.leaves, design.trait_transform, design.priors, design.train_leaves,
                       np.zeros(dataset.n_leaves, int))
-    _check_new_leaves(design, ctx, new, source)
+    _check_new_leaves(design, ctx, new, rows, source, (traits, groups, fixed_groups))
 
     draws = {k: post[k].values.reshape((-1,) + post[k].shape[2:]) for k in post.data_vars}
     S, N, P = len(draws["b0"]), len(new), len(design.parameters)
@@ -109,7 +109,7 @@ def predict(run_dir: str | Path, structure: str, leaves: str | Path | pd.DataFra
             effect = tau[:, None, :] * z
         for j, pi in enumerate(design.leaf_term_params):
             extra[:, :, pi] += effect[:, :, j]
-    pop, one = _natural(design, mean), _natural(design, mean + extra)
+    pop, one = natural_values(design, mean), natural_values(design, mean + extra)
     lo, hi = (1 - INTERVAL) / 2, 1 - (1 - INTERVAL) / 2
     rows = []
     for i in range(N):
@@ -125,22 +125,35 @@ def predict(run_dir: str | Path, structure: str, leaves: str | Path | pd.DataFra
     return Prediction(table, assim)
 
 
-def _natural(design, eta: np.ndarray) -> dict[str, np.ndarray]:
-    from .design import natural_values
+def _read(source: str | Path | pd.DataFrame, what: str, rows_word: str, numeric: list[str]
+          ) -> tuple[pd.DataFrame, np.ndarray, str]:
+    """A table given as a DataFrame or as a file, the file read by the data layer's own reader (the same
+    delimiters, decimal marks and text cells as the observation file: a level such as "05" stays "05");
+    with each row's number (the line in the file; for a DataFrame, as in a CSV written from it) and how
+    messages name it."""
+    from .data.reading import read_text_table
 
-    return natural_values(design, eta)
+    if isinstance(source, pd.DataFrame):
+        return source.copy(), np.arange(len(source)) + 2, f"the {what} table"
+    advice = f"give the path of a CSV file with one line per {rows_word}"
+    frame, rows = read_text_table(Path(source), f"the {what} file", (advice, advice), rows_word, numeric)
+    return frame, rows, str(source)
 
 
-def _read(path: Path) -> pd.DataFrame:
-    if not path.exists():
-        raise UserInputError(str(path), ["file not found: give a CSV of the new leaves (one row per leaf)"])
-    try:
-        # every cell as text, as the data reader keeps group levels ("05" stays "05"); numbers are converted
-        # where they are needed
-        table = pd.read_csv(path, sep=None, engine="python", dtype=str, keep_default_na=False)
-    except (pd.errors.ParserError, UnicodeDecodeError, pd.errors.EmptyDataError) as exc:
-        raise DataError(str(path), [f"cannot read the table: {exc}"]) from None
-    return table.apply(lambda col: col.str.strip())
+def _used_columns(design) -> tuple[set[str], set[str], set[str]]:
+    """The traits, the groupings and the fixed (level-contrast) groupings the structure's terms use."""
+    from .terms import LevelContrasts
+
+    traits, groups, fixed_groups = set(), set(), set()
+    for p in design.params:
+        for t in design.terms[p]:
+            for name in ("trait", "grouping"):
+                v = getattr(t, name, None)
+                if v:
+                    (traits if name == "trait" else groups).add(v)
+            if isinstance(t, LevelContrasts):
+                fixed_groups.add(t.grouping)
+    return traits, groups - traits, fixed_groups
 
 
 def _check_fit_matches(design, post, path: Path) -> None:
@@ -159,20 +172,10 @@ def _check_fit_matches(design, post, path: Path) -> None:
                                          f"run `leafcv compare` into a new --out folder" for p in problems])
 
 
-def _check_new_leaves(design, ctx: TermContext, new: pd.DataFrame, source: str) -> None:
+def _check_new_leaves(design, ctx: TermContext, new: pd.DataFrame, rows: np.ndarray, source: str,
+                      used: tuple[set[str], set[str], set[str]]) -> None:
     """Every trait and grouping the structure uses is present and usable in every row."""
-    from .terms import LevelContrasts
-
-    traits, groups, fixed_groups = set(), set(), set()
-    for p in design.params:
-        for t in design.terms[p]:
-            for name in ("trait", "grouping"):
-                v = getattr(t, name, None)
-                if v:
-                    (traits if name == "trait" else groups).add(v)
-            if isinstance(t, LevelContrasts):
-                fixed_groups.add(t.grouping)
-    groups -= traits
+    traits, groups, fixed_groups = used
     missing = sorted((traits | groups) - set(new.columns))
     problems = []
     if missing:
@@ -184,20 +187,20 @@ def _check_new_leaves(design, ctx: TermContext, new: pd.DataFrame, source: str) 
         x = pd.to_numeric(new[t], errors="coerce")
         bad = np.flatnonzero(~np.isfinite(x.to_numpy(float)))
         if bad.size:
-            problems.append(f"column {t!r}: no number in row(s) {', '.join(str(b + 2) for b in bad[:10])} "
+            problems.append(f"column {t!r}: no number in row(s) {', '.join(str(rows[b]) for b in bad[:10])} "
                             f"(rows counted with the header as row 1); give each new leaf's value")
         else:
             new[t] = x
     for g in sorted(groups - set(missing)):
         empty = np.flatnonzero((new[g].isna() | (new[g].astype(str).str.strip() == "")).to_numpy())
         if empty.size:
-            problems.append(f"column {g!r}: empty in row(s) {', '.join(str(b + 2) for b in empty[:10])}; give each "
+            problems.append(f"column {g!r}: empty in row(s) {', '.join(str(rows[b]) for b in empty[:10])}; give each "
                             f"new leaf's level (a level the fit has not seen is allowed for a random grouping)")
     for g in sorted(fixed_groups - set(missing)):
         levels, _ = ctx.levels(g)
         for i, v in enumerate(new[g].astype(str)):
             if v not in levels and not pd.isna(new[g].iloc[i]) and v.strip():
-                problems.append(f"column {g!r}, row {i + 2}: level {v!r} was not in the fitted data "
+                problems.append(f"column {g!r}, row {rows[i]}: level {v!r} was not in the fitted data "
                                 f"({', '.join(levels)}); {g} is a fixed effect in structure "
                                 f"{design.structure.name!r}, so a new level has no estimate: use a fitted level, "
                                 f"or a structure with {g} as a random effect")
@@ -209,8 +212,7 @@ def _assimilation(design, pop, one, ids, conditions, lo, hi) -> pd.DataFrame:
     from . import fvcb
     from .terms import responses
 
-    source = "the conditions table" if isinstance(conditions, pd.DataFrame) else str(conditions)
-    cond = conditions.copy() if isinstance(conditions, pd.DataFrame) else _read(Path(conditions))
+    cond, rows, source = _read(conditions, "conditions", "condition", list(CONDITION_COLUMNS))
     need = [c for c in CONDITION_COLUMNS if c != "oxygen"]
     missing = [c for c in need if c not in cond.columns]
     problems = [f"column {c!r} missing; the conditions table needs {', '.join(need)} (and optionally oxygen, "
@@ -223,7 +225,7 @@ def _assimilation(design, pop, one, ids, conditions, lo, hi) -> pd.DataFrame:
             else np.full(len(cond), 210.0)
         bad = np.flatnonzero(~np.isfinite(x))
         if bad.size:
-            problems.append(f"column {role!r}: no number in row(s) {', '.join(str(b + 2) for b in bad[:10])}")
+            problems.append(f"column {role!r}: no number in row(s) {', '.join(str(rows[b]) for b in bad[:10])}")
         values[var] = x
     if problems:
         raise DataError(source, problems)

@@ -213,19 +213,27 @@ def _is_name(name: object) -> bool:
 
 # ---------------------------------------------------------------- the file
 
-def _read_table(path: Path) -> tuple[_Table | None, list[str]]:
-    """The file as stripped text with line numbers, or None and the reason it cannot be read."""
+#: How the observation file is named in messages, and what to do when its path is wrong.
+OBSERVATION_FILE = "the observation file"
+_OBSERVATION_PATH = ("check [data] file (a relative path is relative to the comparison file)",
+                     "point [data] file at the CSV")
+
+
+def _read_table(path: Path, label: str = OBSERVATION_FILE, path_advice: tuple[str, str] = _OBSERVATION_PATH,
+                rows_word: str = "point") -> tuple[_Table | None, list[str]]:
+    """The file as stripped text with line numbers, or None and the reason it cannot be read. ``label``
+    names the file in messages; ``path_advice`` says what to do when the path is missing or not a file;
+    ``rows_word`` is what one line of the file holds."""
     if not path.exists():
-        return None, [f"the observation file {str(path)!r} does not exist; check [data] file "
-                      f"(a relative path is relative to the comparison file)"]
+        return None, [f"{label} {str(path)!r} does not exist; {path_advice[0]}"]
     if not path.is_file():
-        return None, [f"the observation file {str(path)!r} is not a file; point [data] file at the CSV"]
+        return None, [f"{label} {str(path)!r} is not a file; {path_advice[1]}"]
     try:
         text = path.read_text(encoding="utf-8-sig")
     except UnicodeDecodeError as exc:
-        return None, [f"the observation file is not UTF-8 text (byte {exc.start}); save it as UTF-8 CSV"]
+        return None, [f"{label} is not UTF-8 text (byte {exc.start}); save it as UTF-8 CSV"]
     if not text.strip():
-        return None, ["the observation file is empty; it needs a header line and one line per point"]
+        return None, [f"{label} is empty; it needs a header line and one line per {rows_word}"]
     delimiter, problem = detect_delimiter(text)
     if delimiter is None:
         return None, [problem]
@@ -233,18 +241,44 @@ def _read_table(path: Path) -> tuple[_Table | None, list[str]]:
         grid = pd.read_csv(io.StringIO(text), sep=delimiter, header=None, dtype=str, keep_default_na=False,
                            skip_blank_lines=False)
     except pd.errors.ParserError as exc:
-        return None, [_parser_problem(exc, delimiter)]
-    return _table(grid.fillna(""), delimiter)
+        return None, [_parser_problem(exc, delimiter, label)]
+    return _table(grid.fillna(""), delimiter, f"{label} has a header line but no data rows; add one line per {rows_word}")
 
 
-def _table(grid: pd.DataFrame, delimiter: str) -> tuple[_Table | None, list[str]]:
+def read_text_table(path: Path, label: str, path_advice: tuple[str, str], rows_word: str,
+                    numeric: Sequence[str] = ()) -> tuple[pd.DataFrame, np.ndarray]:
+    """A delimited text file other than the observations (e.g. new leaves for ``leafcv predict``), read
+    exactly as the observation file is: comma, semicolon or tab detected, stripped text cells, blank lines
+    dropped. Returns the cells under the header's names, the ``numeric`` columns present as floats (decimal
+    commas read; a missing token or a cell that is not a number is NaN), and each row's line number.
+
+    Raises
+    ------
+    DataError
+        Naming ``path`` when it cannot be read.
+    """
+    table, problems = _read_table(path, label, path_advice, rows_word)
+    if table is None:
+        raise DataError(str(path), problems)
+    present = [n for n in numeric if table.has(n)]
+    if present:
+        table = _with_decimal_mark(table, present)
+    frame = pd.DataFrame({name: table.text(name).to_numpy() for name in table.header})
+    for name in present:
+        text = frame[name].where(~frame[name].str.lower().isin(MISSING_TOKENS))
+        if table.decimal == ",":
+            text = text.str.replace(",", ".", regex=False)
+        frame[name] = pd.to_numeric(text, errors="coerce")
+    return frame, table.rows
+
+
+def _table(grid: pd.DataFrame, delimiter: str, no_rows: str) -> tuple[_Table | None, list[str]]:
     """Stripped cells with the file line of each record (quoted line breaks and blank lines counted)."""
     breaks = np.array([grid[c].str.count("\n").to_numpy() for c in grid.columns]).sum(axis=0)
     starts = 1 + np.arange(len(grid)) + np.concatenate([[0], np.cumsum(breaks)[:-1]])
     grid = grid.apply(lambda column: column.str.strip())
     return _filled(_Table(header=[str(h) for h in grid.iloc[0]], cells=grid.iloc[1:], rows=starts[1:],
-                          delimiter=delimiter),
-                   "the observation file has a header line but no data rows; add one line per point")
+                          delimiter=delimiter), no_rows)
 
 
 def _frame_table(frame: object, label: str) -> tuple[_Table | None, list[str]]:
@@ -275,14 +309,14 @@ def _filled(table: _Table, no_rows: str) -> tuple[_Table | None, list[str]]:
     return replace(table, cells=cells, rows=table.rows[filled]), []
 
 
-def _parser_problem(exc: Exception, delimiter: str) -> str:
+def _parser_problem(exc: Exception, delimiter: str, label: str = OBSERVATION_FILE) -> str:
     match = re.search(r"Expected (\d+) fields in line (\d+), saw (\d+)", str(exc))
     stray = "an unquoted comma (a decimal comma?)" if delimiter == "," else f"a stray {describe(delimiter)}"
     if match:
         expected, line, seen = match.groups()
-        return (f"line {line} of the observation file has {seen} fields but the header has {expected} "
+        return (f"line {line} of {label} has {seen} fields but the header has {expected} "
                 f"(fields separated by {describe(delimiter)}); check for {stray} or a missing header name")
-    return (f"the observation file is not readable as delimited text with {describe(delimiter)} between fields "
+    return (f"{label} is not readable as delimited text with {describe(delimiter)} between fields "
             f"({exc}); save it as CSV")
 
 

@@ -7,9 +7,10 @@ from pathlib import Path
 
 import pandas as pd
 
+from ..manifest import file_hash
 from ..ranking import FEW_LEAVES, SE_MULTIPLE, SMALL_DIFF, units_word
 from .html import Column, Tables, esc
-from .run import RunFolder, sha256
+from .run import RunFolder
 from .terms import OPTION_WORDS
 
 REFERENCES = {
@@ -173,10 +174,10 @@ def reproduction_html(run: RunFolder, tables: Tables) -> str:
     for sub in ("results", "fits"):
         for path in sorted((run.path / sub).glob("*")) if (run.path / sub).is_dir() else []:
             if path.is_file() and not path.name.startswith("."):
-                rows.append((f"SHA-256 of {sub}/{path.name}", sha256(path)))
+                rows.append((f"SHA-256 of {sub}/{path.name}", file_hash(path)))
     for name in ("ranking.csv", "pointwise.csv", "structures.txt"):
         if (run.path / name).exists():
-            rows.append((f"SHA-256 of {name}", sha256(run.path / name)))
+            rows.append((f"SHA-256 of {name}", file_hash(run.path / name)))
     table = pd.DataFrame(rows, columns=["item", "value"]).astype(str)
     comparison = Path(m.get("comparison", "comparison.toml"))
     again = (f"leafcv compare {comparison} --out {run.path} --method {settings.get('method', 'auto')}")

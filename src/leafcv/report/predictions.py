@@ -10,6 +10,7 @@ import pandas as pd
 from matplotlib import rc_context
 from matplotlib.figure import Figure
 
+from ..cv.predictions import VARIED
 from .figures import GREY, STYLE, WIDTH_IN, colour, save
 from .html import Column, Tables, esc, figure, number
 
@@ -28,14 +29,17 @@ def _read(folder: Path, structure: str, part: str) -> pd.DataFrame | None:
     return None if table is None or table.empty else table
 
 
-def scatter_data(folder: Path, structures: list[str]) -> pd.DataFrame:
-    """Every point of each structure: curve type, observed and held-out predicted A."""
-    parts = []
-    for s in structures:
-        d = _read(folder, s, "points")
-        if d is not None:
-            parts.append(d.assign(structure=s)[["structure", "leaf", "curve", "curve_type", "observed", "predicted"]])
+def scatter_data(points: dict[str, pd.DataFrame]) -> pd.DataFrame:
+    """Every point of each structure (``points``: structure -> its points table): curve type, observed and
+    held-out predicted A."""
+    parts = [d.assign(structure=s)[["structure", "leaf", "curve", "curve_type", "observed", "predicted"]]
+             for s, d in points.items()]
     return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame()
+
+
+def _varied_values(table: pd.DataFrame, varied: pd.Series) -> np.ndarray:
+    """Each row's value of the quantity its curve varies (Ci or PPFD)."""
+    return np.where(varied.to_numpy() == "ci", table["ci"].to_numpy(float), table["ppfd"].to_numpy(float))
 
 
 def fit_scores(data: pd.DataFrame) -> pd.DataFrame:
@@ -76,9 +80,8 @@ def scatter_figure(data: pd.DataFrame, scores: pd.DataFrame) -> Figure:
     return fig
 
 
-def curve_leaves(run, best: str) -> pd.DataFrame:
-    """The leaves with the lowest and the highest elpd per point under ``best``."""
-    points = _read(run.path, best, "points")
+def curve_leaves(run, best: str, points: pd.DataFrame) -> pd.DataFrame:
+    """The leaves with the lowest and the highest elpd per point under ``best`` (``points``: its points)."""
     elpd = run.pointwise[[run.unit, f"elpd:{best}"]].rename(columns={run.unit: "leaf", f"elpd:{best}": "elpd"})
     n = points.groupby(points["leaf"].astype(str)).size().rename("points")
     t = elpd.assign(leaf=elpd["leaf"].astype(str)).merge(n, left_on="leaf", right_index=True)
@@ -89,21 +92,20 @@ def curve_leaves(run, best: str) -> pd.DataFrame:
                          {**high.to_dict(), "which": "highest elpd per point"}])
 
 
-def curves_data(run, structures: list[str], leaves: pd.DataFrame) -> pd.DataFrame:
+def curves_data(run, structures: list[str], leaves: pd.DataFrame, points: pd.DataFrame) -> pd.DataFrame:
     """Grid rows (mean, 5 % and 95 % of a new observation) of ``leaves`` under each structure, and their
-    observed points (kind "observed")."""
+    observed points (kind "observed", from ``points``, the first structure's points table)."""
     parts = []
     ids = set(leaves["leaf"].astype(str))
     for s in structures:
         c = _read(run.path, s, "curves")
         if c is not None:
             c = c[c["leaf"].astype(str).isin(ids)]
-            parts.append(c.assign(structure=s, kind="predicted", x=[r[v] for v, (_, r) in zip(c["varied"], c.iterrows())]))
-    p = _read(run.path, structures[0], "points")
-    p = p[p["leaf"].astype(str).isin(ids)]
-    varied = p["curve_type"].map({"aci": "ci", "aq": "ppfd"})
+            parts.append(c.assign(structure=s, kind="predicted", x=_varied_values(c, c["varied"])))
+    p = points[points["leaf"].astype(str).isin(ids)]
+    varied = p["curve_type"].map(VARIED)
     parts.append(pd.DataFrame({"leaf": p["leaf"].astype(str), "curve_type": p["curve_type"], "varied": varied,
-                               "x": [r[v] for v, (_, r) in zip(varied, p.iterrows())], "observed": p["observed"],
+                               "x": _varied_values(p, varied), "observed": p["observed"],
                                "kind": "observed", "structure": ""}))
     out = pd.concat(parts, ignore_index=True)
     out["leaf"] = out["leaf"].astype(str)
@@ -140,11 +142,13 @@ def curves_figure(data: pd.DataFrame, leaves: pd.DataFrame, structures: list[str
 def predictions_html(run, tables: Tables) -> str:
     """The section: the scatter of the top three and the curves of two leaves under the best two."""
     ranked = [str(s) for s in run.ranked["structure"]] if run.ranking is not None else []
-    top = [s for s in ranked[:3] if _read(run.path, s, "points") is not None]
+    points = {s: _read(run.path, s, "points") for s in ranked[:3]}
+    points = {s: d for s, d in points.items() if d is not None}
+    top = list(points)
     if not top:
         return ("<p>No held-out predictions in this run folder (predictions/, written by leafcv compare from "
                 "this version on): run `leafcv compare` again to add them.</p>")
-    data = scatter_data(run.path, top)
+    data = scatter_data(points)
     scores = fit_scores(data)
     b64 = save(scatter_figure(data, scores), data, "predicted_observed", run.path / "figures", tables.figures)
     parts = [f"<p>Each point's net assimilation predicted without its own leaf (the held-out predictive mean) "
@@ -156,9 +160,9 @@ def predictions_html(run, tables: Tables) -> str:
                  Column("rmse", "RMSE", ".3g"), Column("r2", "R²", ".3g")],
                  "Held-out RMSE (µmol m⁻² s⁻¹) and R² by curve type.")]
     if run.pointwise is not None and f"elpd:{top[0]}" in run.pointwise and run.unit == "leaf":
-        leaves = curve_leaves(run, top[0])
+        leaves = curve_leaves(run, top[0], points[top[0]])
         shown = top[:2]
-        cd = curves_data(run, shown, leaves)
+        cd = curves_data(run, shown, leaves, points[top[0]])
         b64 = save(curves_figure(cd, leaves, shown), cd, "predictive_curves", run.path / "figures", tables.figures)
         which = "; ".join(f"{esc(r['leaf'])}, {esc(r['which'])} under {esc(top[0])} "
                           f"({number(r['elpd_per_point'], '.2f')} nats per point)" for _, r in leaves.iterrows())

@@ -8,7 +8,6 @@ names (for each leaf's group values, used only when its SHA-256 equals the manif
 """
 from __future__ import annotations
 
-import hashlib
 import json
 import re
 import tomllib
@@ -19,6 +18,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import UserInputError
+from ..manifest import file_hash, json_float  # noqa: F401  (json_float re-exported for the report's modules)
 
 
 @dataclass
@@ -57,22 +57,9 @@ class RunFolder:
         return None if ranked.empty else str(ranked.iloc[0]["structure"])
 
 
-def json_float(value: object) -> float:
-    """A number of a result file: null is NaN, "inf"/"-inf" are infinities."""
-    return float("nan") if value is None else float(value)
-
-
 def json_floats(values: list | None, n: int) -> np.ndarray:
     """A per-unit array of a result file; None (not computed) gives n NaN."""
     return np.full(n, np.nan) if values is None else np.array([json_float(v) for v in values], dtype=float)
-
-
-def sha256(path: Path) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for chunk in iter(lambda: fh.read(1 << 20), b""):
-            h.update(chunk)
-    return h.hexdigest()
 
 
 def read_ranking(path: Path) -> pd.DataFrame:
@@ -178,7 +165,7 @@ def leaf_groups(run: RunFolder) -> tuple[pd.DataFrame | None, list[str], str]:
     data = Path(run.manifest.get("data", ""))
     if not data.is_file():
         return None, groups, f"the data file {data} is not available, so the leaves' groups are unknown"
-    if run.manifest.get("data_sha256") and sha256(data) != run.manifest["data_sha256"]:
+    if run.manifest.get("data_sha256") and file_hash(data) != run.manifest["data_sha256"]:
         return None, groups, (f"the data file {data} has changed since the run (its SHA-256 differs from the "
                               "manifest's), so the leaves' groups are not shown")
     table = pd.read_csv(data, sep=None, engine="python", dtype=str)
