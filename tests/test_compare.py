@@ -164,7 +164,9 @@ def _current_umask() -> int:
     return old
 
 
-def test_a_rerun_reuses_finished_structures_unless_their_fit_or_predictions_are_missing(quick_demo, tmp_path):
+def test_a_rerun_reuses_finished_structures_and_rebuilds_missing_files_from_the_task_store(quick_demo, tmp_path):
+    """A finished structure is reused; one whose predictions file is gone is assembled again from the
+    stored tasks, without a single sampler call, into the same file."""
     from dataclasses import replace
 
     from leafcv.compare import run_comparison
@@ -183,10 +185,13 @@ def test_a_rerun_reuses_finished_structures_unless_their_fit_or_predictions_are_
         run_comparison(comp, dataset, out, engine=engine, spot_checks=0, sampler=sampler, log=logs.append)
         return logs, engine
 
-    run()
+    _, first = run()
+    assert first.calls
     logs, engine = run()
     assert any("reusing" in m for m in logs) and engine.calls == []
-    (out / "predictions" / "leaf-vcmax-alpha-curves.csv").unlink()
+    curves = out / "predictions" / "leaf-vcmax-alpha-curves.csv"
+    before = curves.read_bytes()
+    curves.unlink()
     logs, engine = run()
-    assert any("computing again" in m for m in logs) and engine.calls
-    assert (out / "predictions" / "leaf-vcmax-alpha-curves.csv").exists()
+    assert any("computing again" in m for m in logs) and engine.calls == []
+    assert curves.read_bytes() == before

@@ -183,15 +183,21 @@ class Study:
                           progress=progress)
         return Fit(f, self.dataset)
 
-    def run(self, out: str | Path | None = None, *, method: str | None = None, engine=None) -> "Run":
+    def run(self, out: str | Path | None = None, *, method: str | None = None, engine=None,
+            workers: int | None = None, scheduler: str | None = None, progress: str | None = None) -> "Run":
         """Cross-validate every structure, rank them and write the run folder ``out`` (default:
-        ``runs/<file stem>/`` beside the comparison file). Finished structures whose inputs match are
-        reused, so an interrupted run continues where it stopped."""
+        ``runs/<file stem>/`` beside the comparison file). Every finished task (a fit, a block of scores,
+        a refit) is kept in the folder's task store, so an interrupted run continues where it stopped.
+
+        ``workers``: tasks at once (default: one per core; 1 runs them in this process);
+        ``scheduler``: a Dask scheduler address, or "local" for a LocalCluster; ``progress``: "bar",
+        "plain" or "quiet" (default: a bar on a terminal, plain lines otherwise)."""
         from .compare import run_comparison
 
         self._warn()
         out = Path(out) if out is not None else self.comparison.path.parent / "runs" / self.comparison.path.stem
-        run_comparison(self.comparison, self.dataset, out, method=method, engine=engine, log=logger.info)
+        run_comparison(self.comparison, self.dataset, out, method=method, engine=engine, log=logger.info,
+                       workers=workers, scheduler=scheduler, progress=progress)
         return open_run(out)
 
 

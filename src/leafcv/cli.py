@@ -1,12 +1,14 @@
 """Command line: parses arguments and calls the public API.
 
 Exit codes: 0 success (non-converged fits are flagged in the output), 1 a problem with the user's
-data or files, 2 usage, 3 an engine or internal failure (message plus where the details were saved).
+data or files, 2 usage, 3 an engine or internal failure, or structures left unfinished by tasks that
+failed twice (message plus where the details were saved), 130 stopped by Ctrl-C or SIGTERM.
 """
 from __future__ import annotations
 
 import argparse
 import logging
+import signal
 import sys
 import tempfile
 import time
@@ -17,6 +19,12 @@ from .errors import EngineError, UserInputError
 from .spec import CV_METHODS
 
 EXIT_OK, EXIT_USER, EXIT_USAGE, EXIT_ENGINE = 0, 1, 2, 3
+#: Stopped by Ctrl-C or SIGTERM (the shell's convention for SIGINT: 128 + 2).
+EXIT_INTERRUPTED = 130
+
+
+def _interrupt(signum, frame):
+    raise KeyboardInterrupt
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -27,6 +35,8 @@ def _parser() -> argparse.ArgumentParser:
     d.add_argument("--quick", action="store_true", help="a small version: 16 leaves, the three structures of the season and trait question")
     d.add_argument("--no-run", action="store_true", help="only write the files")
     d.add_argument("--force", action="store_true", help="write into a non-empty DIR")
+    d.add_argument("--workers", type=int, metavar="N", help="as for compare")
+    d.add_argument("--progress", choices=("bar", "plain", "quiet"), help="as for compare")
     c = sub.add_parser("check", help="validate data and structures, print a summary")
     c.add_argument("file", type=Path)
     f = sub.add_parser("fit", help="fit one structure on all data")
@@ -37,8 +47,14 @@ def _parser() -> argparse.ArgumentParser:
     m.add_argument("file", type=Path)
     m.add_argument("--out", type=Path)
     m.add_argument("--method", choices=CV_METHODS)
-    m.add_argument("--workers", type=int)
-    m.add_argument("--scheduler")
+    m.add_argument("--workers", type=int, metavar="N",
+                   help="tasks run at once in local worker processes (default: one per core, each sampling "
+                        "max(1, cores // N) chains at a time; 1 runs every task in this process)")
+    m.add_argument("--scheduler", metavar="ADDRESS",
+                   help="send the tasks to the Dask scheduler at ADDRESS (e.g. tcp://host:8786), or 'local' to "
+                        "start a Dask LocalCluster of N workers here")
+    m.add_argument("--progress", choices=("bar", "plain", "quiet"),
+                   help="a progress bar (default on a terminal), plain log lines (default otherwise), or quiet")
     r = sub.add_parser("report", help="rewrite the ranking of a run folder from its results and write report.html")
     r.add_argument("rundir", type=Path)
     r.add_argument("--structure", help="the structure whose estimates are shown (default: the best ranked)")
@@ -120,13 +136,19 @@ def cmd_fit(args) -> int:
 def cmd_compare(args) -> int:
     from .api import load as api_load
 
-    if args.scheduler:
-        sys.stderr.write("leafcv compare: --scheduler (Dask) is not available in this version; run without it\n")
+    if args.workers is not None and args.workers < 1:
+        sys.stderr.write("leafcv compare: --workers must be 1 or more\n")
         return EXIT_USAGE
-    if args.workers not in (None, 1):
-        sys.stderr.write("leafcv compare: note: structures run one after another; each fit already uses every "
-                         "core through its chains (--workers is accepted for the record)\n")
-    run = api_load(args.file).run(args.out, method=args.method)
+    if args.progress == "quiet":
+        logging.getLogger("leafcv").setLevel(logging.WARNING)
+    study = api_load(args.file)
+    signal.signal(signal.SIGTERM, _interrupt)      # `kill PID` stops as cleanly as Ctrl-C
+    try:
+        run = study.run(args.out, method=args.method, workers=args.workers, scheduler=args.scheduler,
+                        progress=args.progress)
+    except KeyboardInterrupt:
+        sys.stderr.write("leafcv compare: stopped; finished tasks are kept: run the same command to continue\n")
+        return EXIT_INTERRUPTED
     print(f"run folder: {run.folder}")
     return EXIT_OK
 
@@ -158,7 +180,8 @@ def cmd_demo(args) -> int:
     print(f"wrote {folder / 'observations.csv'}, {folder / 'truth.csv'} and {path}")
     if args.no_run:
         return EXIT_OK
-    return cmd_compare(argparse.Namespace(file=path, out=None, method=None, workers=None, scheduler=None))
+    return cmd_compare(argparse.Namespace(file=path, out=None, method=None, workers=args.workers, scheduler=None,
+                                          progress=args.progress))
 
 
 def _progress(label: str):

@@ -36,8 +36,10 @@ import pandas as pd
 
 from .cv.result import CVResult
 from .diagnostics import grade_definitions
+from .errors import EngineError
 from .data.dataset import Dataset
 from .inits import fit_leaves
+from .atomic import umask as _umask, write_atomic
 from .manifest import file_hash, json_float
 from .ranking import format_ranking, rank, summary_notes
 from .spec import Comparison, Structure
@@ -46,33 +48,6 @@ if TYPE_CHECKING:
     from .cv.methods import CVDetails
 
 RESULT_VERSION = 2
-
-
-def _umask() -> int:
-    """The process umask (read by setting it and restoring it at once)."""
-    old = os.umask(0)
-    os.umask(old)
-    return old
-
-
-def write_atomic(path: Path, text: str) -> None:
-    """Write ``text`` to ``path`` so that a reader sees the old file or the new one, never a part.
-
-    The file gets the mode an ordinary ``open`` would give it, ``0o666`` less the umask (``mkstemp``
-    creates its file ``0o600``).
-    """
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-    try:
-        with os.fdopen(fd, "w") as fh:
-            fh.write(text)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.chmod(tmp, 0o666 & ~_umask())
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
 
 
 def _versions() -> dict[str, str]:
@@ -306,22 +281,73 @@ def seed_plan(seed: int) -> dict:
             "range": "every fit's seed is taken modulo 2^32"}
 
 
+def task_base(comparison: Comparison, data_hash: str, sampler) -> str:
+    """Hash of what every task of a run depends on besides its own payload: the data file and its
+    reading, the sampler settings and the Stan program."""
+    payload = json.dumps({"data": repr(comparison.data), "data_hash": data_hash, "sampler": asdict(sampler),
+                          "program": _program_hash()}, sort_keys=True, default=str)
+    return hashlib.sha256(payload.encode()).hexdigest()
+
+
+def _expected_tasks(comparison: Comparison, dataset: Dataset, method: str, spot_checks: int) -> int:
+    """A first guess of one structure's tasks, for the progress total (refits of flagged leaves unknown)."""
+    from .cv.methods import folds_for
+    from .cv.plan import SCORE_BLOCK
+
+    blocks = -(-dataset.n_leaves // SCORE_BLOCK)
+    if method == "auto" and comparison.cv.by == "leaf":
+        return 1 + blocks + spot_checks
+    return len(folds_for(dataset, comparison.cv.by, method, comparison.cv.folds, comparison.sampler.seed)) + 1 + blocks
+
+
+class BatchIncomplete(EngineError):
+    """Some structures failed (a task failed twice, or the plan refused); the others are ranked."""
+
+
 def run_comparison(comparison: Comparison, dataset: Dataset, out: Path, *, method: str | None = None,
                    engine=None, log: Callable[[str], None] | None = None, spot_checks: int = 3,
-                   sampler=None) -> pd.DataFrame:
-    """Cross-validate every structure (reusing finished results whose inputs match) and rank them.
-    Progress goes to ``log`` (default: the "leafcv" logger at INFO)."""
+                   sampler=None, workers: int | None = None, scheduler: str | None = None,
+                   progress: str | None = None) -> pd.DataFrame:
+    """Cross-validate every structure and rank them, every unit of work a task kept in the run folder's
+    task store (`leafcv.batch`), so a re-run, or a run started again after being killed, recomputes only
+    unfinished tasks. Messages go to ``log`` (default: the "leafcv" logger at INFO).
+
+    ``workers``: tasks run at once (default: one per core; 1 runs them in this process); ``scheduler``:
+    a Dask scheduler address, or "local" for a LocalCluster of ``workers`` processes; ``progress``:
+    "bar", "plain" or "quiet" (default: a bar on a terminal, else plain lines). ``engine``: tasks use it
+    in place of PyStan (tests); it must be picklable for worker processes.
+    """
     import logging
 
-    log = log or logging.getLogger("leafcv").info
-    from .cv.methods import cross_validate, estimates_fit   # here: reading run folders needs no sampler
+    from .batch.store import RunLock
 
+    log = log or logging.getLogger("leafcv").info
     out = Path(out)
+    with RunLock(out):
+        return _run_locked(comparison, dataset, out, method=method, engine=engine, log=log,
+                           spot_checks=spot_checks, sampler=sampler, workers=workers, scheduler=scheduler,
+                           progress=progress)
+
+
+def _run_locked(comparison, dataset, out, *, method, engine, log, spot_checks, sampler, workers, scheduler,
+                progress) -> pd.DataFrame:
+    from .batch.executors import DaskCluster, InProcess, Lazy, LocalProcesses, chains_at_once, default_workers
+    from .batch.progress import Progress, default_mode
+    from .batch.runner import Runner
+    from .batch.store import TaskStore
+    from .batch.worker import machine_cores
+    from .cv.methods import kept_outputs
+    from .cv.plan import Context, plan
+
     method = method or comparison.cv.method
     sampler = sampler or comparison.sampler
     data_hash = file_hash(comparison.data.file)
     settings = {"method": method, "by": comparison.cv.by, "folds": comparison.cv.folds,
                 "spot_checks": spot_checks, "sampler": asdict(sampler)}
+    cores = machine_cores()
+    n_workers = workers or (1 if scheduler is None and engine is not None else default_workers())
+    if n_workers < 1:
+        raise ValueError(f"workers must be at least 1, not {n_workers}")
     manifest = {
         "comparison": str(comparison.path), "comparison_sha256": file_hash(comparison.path),
         "data": str(comparison.data.file), "data_sha256": data_hash, "settings": settings,
@@ -340,14 +366,12 @@ def run_comparison(comparison: Comparison, dataset: Dataset, out: Path, *, metho
     write_atomic(out / "leaves.csv", dataset.leaves.to_csv(index=False))
     write_atomic(out / "manifest.json", json.dumps(manifest, indent=1))
     write_atomic(out / "structures.txt", structures_text(comparison, manifest["structures"]))
-    state = {"leaf_fits": None}
-
-    files: dict[str, str] = {}
-
-    def one(k: int, s: Structure) -> tuple[CVResult, dict]:
+    files = {s.name: f"{s.name}.json" for s in comparison.structures}
+    finished: dict[str, tuple[CVResult, dict]] = {}
+    todo = []
+    for s in comparison.structures:
         key = structure_key(s, comparison, data_hash, settings)
-        path = out / "results" / f"{s.name}.json"
-        files[s.name] = path.name
+        path = out / "results" / files[s.name]
         if path.exists():
             try:
                 old_key, res, det = _result_from_json(path.read_text())
@@ -356,42 +380,104 @@ def run_comparison(comparison: Comparison, dataset: Dataset, out: Path, *, metho
             kept = [out / "fits" / f"{s.name}.nc"] + [out / "predictions" / f"{s.name}-{part}.csv"
                                                       for part in ("points", "curves")]
             if old_key == key and all(f.exists() for f in kept):
-                log(f"[{k}/{n}] {s.name}: reusing the finished result in {path}")
-                return res, det
+                log(f"{s.name}: reusing the finished result in {path}")
+                finished[s.name] = (res, det)
+                continue
             if old_key == key:
-                log(f"[{k}/{n}] {s.name}: the result matches but its fit or predictions are missing: computing again")
-        if state["leaf_fits"] is None:
-            state["leaf_fits"] = fit_leaves(dataset)
-        t = time.perf_counter()
-        log(f"[{k}/{n}] {s.name}: cross-validating ({method}, by {comparison.cv.by})")
-        keep: dict = {}
-        res, det = cross_validate(s, dataset, comparison, method=method, by=comparison.cv.by,
-                                  folds=comparison.cv.folds, spot_checks=spot_checks, engine=engine,
-                                  leaf_fits=state["leaf_fits"], sampler=sampler, keep=keep)
-        if "fit" not in keep:
-            log(f"[{k}/{n}] {s.name}: fitting all leaves for the estimates ({method} scores come from refits)")
-            keep.update(estimates_fit(s, dataset, comparison, leaf_fits=state["leaf_fits"], engine=engine,
-                                      sampler=sampler, details=det))
-        write_fit(out / "fits" / f"{s.name}.nc", keep["fit"], dataset, keep["log_m"])
-        for part in ("points", "curves"):
-            write_atomic(out / "predictions" / f"{s.name}-{part}.csv", keep[part].to_csv(index=False))
-        write_atomic(path, _result_to_json(res, det, key))
-        grade = {"converged": "", "marginal": " - MARGINAL CONVERGENCE", "failed": " - NOT CONVERGED"}[res.grade]
-        mcse = f", MCSE {res.mcse:.2f}" if np.isfinite(res.mcse) else ""
-        log(f"[{k}/{n}] {s.name}: elpd {res.elpd:.1f} (SE {res.se:.1f}{mcse}), {res.n_refits} refits, "
-            f"{time.perf_counter() - t:.0f} s" + grade + (f" - NOT SCORED: {res.unscored}" if res.unscored else ""))
-        return res, asdict(det)
+                log(f"{s.name}: the result matches but its fit or predictions are missing: computing again")
+        todo.append((s, key))
 
-    n = len(comparison.structures)
-    done = [one(k, s) for k, s in enumerate(comparison.structures, 1)]
-    results = [r for r, _ in done]
-    all_details = {r.structure: d for r, d in done}
+    failures = {}
+    if todo:
+        leaf_fits = fit_leaves(dataset)
+        (out / "logs").mkdir(parents=True, exist_ok=True)
+        compile_log = str(out / "logs" / "compile.log")
+        local = scheduler is None or scheduler == "local"
+        ctx = Context(comparison, dataset, leaf_fits, sampler, engine=engine,
+                      chains_at_once=chains_at_once(cores, n_workers) if n_workers > 1 else None,
+                      compile_log=compile_log if local else None)
+        base = task_base(comparison, data_hash, sampler)
+        plans = {s.name: plan(s, dataset, comparison, sampler=sampler, method=method, by=comparison.cv.by,
+                              folds=comparison.cv.folds, spot_checks=spot_checks, estimates=True, base=base)
+                 for s, _ in todo}
+        keys = dict((s.name, key) for s, key in todo)
+        structures = {s.name: s for s, _ in todo}
+        mode = progress or default_mode()
+
+        def start_executor():
+            if engine is None and local:         # compile once here, before workers start (they find it cached)
+                from .engines.program import program_text
+                from .engines.pystan_engine import PyStanEngine
+
+                PyStanEngine(log=log, compile_log=compile_log).precompile(program_text())
+            if scheduler is not None:
+                ex = DaskCluster(ctx, scheduler, workers)
+            elif n_workers == 1:
+                ex = InProcess(ctx)
+            else:
+                ex = LocalProcesses(ctx, n_workers)
+            log(f"{len(todo)} structure(s) to cross-validate ({method}, by {comparison.cv.by}) on {ex.name}: "
+                f"{ex.workers} worker(s)"
+                + (f", {ctx.chains_at_once} chain(s) at once each ({cores} cores)" if ctx.chains_at_once else "")
+                + f"; finished tasks are kept in {out / 'tasks'}")
+            return ex
+
+        executor = Lazy(start_executor)
+        bar = Progress(mode, log)
+
+        def write_structure(name: str, value: tuple) -> None:
+            res, det, kept = value
+            kept = kept_outputs(ctx, structures[name], kept)
+            write_fit(out / "fits" / f"{name}.nc", kept["fit"], dataset, kept["log_m"])
+            for part in ("points", "curves"):
+                write_atomic(out / "predictions" / f"{name}-{part}.csv", kept[part].to_csv(index=False))
+            write_atomic(out / "results" / files[name], _result_to_json(res, det, keys[name]))
+            finished[name] = (res, asdict(det))
+            grade = {"converged": "", "marginal": " - MARGINAL CONVERGENCE", "failed": " - NOT CONVERGED"}[res.grade]
+            mcse = f", MCSE {res.mcse:.2f}" if np.isfinite(res.mcse) else ""
+            line = (f"{name}: elpd {res.elpd:.1f} (SE {res.se:.1f}{mcse}), {res.n_refits} refits" + grade
+                    + (f" - NOT SCORED: {res.unscored}" if res.unscored else ""))
+            if bar.bar is not None:
+                bar.bar.write(line)
+            else:
+                log(line)
+
+        store = TaskStore(out)
+        store.log("run", workers=n_workers, scheduler=scheduler, pid=os.getpid())
+        runner = Runner(executor, store, bar, on_finished=write_structure)
+        expected = {s.name: _expected_tasks(comparison, dataset, method, spot_checks) for s, _ in todo}
+        try:
+            _, failures = runner.run(plans, expected)
+        except BaseException as exc:
+            bar.close()
+            executor.close(kill=True)
+            if isinstance(exc, KeyboardInterrupt):
+                done = sum(1 for e in store.journal() if e["event"] == "done")
+                log(f"stopped: every finished task is kept in {out / 'tasks'} ({done} stored); run the same "
+                    f"command again to continue")
+            raise
+        bar.close()
+        executor.close()
+    if not finished:
+        raise BatchIncomplete("no structure finished: " + "; ".join(f"{n}: {f.message}" for n, f in failures.items()),
+                              "\n\n".join(f"{n} ({f.task.label}):\n{f.details}" for n, f in failures.items()))
+    order = [s.name for s in comparison.structures if s.name in finished]
+    results = [finished[n][0] for n in order]
+    all_details = {n: finished[n][1] for n in order}
     text, table = write_ranking(out, results, all_details, len(results[0].leaves))
-    manifest["results"] = files
+    manifest["results"] = {n: files[n] for n in order}
+    if failures:
+        manifest["failed"] = {n: f"{f.task.label}: {f.message}" for n, f in failures.items()}
     manifest["finished"] = time.strftime("%Y-%m-%dT%H:%M:%S%z")
     write_atomic(out / "manifest.json", json.dumps(manifest, indent=1))
     log(text)
     from .report import write_report    # here: the report needs matplotlib, the scores do not
 
     log(f"report: {write_report(out)}")
+    if failures:
+        raise BatchIncomplete(
+            f"{len(failures)} structure(s) not finished ({', '.join(failures)}): "
+            + "; ".join(f"{f.task.label}: {f.message}" for f in failures.values())
+            + f". The others are ranked in {out}; run the same command again to retry the failed tasks",
+            "\n\n".join(f"{n} ({f.task.label}):\n{f.details}" for n, f in failures.items()))
     return table

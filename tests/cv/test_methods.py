@@ -81,15 +81,15 @@ def test_spot_checks_that_disagree_replace_psis_and_two_refit_every_leaf(quick_d
     """PSIS made wrong on purpose (every leaf +1 nat): each spot check disagrees beyond
     max(0.1 nats, 3 x combined MCSE), raises a warning and takes the exact value, and with two or more
     disagreeing every leaf is refitted, so no PSIS value is left in the score."""
-    import leafcv.cv.methods as methods
+    import leafcv.cv.plan as plan
 
-    real = methods.integrated_loo
+    real = plan.integrated_loo
 
     def off_by_one(log_m, chains=1):
         est = real(log_m, chains)
         return replace(est, elpd=est.elpd + 1.0, khat=np.zeros_like(est.khat))
 
-    monkeypatch.setattr(methods, "integrated_loo", off_by_one)
+    monkeypatch.setattr(plan, "integrated_loo", off_by_one)
     comparison, dataset, _ = quick_demo
     res, det = cross_validate(pooled_structure(comparison), dataset, comparison, method="auto", spot_checks=2,
                               engine=FakeEngine(), leaf_fits=fit_leaves(dataset),

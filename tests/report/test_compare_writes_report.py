@@ -16,26 +16,28 @@ pytestmark = pytest.mark.filterwarnings("ignore:The inplace keyword")
 def test_run_comparison_writes_report_html_at_the_end(quick_demo, tmp_path, monkeypatch, no_engine):
     import leafcv.compare as compare
     import leafcv.cv.methods as methods
+    import leafcv.cv.plan as plan
 
     comparison, dataset, _ = quick_demo
     leaves = tuple(str(x) for x in dataset.leaves["leaf"])
     rng = np.random.default_rng(2)
     base = -20 + rng.normal(0, 2, len(leaves))
 
-    def invented(structure, *args, keep=None, **kwargs):
+    def invented(structure, *args, **kwargs):
+        """A plan that needs no task: its result, and what scoring keeps for the run folder (the fit,
+        and held-out predictions: none here)."""
         k = [s.name for s in comparison.structures].index(structure.name)
-        if keep is not None:
-            # what the scoring keeps for the run folder: the fit, and held-out predictions (none here)
-            keep.update(fit="a fit", log_m=None, points=pd.DataFrame(), curves=pd.DataFrame())
+        keep = dict(fit="a fit", log_m=None, points=pd.DataFrame(), curves=pd.DataFrame())
         res = CVResult(structure.name, "auto", leaves, base - 3 * k + rng.normal(0, 0.3, len(leaves)), 400,
                        pareto_k=rng.uniform(0, 0.5, len(leaves)), n_refits=0, grade="converged")
-        return res, methods.CVDetails()
+        return res, methods.CVDetails(), keep
+        yield                                  # a generator, as plans are
 
     def write_fit(path, fit, data, log_m):
         path.parent.mkdir(parents=True, exist_ok=True)
         labelled_idata().to_netcdf(str(path), engine="h5netcdf")
 
-    monkeypatch.setattr(methods, "cross_validate", invented)
+    monkeypatch.setattr(plan, "plan", invented)
     monkeypatch.setattr(compare, "write_fit", write_fit)
     monkeypatch.setattr(compare, "fit_leaves", lambda data: None)
     logs: list[str] = []

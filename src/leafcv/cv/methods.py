@@ -21,14 +21,13 @@ import numpy as np
 
 from ..data.dataset import LEAF_TERM, Dataset
 from ..design import leaf_link_values
-from ..diagnostics import DIVERGENCE_CODE, MIXING_CODES, worst_grade
+from ..diagnostics import DIVERGENCE_CODE, MIXING_CODES
 from ..errors import SpecError
 from ..fitting import StructureFit, fit_structure
 from ..inits import LeafFits
 from ..spec import Comparison, ParamSpec, SamplerSpec, Structure
 from .leafmodel import LeafModel, flatten_draws
-from .predictions import curve_draws, curves_table, points_table, summarise_curves
-from .psis import integrated_loo, khat_threshold, refit_elpd
+from .predictions import curve_draws
 from .quadrature import LEAF_TOL, QuadratureInfo, leaf_log_marginal
 from .result import CVResult
 
@@ -275,22 +274,6 @@ def fit_with_retries(structure, dataset, comparison, sampler, leaf_fits, train, 
     return best
 
 
-def estimates_fit(structure: Structure, dataset: Dataset, comparison: Comparison, *, leaf_fits: LeafFits,
-                  engine=None, sampler: SamplerSpec | None = None, details: CVDetails | None = None) -> dict:
-    """The full-data fit of a structure whose scores came from refits only (exact, K-fold): the posterior a
-    user reads estimates from. Recorded in ``details.fits`` as not contributing to the score. Returns
-    {"fit", "log_m"} as `cross_validate`'s ``keep``."""
-    sampler = sampler or comparison.sampler
-    details = details if details is not None else CVDetails()
-    n0 = len(details.fits)
-    fit = fit_with_retries(structure, dataset, comparison, sampler, leaf_fits, None, sampler.seed, engine, details,
-                           "full data (estimates only)")
-    for f in details.fits[n0:]:
-        f["contributes"] = False
-    sc = score_leaves(fit, dataset, np.arange(dataset.n_leaves), leaf_fits, in_fit=True)
-    return {"fit": fit, "log_m": sc.log_m}
-
-
 # ----------------------------------------------------------------------------------------------
 # cross-validation
 
@@ -311,33 +294,6 @@ class _Leafwise:
         nan = np.full(self.L, np.nan)
         self.elpd, self.mcse, self.bound, self.khat = nan.copy(), nan.copy(), nan.copy(), nan.copy()
         self.how = [""] * self.L
-
-
-def _refit_leaves(structure, dataset, comparison, sampler, leaf_fits, folds, seeds, engine, details,
-                  options, priors, role, warm_start=None, spot: frozenset = frozenset()
-                  ) -> tuple[dict[int, tuple], list[str]]:
-    """Refit without each fold; per held-out leaf (elpd, mcse, bound, prediction, quad info, fold grade)."""
-    L = dataset.n_leaves
-    out: dict[int, tuple] = {}
-    grades = []
-    for held, seed in zip(folds, seeds):
-        train = np.ones(L, bool)
-        train[held] = False
-        _check_curve_types(structure, dataset, train, held)
-        t = time.perf_counter()
-        fit = fit_with_retries(structure, dataset, comparison, sampler, leaf_fits, train, seed, engine, details,
-                               f"{role} without {', '.join(str(dataset.leaves['leaf'].iloc[g]) for g in held)}",
-                               options, priors, warm_start,
-                               retry_marginal=not (len(held) == 1 and int(held[0]) in spot))
-        sc = score_leaves(fit, dataset, held, leaf_fits, in_fit=False)
-        details.refit_seconds += time.perf_counter() - t
-        grade = fit.diagnostics.grade
-        grades.append(grade)
-        for j, g in enumerate(held):
-            e, m = refit_elpd(sc.log_m[:, j], sc.chains)
-            curve = summarise_curves(sc.curves[j]) if sc.curves[j] is not None else None
-            out[int(g)] = (e, m, sc.quad[j].bound, sc.pred_mean[j].mean(axis=0), sc.quad[j], grade, curve)
-    return out, grades
 
 
 def _check_curve_types(structure: Structure, dataset: Dataset, train: np.ndarray, held: np.ndarray) -> None:
@@ -371,175 +327,33 @@ def _note_quadrature(details: CVDetails, leaf_ids, leaves, quads) -> None:
 def cross_validate(structure: Structure, dataset: Dataset, comparison: Comparison, *, method: str = "auto",
                    by: str = "leaf", folds: int = 10, spot_checks: int = 3, engine=None,
                    leaf_fits: LeafFits, sampler: SamplerSpec | None = None, options=None, priors=None,
-                   keep: dict | None = None) -> tuple[CVResult, CVDetails]:
-    """Held-out scores of one structure by ``method`` (auto | exact | kfold).
+                   keep: dict | None = None, estimates: bool = False) -> tuple[CVResult, CVDetails]:
+    """Held-out scores of one structure by ``method`` (auto | exact | kfold), every task of its plan
+    (`leafcv.cv.plan`) run in this process, one after another.
 
-    ``keep``: a dict that receives, when the method makes one, the full-data fit (``"fit"``) and each
-    leaf's log marginal likelihood per draw of it (``"log_m"``, draws chain after chain by leaves)."""
+    ``keep``: a dict that receives, when the method makes one (or with ``estimates``), the full-data
+    fit (``"fit"``) and each leaf's log marginal likelihood per draw of it (``"log_m"``, draws chain after
+    chain by leaves), and the held-out predictions (``"points"``, ``"curves"``)."""
+    from .plan import Context, plan, run_in_process
+
     sampler = sampler or comparison.sampler
-    details = CVDetails()
-    L = dataset.n_leaves
-    leaf_ids = tuple(dataset.leaves["leaf"].astype(str))
-    acc = _Leafwise(L)
-    grades: list[str] = []
-    n_refits = 0
-    n_draws = sampler.chains * sampler.draws
-    if method == "auto" and by != LEAF_TERM:
-        details.notes.append(f"integrated PSIS integrates one leaf's effects; folds by {by!r} are refitted exactly, "
-                             f"each held-out leaf scored with the effects of its held-out {by} integrated too")
-        method = "exact"
-    if method == "auto":
-        t = time.perf_counter()
-        fit = fit_with_retries(structure, dataset, comparison, sampler, leaf_fits, None, sampler.seed, engine,
-                               details, "full data", options, priors)
-        details.full_fit_seconds = time.perf_counter() - t
-        grades.append(fit.diagnostics.grade)
-        n_draws = fit.draws.n_chains * fit.draws.n_draws
-        t = time.perf_counter()
-        sc = score_leaves(fit, dataset, np.arange(L), leaf_fits, in_fit=True)
-        if keep is not None:
-            keep.update(fit=fit, log_m=sc.log_m)
-        est = integrated_loo(sc.log_m, sc.chains)
-        _note_quadrature(details, leaf_ids, range(L), sc.quad)
-        acc.elpd[:], acc.mcse[:], acc.khat[:] = est.elpd, est.mcse, est.khat
-        details.psis_khat = [float(k) for k in est.khat]
-        acc.bound[:] = [q.bound for q in sc.quad]
-        acc.how = ["psis"] * L
-        for g in range(L):
-            acc.preds[g] = np.exp(est.log_weights[g]) @ sc.pred_mean[g]
-            if sc.curves[g] is not None:
-                acc.curves[g] = summarise_curves(sc.curves[g], est.log_weights[g])
-        details.quadrature_seconds = time.perf_counter() - t
-        thr = khat_threshold(n_draws)
-        flagged = [int(g) for g in np.flatnonzero(est.khat > thr)]
-        order = np.random.default_rng([sampler.seed, SPOT_STREAM]).permutation(L)
-        spots = [int(g) for g in order if g not in flagged][:spot_checks]
-        todo = flagged + spots
-        ex, ex_grades = _refit_leaves(structure, dataset, comparison, sampler, leaf_fits, [np.array([g]) for g in todo],
-                                      [sampler.seed + REFIT_SEED_OFFSET + g for g in todo], engine, details,
-                                      options, priors, "refit", warm_start=fit, spot=frozenset(spots))
-        n_refits = len(todo)
-        _note_quadrature(details, leaf_ids, todo, [ex[g][4] for g in todo])
-        replace_leaves = list(flagged)
-        disagree = []
-        for g in spots:
-            e, m = ex[g][0], ex[g][1]
-            tol = max(SPOT_MIN_NATS, SPOT_MCSE_MULTIPLE * float(np.hypot(acc.mcse[g], m)))
-            bad = abs(acc.elpd[g] - e) > tol
-            details.spot_checks.append({"leaf": leaf_ids[g], "khat": float(acc.khat[g]), "elpd_psis": float(acc.elpd[g]),
-                                        "elpd_exact": float(e), "mcse_psis": float(acc.mcse[g]), "mcse_exact": float(m),
-                                        "tolerance": tol, "disagree": bool(bad), "refit_grade": ex[g][5]})
-            if bad:
-                disagree.append(g)
-                replace_leaves.append(g)
-        if disagree:
-            details.notes.append(f"spot check(s) of {', '.join(leaf_ids[g] for g in disagree)} disagree with PSIS "
-                                 f"beyond max({SPOT_MIN_NATS:g} nats, {SPOT_MCSE_MULTIPLE:g} x MCSE): the exact values are used")
-        if len(disagree) >= SPOT_DISAGREE_REFIT_ALL:
-            rest = [g for g in range(L) if g not in todo]
-            more, _ = _refit_leaves(structure, dataset, comparison, sampler, leaf_fits, [np.array([g]) for g in rest],
-                                    [sampler.seed + REFIT_SEED_OFFSET + g for g in rest], engine, details,
-                                    options, priors, "refit", warm_start=fit)
-            ex.update(more)
-            n_refits += len(rest)
-            _note_quadrature(details, leaf_ids, rest, [more[g][4] for g in rest])
-            replace_leaves += rest
-            details.notes.append(f"{len(disagree)} spot checks disagreed: every leaf was refitted exactly")
-        used_roles = {f"refit without {leaf_ids[g]}" for g in replace_leaves}
-        for f in details.fits:
-            if f["role"].startswith("refit without ") and f["role"] not in used_roles:
-                f["contributes"] = False        # a spot check that agreed: recorded, not scored
-        for g in replace_leaves:
-            e, m, b, pred, _, grade, curve = ex[g]
-            acc.elpd[g], acc.mcse[g], acc.bound[g], acc.khat[g], acc.how[g] = e, m, b, np.nan, "refit"
-            acc.preds[g] = pred
-            _set_curve(acc, g, curve)
-            grades.append(grade)
-            details.refit_leaves.append(leaf_ids[g])
-        if flagged:
-            details.notes.append(f"{len(flagged)} leaf/leaves with k-hat above {thr:.2f} refitted exactly: "
-                                 + ", ".join(leaf_ids[g] for g in flagged))
-        unresolved_in = [g for g in range(L) if acc.how[g] == "psis" and sc.quad[g].bound > LEAF_TOL] + \
-                        [g for g in replace_leaves if ex[g][4].bound > LEAF_TOL]
-    elif by != LEAF_TERM:
-        return _cross_validate_levels(structure, dataset, comparison, method, by, folds, engine, leaf_fits, sampler,
-                                      options, priors, details, keep)
-    else:
-        fold_sets = folds_for(dataset, by, method, folds, sampler.seed)
-        base = _fold_seed_base(sampler, method)
-        ex, fold_grades = _refit_leaves(structure, dataset, comparison, sampler, leaf_fits, fold_sets,
-                                        [base + i for i in range(len(fold_sets))], engine, details, options, priors,
-                                        "refit" if method == "exact" else "fold")
-        grades += fold_grades
-        n_refits = len(fold_sets)
-        for g, (e, m, b, pred, q, _, curve) in ex.items():
-            acc.elpd[g], acc.mcse[g], acc.bound[g], acc.how[g] = e, m, b, method
-            acc.preds[g] = pred
-            _set_curve(acc, g, curve)
-        _note_quadrature(details, leaf_ids, list(ex), [v[4] for v in ex.values()])
-        unresolved_in = [g for g, v in ex.items() if v[4].bound > LEAF_TOL]
-    rmse, r2 = _prediction_scores(dataset, acc.preds)
-    _keep_predictions(keep, dataset, acc.preds, acc.curves)
-    grade = worst_grade(grades)
-    warnings = _fit_warnings(details, grade)
-    warnings += details.notes
-    unscored = ""
-    if unresolved_in:
-        unscored = ("the held-out quadrature did not settle for " + ", ".join(leaf_ids[g] for g in unresolved_in)
-                    + " (" + "; ".join(details.unresolved) + ")")
-    result = CVResult(structure.name, method, leaf_ids, acc.elpd, n_draws, pareto_k=acc.khat, n_refits=n_refits,
-                      grade=grade, warnings=tuple(warnings), rmse=rmse, r2=r2, method_i=tuple(acc.how),
-                      mcse_i=acc.mcse, quad_bound_i=acc.bound, unscored=unscored)
+    ctx = Context(comparison, dataset, leaf_fits, sampler, engine=engine)
+    steps = plan(structure, dataset, comparison, sampler=sampler, method=method, by=by, folds=folds,
+                 spot_checks=spot_checks, options=options, priors=priors, estimates=estimates)
+    result, details, kept = run_in_process(steps, ctx)
+    if keep is not None:
+        keep.update(kept_outputs(ctx, structure, kept, options, priors))
     return result, details
 
 
-def _cross_validate_levels(structure, dataset, comparison, method, by, folds, engine, leaf_fits, sampler,
-                           options, priors, details, keep=None) -> tuple[CVResult, CVDetails]:
-    """Leave-one-level-out (or K folds of levels) of grouping ``by``: each level scored jointly, with
-    the effects its leaves share integrated once per draw; SEs are then over levels."""
-    L = dataset.n_leaves
-    level_of = dataset.leaves[by].astype(str).to_numpy()
-    levels = sorted(set(level_of))
-    fold_sets = folds_for(dataset, by, method, folds, sampler.seed)
-    base = _fold_seed_base(sampler, method)
-    elpd, mcse, bound = np.full(len(levels), np.nan), np.full(len(levels), np.nan), np.full(len(levels), np.nan)
-    preds: dict[int, np.ndarray] = {}
-    curves: dict[int, object] = {}
-    grades, unresolved = [], []
-    for i, held in enumerate(fold_sets):
-        train = np.ones(L, bool)
-        train[held] = False
-        _check_curve_types(structure, dataset, train, held)
-        t = time.perf_counter()
-        names = sorted(set(level_of[held]))
-        fit = fit_with_retries(structure, dataset, comparison, sampler, leaf_fits, train, base + i, engine, details,
-                               f"{'refit' if method == 'exact' else 'fold'} without {by} {', '.join(names)}",
-                               options, priors)
-        grades.append(fit.diagnostics.grade)
-        sc = score_leaves(fit, dataset, held, leaf_fits, in_fit=False)      # predictions (and per-leaf checks)
-        for j, g in enumerate(held):
-            preds[int(g)] = sc.pred_mean[j].mean(axis=0)
-            if sc.curves[j] is not None:
-                curves[int(g)] = summarise_curves(sc.curves[j])
-        for name in names:
-            members = held[level_of[held] == name]
-            joint, b, bad = score_level(fit, dataset, members, leaf_fits)
-            k = levels.index(name)
-            elpd[k], mcse[k] = refit_elpd(joint, fit.draws.n_chains)
-            bound[k] = b
-            if b > LEAF_TOL:
-                unresolved.append(f"{by} {name} (bound {b:.3g} nats; {bad} draws unsettled)")
-        details.refit_seconds += time.perf_counter() - t
-    rmse, r2 = _prediction_scores(dataset, preds)
-    _keep_predictions(keep, dataset, preds, curves)
-    grade = worst_grade(grades)
-    warnings = _fit_warnings(details, grade) + details.notes
-    unscored = ("the held-out quadrature did not settle for " + ", ".join(unresolved)) if unresolved else ""
-    n_draws = sampler.chains * sampler.draws
-    result = CVResult(structure.name, method, tuple(levels), elpd, n_draws, n_refits=len(fold_sets), grade=grade,
-                      warnings=tuple(warnings), rmse=rmse, r2=r2, mcse_i=mcse, quad_bound_i=bound,
-                      unscored=unscored, unit=by)
-    return result, details
+def kept_outputs(ctx, structure: Structure, kept: dict, options=None, priors=None) -> dict:
+    """A plan's ``keep`` with the full-data fit rebuilt from its task output (``"fit"``)."""
+    from .plan import restore_fit
+
+    out = {k: v for k, v in kept.items() if k != "full_output"}
+    if "full_output" in kept:
+        out["fit"] = restore_fit(ctx, structure, kept["full_output"], options, priors)
+    return out
 
 
 def _set_curve(acc: _Leafwise, g: int, curve) -> None:
@@ -547,13 +361,6 @@ def _set_curve(acc: _Leafwise, g: int, curve) -> None:
         acc.curves[g] = curve
     else:
         acc.curves.pop(g, None)
-
-
-def _keep_predictions(keep: dict | None, dataset: Dataset, preds: dict, curves: dict) -> None:
-    """Put the held-out predictions (per point) and predictive curves (per leaf) into ``keep``."""
-    if keep is not None:
-        keep["points"] = points_table(dataset, preds)
-        keep["curves"] = curves_table(dataset, curves)
 
 
 def _fit_warnings(details: CVDetails, grade: str) -> list[str]:

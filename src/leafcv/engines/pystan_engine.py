@@ -40,13 +40,24 @@ def _jsonable(obj: Any) -> Any:
 
 
 class PyStanEngine:
-    """Engine backed by PyStan 3 / httpstan."""
+    """Engine backed by PyStan 3 / httpstan.
+
+    ``chains_at_once``: chains of one fit sampled at the same time (None: all of them; httpstan's own
+    pool then runs up to one per core). The others wait and start as running ones finish, so a
+    worker that shares a machine with other workers keeps to its share of the cores; each chain's draws
+    depend only on the seed and the chain number, not on when it ran.
+    ``compile_log``: file that receives the compiler's output (default: ``leafcv-compile.log`` in
+    httpstan's cache folder); the terminal never does.
+    """
 
     name = "pystan"
 
-    def __init__(self, log: Callable[[str], None] | None = None):
+    def __init__(self, log: Callable[[str], None] | None = None, chains_at_once: int | None = None,
+                 compile_log: str | None = None):
         self.log = log or logging.getLogger("leafcv").info
         self.compiler_messages: dict[str, str] = {}
+        self.chains_at_once = chains_at_once
+        self.compile_log = compile_log
 
     def is_compiled(self, program: str) -> bool:
         """Whether httpstan already holds a compiled module for this program text."""
@@ -59,16 +70,48 @@ class PyStanEngine:
         """Build the model for ``data`` (compiling once per program text; PyStan's chatter is kept, not printed)."""
         import stan
 
-        if not self.is_compiled(program):
-            self.log("compiling the Stan program (once per program version on this machine; 1-2 minutes)...")
         out, err = io.StringIO(), io.StringIO()
         try:
+            if not self.is_compiled(program):
+                self.precompile(program)
             with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
                 model = outside_event_loop(stan.build, program, data=_jsonable(data or {}), random_seed=seed)
+        except EngineError:
+            raise
         except Exception as exc:  # httpstan reports compile and data errors as plain exceptions
             raise EngineError(f"PyStan could not build the model: {exc}", out.getvalue() + err.getvalue() + str(exc)) from exc
         self.compiler_messages[model.model_name] = out.getvalue() + err.getvalue()
         return model
+
+    def precompile(self, program: str) -> None:
+        """Compile ``program`` into httpstan's cache unless it is there: under a lock file in the cache
+        folder, so that processes starting cold on one machine compile it once (the others wait, then
+        find it cached), with the compiler's output (C++ notes and warnings, printed by child processes
+        straight to the terminal's file descriptors) sent to the compile log."""
+        import fcntl
+
+        import stan
+        from httpstan.cache import cache_directory
+
+        folder = cache_directory()
+        folder.mkdir(parents=True, exist_ok=True)
+        log_path = self.compile_log or str(folder / "leafcv-compile.log")
+        with open(folder / "leafcv-compile.lock", "a") as lock:
+            fcntl.flock(lock, fcntl.LOCK_EX)         # released when the file closes, or the process dies
+            try:
+                if self.is_compiled(program):
+                    return
+                self.log(f"compiling the Stan program (once per program version on this machine; 1-2 minutes; "
+                         f"compiler output in {log_path})...")
+                with _output_to(log_path):
+                    try:
+                        outside_event_loop(stan.build, program, data={})
+                    except Exception as exc:    # no data: the program compiled, then wanted data; or it failed
+                        if not self.is_compiled(program):
+                            raise EngineError(f"PyStan could not compile the program: {exc} (compiler output in "
+                                              f"{log_path})", str(exc)) from exc
+            finally:
+                fcntl.flock(lock, fcntl.LOCK_UN)
 
     def fit(
         self,
@@ -98,13 +141,40 @@ class PyStanEngine:
             })
         start = time.perf_counter()
         try:
-            outputs = outside_event_loop(asyncio.run, _run_chains(model.model_name, payloads, progress))
+            outputs = outside_event_loop(asyncio.run, _run_chains(model.model_name, payloads, progress,
+                                                                  self.chains_at_once))
         except EngineError:
             raise
         except Exception as exc:
             raise EngineError(f"PyStan sampling failed: {exc}", repr(exc)) from exc
         seconds = time.perf_counter() - start
         return _to_draws(model, outputs, settings, seed, seconds)
+
+
+@contextlib.contextmanager
+def _output_to(path: str):
+    """Send this process's standard output and error, at the file-descriptor level (child processes
+    included), to the end of ``path`` while the block runs."""
+    import os
+
+    sys.stdout.flush()
+    sys.stderr.flush()
+    saved = os.dup(1), os.dup(2)
+    with open(path, "a") as fh:
+        fh.write(f"--- {time.strftime('%Y-%m-%d %H:%M:%S')}: compiling the Stan program\n")
+        fh.flush()
+        try:
+            os.dup2(fh.fileno(), 1)
+            os.dup2(fh.fileno(), 2)
+            with contextlib.redirect_stdout(fh), contextlib.redirect_stderr(fh):
+                yield
+        finally:
+            sys.stdout.flush()
+            sys.stderr.flush()
+            os.dup2(saved[0], 1)
+            os.dup2(saved[1], 2)
+            os.close(saved[0])
+            os.close(saved[1])
 
 
 def outside_event_loop(func: Callable[..., Any], *args: Any, **kwargs: Any) -> Any:
@@ -126,20 +196,28 @@ def outside_event_loop(func: Callable[..., Any], *args: Any, **kwargs: Any) -> A
 
 
 async def _run_chains(
-    model_name: str, payloads: list[dict[str, Any]], progress: Callable[[int, int], None] | None
+    model_name: str, payloads: list[dict[str, Any]], progress: Callable[[int, int], None] | None,
+    at_once: int | None = None,
 ) -> list[bytes]:
+    """Sample every chain, at most ``at_once`` at the same time; the outputs in chain order."""
     import stan.common
 
     async with stan.common.HttpstanClient() as client:
         operations = []
-        for payload in payloads:
+
+        async def start(payload):
             resp = await client.post(f"/{model_name}/fits", json=payload)
             if resp.status != 201:
                 raise EngineError(f"httpstan refused the fit (HTTP {resp.status})", resp.content.decode(errors="replace"))
             operations.append(resp.json())
+
+        waiting = list(payloads)
+        limit = len(payloads) if not at_once else max(1, int(at_once))
         iters: dict[str, int] = {}
         total = 0
-        while not all(op["done"] for op in operations):
+        while waiting or not all(op["done"] for op in operations):
+            while waiting and sum(not op["done"] for op in operations) < limit:
+                await start(waiting.pop(0))
             for op in operations:
                 if op["done"]:
                     continue
@@ -150,7 +228,7 @@ async def _run_chains(
                     it, total = map(int, found[-1])
                     iters[op["name"]] = it
             if progress is not None and total:
-                progress(sum(iters.values()), total * len(operations))
+                progress(sum(iters.values()), total * len(payloads))
             await asyncio.sleep(0.1)
         outputs, errors = [], []
         for op in operations:

@@ -1,0 +1,240 @@
+"""Where tasks run: this process, local worker processes, or a Dask cluster.
+
+Each executor offers ``submit(task, inputs) -> future``, ``wait(futures, timeout) -> done`` and
+``close(kill)``. The coordinator (`leafcv.batch.runner`) decides what runs and stores what finishes;
+workers only compute, so results never depend on the executor.
+"""
+from __future__ import annotations
+
+import concurrent.futures as cf
+import multiprocessing as mp
+import os
+import pickle
+
+from .worker import kill_descendants, machine_cores
+
+
+def default_workers() -> int:
+    """Workers when ``--workers`` is not given: one per core (each then samples one chain at a time)."""
+    return machine_cores()
+
+
+def chains_at_once(cores: int, workers: int) -> int:
+    """Chains one worker samples at the same time: its share of the machine's cores, at least one."""
+    return max(1, cores // max(1, workers))
+
+
+class InProcess:
+    """Every task in the coordinator's own process, one at a time (``--workers 1``)."""
+
+    name = "in-process"
+    workers = 1
+
+    def __init__(self, ctx):
+        from .worker import limit_chain_pool
+
+        self.ctx = ctx
+        ctx.chains_at_once = ctx.chains_at_once or None
+        limit_chain_pool(ctx.chains_at_once)
+
+    def submit(self, task, inputs):
+        from ..cv.plan import execute
+
+        fut: cf.Future = cf.Future()
+        try:
+            fut.set_result(execute(self.ctx, task, inputs))
+        except (KeyboardInterrupt, SystemExit):
+            raise
+        except Exception as exc:
+            import traceback
+
+            from .worker import TaskError
+
+            fut.set_exception(TaskError(f"{type(exc).__name__}: {exc}", traceback.format_exc()))
+        return fut
+
+    def wait(self, futures, timeout):
+        return {f for f in futures if f.done()}
+
+    def lost(self, exc: BaseException) -> bool:
+        return False
+
+    def close(self, kill: bool = False) -> None:
+        if kill:      # chains of an interrupted fit still running in httpstan's pool: end them, fresh pool
+            kill_descendants()
+            _fresh_chain_pool()
+
+
+def _kill(pid: int) -> None:
+    import psutil
+
+    try:
+        psutil.Process(pid).kill()
+    except psutil.NoSuchProcess:
+        pass
+
+
+def _fresh_chain_pool() -> None:
+    try:
+        import httpstan.services_stub as stub
+    except ImportError:
+        return
+    stub.executor = cf.ProcessPoolExecutor(mp_context=mp.get_context("fork"), initializer=stub.init_worker)
+
+
+class LocalProcesses:
+    """``workers`` local worker processes (started fresh, not forked from the coordinator)."""
+
+    name = "local processes"
+
+    def __init__(self, ctx, workers: int):
+        from .worker import init_local_worker
+
+        self.workers = workers
+        self._args = (pickle.dumps(ctx), os.getpid())
+        self._init = init_local_worker
+        self._pool = self._start()
+
+    def _start(self):
+        return cf.ProcessPoolExecutor(max_workers=self.workers, mp_context=mp.get_context("spawn"),
+                                      initializer=self._init, initargs=self._args)
+
+    def submit(self, task, inputs):
+        from .worker import run_local
+
+        try:
+            return self._pool.submit(run_local, task, inputs)
+        except cf.process.BrokenProcessPool:
+            self.restart()
+            return self._pool.submit(run_local, task, inputs)
+
+    def wait(self, futures, timeout):
+        done, _ = cf.wait(futures, timeout=timeout, return_when=cf.FIRST_COMPLETED)
+        return done
+
+    def lost(self, exc: BaseException) -> bool:
+        """Whether ``exc`` says a worker process died (the pool is then restarted)."""
+        return isinstance(exc, cf.process.BrokenProcessPool)
+
+    def restart(self) -> None:
+        self._pool.shutdown(wait=False, cancel_futures=True)
+        self._pool = self._start()
+
+    def close(self, kill: bool = False) -> None:
+        """Stop the workers and their chain processes (a worker's chain pool never exits on its own: a
+        worker left to exit waits on it for ever)."""
+        pids = list(getattr(self._pool, "_processes", {}) or {})
+        self._pool.shutdown(wait=False, cancel_futures=True)
+        for pid in pids:
+            kill_descendants(pid)
+            _kill(pid)
+        if kill:
+            kill_descendants()
+
+
+class DaskCluster:
+    """Tasks sent to a Dask distributed scheduler at ``address``, or (``"local"``) to a LocalCluster of
+    ``workers`` single-threaded worker processes started here."""
+
+    name = "dask"
+
+    def __init__(self, ctx, address: str, workers: int | None = None):
+        try:
+            from distributed import Client, LocalCluster
+        except ImportError:
+            from ..errors import UserInputError
+
+            raise UserInputError("--scheduler", ["Dask is not installed: pip install 'leafcv[cluster]' (here and on "
+                                                 "every worker machine)"]) from None
+        self._cluster = None
+        if address == "local":
+            n = workers or default_workers()
+            self._cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address=None)
+            self.client = Client(self._cluster)
+        else:
+            self.client = Client(address, timeout="30s")
+        info = self.client.scheduler_info(n_workers=-1)["workers"] if _takes_n_workers(self.client) \
+            else self.client.scheduler_info()["workers"]
+        if not info:
+            from ..errors import UserInputError
+
+            raise UserInputError("--scheduler", [f"the Dask scheduler at {address} has no workers; start some with "
+                                                 f"`dask worker {address} --nthreads 1`"])
+        cores = self.client.run(machine_cores)
+        per_host: dict[str, int] = {}
+        for addr, w in info.items():
+            per_host[w["host"]] = per_host.get(w["host"], 0) + w.get("nthreads", 1)
+        ctx.chains_by_worker = {addr: chains_at_once(cores.get(addr, 1), per_host[w["host"]])
+                                for addr, w in info.items()}
+        self.workers = sum(w.get("nthreads", 1) for w in info.values())
+        self._ctx = self.client.scatter(ctx, broadcast=True)
+
+    def submit(self, task, inputs):
+        from .worker import run_dask
+
+        return self.client.submit(run_dask, self._ctx, task, inputs, pure=False)
+
+    def wait(self, futures, timeout):
+        from distributed import wait
+        from distributed.utils import TimeoutError as DaskTimeout
+
+        try:
+            done, _ = wait(list(futures), timeout=timeout, return_when="FIRST_COMPLETED")
+        except (DaskTimeout, TimeoutError):
+            return set()
+        return set(done)
+
+    def lost(self, exc: BaseException) -> bool:
+        return type(exc).__name__ == "KilledWorker"
+
+    def close(self, kill: bool = False) -> None:
+        """Disconnect; a cluster started here is stopped with its workers' chain processes. Workers of
+        an existing cluster end the chain processes of their last tasks."""
+        try:
+            if self._cluster is not None or kill:
+                self.client.run(kill_descendants)
+        except Exception:       # a worker already gone
+            pass
+        try:
+            self.client.close()
+        finally:
+            if self._cluster is not None:
+                self._cluster.close()
+                if kill:
+                    kill_descendants()
+
+
+def _takes_n_workers(client) -> bool:
+    import inspect
+
+    return "n_workers" in inspect.signature(client.scheduler_info).parameters
+
+
+class Lazy:
+    """An executor made on the first task sent: a run whose tasks are all in the store starts no worker
+    and compiles nothing."""
+
+    def __init__(self, factory):
+        self._factory = factory
+        self.real = None
+
+    def _get(self):
+        if self.real is None:
+            self.real = self._factory()
+        return self.real
+
+    def submit(self, task, inputs):
+        return self._get().submit(task, inputs)
+
+    def wait(self, futures, timeout):
+        return self._get().wait(futures, timeout)
+
+    def lost(self, exc: BaseException) -> bool:
+        return self._get().lost(exc)
+
+    def restart(self) -> None:
+        self._get().restart()
+
+    def close(self, kill: bool = False) -> None:
+        if self.real is not None:
+            self.real.close(kill)
