@@ -438,7 +438,7 @@ def _run_locked(comparison, dataset, out, *, method, engine, log, spot_checks, s
             line = (f"{name}: elpd {res.elpd:.1f} (SE {res.se:.1f}{mcse}), {res.n_refits} refits" + grade
                     + (f" - NOT SCORED: {res.unscored}" if res.unscored else ""))
             if bar.bar is not None:
-                bar.bar.write(line)
+                bar.bar.write(line, file=sys.stderr)
             else:
                 log(line)
 

@@ -16,7 +16,7 @@ Magnitudes follow REFERENCES.md (Wullschleger 1993; Walker et al. 2014; Long & B
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -169,9 +169,12 @@ rd25 = {{ ratio_to = "vcmax25" }}
 """
 
 
-def write_demo(folder: Path, quick: bool = False, seed: int = 20261202) -> Path:
-    """Write observations.csv, truth.csv and demo.toml into ``folder``; return the comparison file."""
+def write_demo(folder: Path, quick: bool = False, seed: int = 20261202, n_leaves: int | None = None) -> Path:
+    """Write observations.csv, truth.csv and demo.toml into ``folder``; return the comparison file.
+    ``n_leaves``: simulate this many leaves instead (benchmarks of how cost grows with leaves)."""
     size = SIZES["quick" if quick else "default"]
+    if n_leaves is not None:
+        size = replace(size, leaves=n_leaves)
     folder.mkdir(parents=True, exist_ok=True)
     obs, truth = simulate(size.leaves, seed)
     obs.to_csv(folder / "observations.csv", index=False)

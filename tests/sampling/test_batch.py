@@ -1,7 +1,8 @@
 """Batches with real Stan fits on a tiny scenario (8 leaves, one structure, short chains): a run killed
-with SIGKILL during a full fit, during scoring and during refits, and started again each time, leaves no
-process behind, runs no finished task twice and ends with the uninterrupted run's ranking, byte for
-byte; a two-worker Dask LocalCluster gives the same ranking too."""
+with SIGKILL during a full fit, during scoring and during refits, then stopped by Ctrl-C during another
+refit, and started again each time, leaves no process behind, keeps every finished task, runs no finished
+task twice and ends with the uninterrupted run's ranking, byte for byte; a two-worker Dask LocalCluster
+gives the same ranking too."""
 from __future__ import annotations
 
 import json
@@ -71,9 +72,10 @@ def uninterrupted(tiny, tmp_path_factory) -> Path:
     return out
 
 
-def _kill_when(tiny: Path, out: Path, kind: str) -> str:
-    """Start a compare in its own session; SIGKILL the whole session while a task of ``kind`` runs.
-    Returns that task's key after checking that it had not finished and that no process is left."""
+def _kill_when(tiny: Path, out: Path, kind: str, sig: int = signal.SIGKILL) -> str:
+    """Start a compare in its own session; send ``sig`` to its whole process group while a task of
+    ``kind`` runs (SIGKILL; or SIGINT, as a terminal's Ctrl-C does). Returns that task's key after
+    checking that it had not finished and that no process is left."""
     proc = _compare(tiny, out, "--workers", "1", start_new_session=True)
     deadline = time.time() + 600
     key = None
@@ -87,13 +89,17 @@ def _kill_when(tiny: Path, out: Path, kind: str) -> str:
             break
         time.sleep(0.05)
     assert key is not None, f"no {kind} task started before the run ended"
-    os.killpg(proc.pid, signal.SIGKILL)
-    proc.wait()
+    os.killpg(proc.pid, sig)
+    output, _ = proc.communicate(timeout=60)
+    if sig == signal.SIGINT:
+        assert proc.returncode == 130 and "finished tasks are kept" in output, output
     assert key not in {e["key"] for e in _journal(out) if e["event"] == "done"}, \
         f"the {kind} task finished before the kill: the kill did not land during it"
     time.sleep(0.5)
-    left = [p for p in psutil.process_iter(["pid", "name"]) if _session(p.pid) == proc.pid]
-    assert not left, f"processes left after SIGKILL of the run's process group: {left}"
+    # a killed process whose parent died too waits, dead, as a zombie until the container's init reaps it
+    left = [p for p in psutil.process_iter(["pid", "name", "status"])
+            if _session(p.pid) == proc.pid and p.info["status"] != psutil.STATUS_ZOMBIE]
+    assert not left, f"processes left running after SIGKILL of the run's process group: {left}"
     return key
 
 
@@ -107,6 +113,10 @@ def _session(pid: int) -> int | None:
 def test_a_run_killed_at_three_moments_and_restarted_ends_with_the_uninterrupted_ranking(tiny, uninterrupted, tmp_path):
     out = tmp_path / "run"
     killed = [_kill_when(tiny, out, kind) for kind in ("full", "score", "refit")]
+    stored = {e["key"] for e in _journal(out) if e["event"] == "done"}
+    killed.append(_kill_when(tiny, out, "refit", signal.SIGINT))       # Ctrl-C: stops cleanly
+    after = {e["key"] for e in _journal(out) if e["event"] == "done"}
+    assert stored <= after and all((out / "tasks" / f"{k}.json").exists() for k in after)
     _finish(_compare(tiny, out, "--workers", "1"))
     events = _journal(out)
     done = [e["key"] for e in events if e["event"] == "done"]

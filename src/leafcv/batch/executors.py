@@ -146,10 +146,14 @@ class DaskCluster:
 
             raise UserInputError("--scheduler", ["Dask is not installed: pip install 'leafcv[cluster]' (here and on "
                                                  "every worker machine)"]) from None
+        import dask
+
         self._cluster = None
         if address == "local":
             n = workers or default_workers()
-            self._cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address=None)
+            with dask.config.set({"distributed.worker.daemon": False}):   # workers start chain processes
+                self._cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
+                                             dashboard_address=None)
             self.client = Client(self._cluster)
         else:
             self.client = Client(address, timeout="30s")
@@ -185,7 +189,9 @@ class DaskCluster:
         return set(done)
 
     def lost(self, exc: BaseException) -> bool:
-        return type(exc).__name__ == "KilledWorker"
+        """Never a broken pool here: Dask moves a lost worker's tasks itself, and a task whose workers
+        keep dying (KilledWorker) is sent again like any failed task."""
+        return False
 
     def close(self, kill: bool = False) -> None:
         """Disconnect; a cluster started here is stopped with its workers' chain processes. Workers of

@@ -40,14 +40,13 @@ class Progress:
         total = max(counts["total"], finished)
         if self.mode == "bar":
             self._bar(event, task, counts, finished, total)
-        elif self.mode == "plain" and event in ("done", "failed", "retry", "structure"):
+        elif self.mode == "plain" and event in ("done", "failed", "retry"):
             elapsed = time.perf_counter() - self.start
             rate = counts["done"] / elapsed if counts["done"] else 0.0
             eta = f", ETA {_clock((total - finished) / rate)}" if rate > 0 and total > finished else ""
             what = {"done": f"{task.label if task else ''}",
                     "failed": f"FAILED twice: {task.label if task else ''}: {counts.get('error', '')}",
-                    "retry": f"failed, sent again: {task.label if task else ''}: {counts.get('error', '')}",
-                    "structure": f"{counts.get('structure')}: every task finished"}[event]
+                    "retry": f"failed, sent again: {task.label if task else ''}: {counts.get('error', '')}"}[event]
             self.log(f"[{finished}/{total} tasks, {_clock(elapsed)} elapsed{eta}] {what}")
         elif self.mode == "quiet" and event in ("failed", "retry"):
             self.log(f"{'FAILED twice' if event == 'failed' else 'failed, sent again'}: "
@@ -64,7 +63,7 @@ class Progress:
         self.bar.n = finished
         if event in ("failed", "retry"):
             self.bar.write(f"{'FAILED twice' if event == 'failed' else 'failed, sent again'}: "
-                           f"{task.label if task else ''}: {counts.get('error', '')}")
+                           f"{task.label if task else ''}: {counts.get('error', '')}", file=sys.stderr)
         if event == "done" and task is not None:
             self.bar.set_postfix_str(task.label[:60], refresh=False)
         self.bar.refresh()

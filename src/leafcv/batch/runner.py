@@ -132,8 +132,7 @@ class Runner:
                     continue
                 exc = fut.exception()
                 if exc is not None:
-                    lost = self.executor.lost(exc)
-                    if lost and hasattr(self.executor, "restart"):
+                    if self.executor.lost(exc):          # a local worker died: its pool is broken
                         self._resubmit_all_lost(pending, submit)
                     self.store.log("failed", task, attempt=attempts[task.key], error=str(exc)[:500])
                     if attempts[task.key] < TASK_ATTEMPTS:

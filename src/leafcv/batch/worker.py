@@ -29,9 +29,11 @@ class TaskError(Exception):
         return (TaskError, (str(self), self.details))
 
 
-def limit_chain_pool(n: int | None) -> None:
-    """Give httpstan's chain pool ``n`` processes (before it starts any)."""
-    if not n:
+def limit_chain_pool(n: int | None, start_method: str = "fork") -> None:
+    """Give httpstan's chain pool ``n`` processes (before it starts any). ``start_method``
+    "forkserver" where tasks run in a thread of a process with other threads (a Dask worker): a chain
+    process forked from such a thread crashes, one forked from a fork server does not."""
+    if not n and start_method == "fork":
         return
     import concurrent.futures
     import multiprocessing as mp
@@ -39,9 +41,10 @@ def limit_chain_pool(n: int | None) -> None:
     import httpstan.services_stub as stub
 
     current = stub.executor
-    if getattr(current, "_max_workers", None) == n or getattr(current, "_processes", None):
+    if getattr(current, "_processes", None):
         return
-    stub.executor = concurrent.futures.ProcessPoolExecutor(max_workers=n, mp_context=mp.get_context("fork"),
+    stub.executor = concurrent.futures.ProcessPoolExecutor(max_workers=n or machine_cores(),
+                                                           mp_context=mp.get_context(start_method),
                                                            initializer=stub.init_worker)
 
 
@@ -95,7 +98,13 @@ def run_dask(context, task, inputs):
     and the compiled program, are reused by every later task there)."""
     from distributed import get_worker
 
+    import multiprocessing
+
     address = get_worker().address
+    if multiprocessing.current_process().daemon:
+        raise TaskError("this Dask worker runs as a daemonic process, which may not start Stan's chain processes: "
+                        "start the workers with DASK_DISTRIBUTED__WORKER__DAEMON=False in their environment "
+                        "(see docs/large-comparisons.md)", "")
     key = (id(context), address)
     ctx = _DASK_CONTEXTS.get(key)
     if ctx is None:
@@ -103,7 +112,7 @@ def run_dask(context, task, inputs):
         limit = (ctx.chains_by_worker or {}).get(address)
         if limit:
             ctx.chains_at_once = limit
-        limit_chain_pool(ctx.chains_at_once)
+        limit_chain_pool(ctx.chains_at_once, "forkserver")
         _DASK_CONTEXTS[key] = ctx
     return _run(ctx, task, inputs)
 
@@ -114,7 +123,9 @@ def _run(ctx, task, inputs):
     try:
         return execute(ctx, task, inputs)
     except Exception as exc:
-        raise TaskError(f"{type(exc).__name__}: {exc}", traceback.format_exc()) from None
+        extra = getattr(exc, "engine_messages", "")
+        raise TaskError(f"{type(exc).__name__}: {exc}",
+                        traceback.format_exc() + (f"\nengine messages:\n{extra}" if extra else "")) from None
 
 
 def machine_cores() -> int:
