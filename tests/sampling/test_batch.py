@@ -76,11 +76,12 @@ def _kill_when(tiny: Path, out: Path, kind: str, sig: int = signal.SIGKILL) -> s
     """Start a compare in its own session; send ``sig`` to its whole process group while a task of
     ``kind`` runs (SIGKILL; or SIGINT, as a terminal's Ctrl-C does). Returns that task's key after
     checking that it had not finished and that no process is left."""
+    before = len(_journal(out))          # events of earlier runs: a task they left unfinished is not this one's
     proc = _compare(tiny, out, "--workers", "1", start_new_session=True)
     deadline = time.time() + 600
     key = None
     while time.time() < deadline and proc.poll() is None:
-        events = _journal(out)
+        events = _journal(out)[before:]
         done = {e["key"] for e in events if e["event"] == "done"}
         running = [e for e in events if e["event"] == "start" and e["kind"] == kind and e["key"] not in done]
         if running:
