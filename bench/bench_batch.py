@@ -334,6 +334,7 @@ def main() -> None:
     for p in PROJECT_CORES:
         w = max(total / p, critical)
         print(f"{p:>8} {hmm(w):>22}" + ("  (critical path)" if critical >= total / p else ""))
+    print(f"\nload average at end {', '.join(f'{x:.2f}' for x in os.getloadavg())} (other jobs share the cores)")
     if not args.keep:
         shutil.rmtree(root, ignore_errors=True)
 

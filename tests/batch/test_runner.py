@@ -155,3 +155,24 @@ def test_a_lost_worker_process_is_replaced_and_its_task_sent_again(serial_run, t
     assert (tmp_path / "died").exists()
     assert any("sent again" in m for m in logs)
     assert _files(lost) == _files(out)
+
+
+def test_in_process_each_task_is_stored_as_it_finishes(quick_demo, tmp_path, monkeypatch):
+    """With --workers 1 the tasks of one step (a structure's refits) run one by one, and each is in the
+    store before the next starts: Ctrl-C between two refits keeps the first."""
+    import leafcv.cv.plan as plan
+
+    real = plan.execute
+    out = tmp_path / "run"
+    seen: list[tuple[str, int]] = []
+
+    def watched(ctx, task, inputs):
+        stored = len(list((out / "tasks").glob("*.json")))
+        seen.append((task.kind, stored))
+        return real(ctx, task, inputs)
+
+    monkeypatch.setattr(plan, "execute", watched)
+    comp, dataset = _comparison(quick_demo, NAMES[:1])
+    _run(comp, dataset, out, workers=1)
+    assert [k for k, _ in seen].count("refit") >= 2
+    assert [n for _, n in seen] == list(range(len(seen)))      # task i starts with i tasks stored

@@ -25,7 +25,8 @@ def chains_at_once(cores: int, workers: int) -> int:
 
 
 class InProcess:
-    """Every task in the coordinator's own process, one at a time (``--workers 1``)."""
+    """Every task in the coordinator's own process, one at a time (``--workers 1``): a task sent waits in
+    a queue and runs when the coordinator waits for results, so each one is stored as it finishes."""
 
     name = "in-process"
     workers = 1
@@ -34,32 +35,34 @@ class InProcess:
         from .worker import limit_chain_pool
 
         self.ctx = ctx
-        ctx.chains_at_once = ctx.chains_at_once or None
+        self._queue: list = []
         limit_chain_pool(ctx.chains_at_once)
 
     def submit(self, task, inputs):
-        from ..cv.plan import execute
-
         fut: cf.Future = cf.Future()
-        try:
-            fut.set_result(execute(self.ctx, task, inputs))
-        except (KeyboardInterrupt, SystemExit):
-            raise
-        except Exception as exc:
-            import traceback
-
-            from .worker import TaskError
-
-            fut.set_exception(TaskError(f"{type(exc).__name__}: {exc}", traceback.format_exc()))
+        self._queue.append((fut, task, inputs))
         return fut
 
     def wait(self, futures, timeout):
+        """Run the first task sent that has not run; return it as done."""
+        from .worker import TaskError, _run
+
+        while self._queue:
+            fut, task, inputs = self._queue.pop(0)
+            if fut.cancelled():
+                continue
+            try:
+                fut.set_result(_run(self.ctx, task, inputs))
+            except TaskError as exc:
+                fut.set_exception(exc)
+            return {fut}
         return {f for f in futures if f.done()}
 
     def lost(self, exc: BaseException) -> bool:
         return False
 
     def close(self, kill: bool = False) -> None:
+        self._queue.clear()
         if kill:      # chains of an interrupted fit still running in httpstan's pool: end them, fresh pool
             kill_descendants()
             _fresh_chain_pool()
