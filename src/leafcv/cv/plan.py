@@ -36,7 +36,7 @@ from .psis import integrated_loo, refit_elpd
 
 #: Version of task payloads and outputs: part of every task key, so a change of what a task computes
 #: never reuses an output stored by an earlier leafcv.
-TASK_VERSION = 1
+TASK_VERSION = 2
 #: Leaves scored per ``score`` task: blocks bound a worker's memory (curve draws of a block's leaves)
 #: and let several workers score one fit at once. The scores do not depend on the block size.
 SCORE_BLOCK = 16
@@ -182,15 +182,19 @@ def execute(ctx: Context, task: Task, inputs: dict[str, TaskOutput]) -> TaskOutp
         t = time.perf_counter()
         fit = restore_fit(ctx, st, inputs[task.inputs[0]], p.get("options"), p.get("priors"))
         leaves = np.asarray(p["leaves"], int)
-        sc = score_leaves(fit, dataset, leaves, ctx.leaf_fits, in_fit=True)
-        est = integrated_loo(sc.log_m, sc.chains)
-        curves = [None if c is None else _curve_record(summarise_curves(c, est.log_weights[j]))
-                  for j, c in enumerate(sc.curves)]
-        preds = [np.exp(est.log_weights[j]) @ sc.pred_mean[j] for j in range(len(leaves))]
-        record = {"leaves": leaves, "elpd": est.elpd, "mcse": est.mcse, "khat": est.khat,
-                  "quad": [asdict(q) for q in sc.quad], "preds": preds, "curves": curves,
-                  "chains": sc.chains, "seconds": time.perf_counter() - t}
-        return TaskOutput(record, {"log_m": sc.log_m})
+        record = {"leaves": leaves, "elpd": [], "mcse": [], "khat": [], "quad": [], "preds": [], "curves": []}
+        log_m = []
+        for g in leaves:        # one leaf at a time: its curve draws are summarised and dropped before the next
+            sc = score_leaves(fit, dataset, np.array([g]), ctx.leaf_fits, in_fit=True)
+            est = integrated_loo(sc.log_m, sc.chains)        # per leaf: the same as over the whole block
+            for name, value in (("elpd", est.elpd[0]), ("mcse", est.mcse[0]), ("khat", est.khat[0]),
+                                ("quad", asdict(sc.quad[0])), ("preds", np.exp(est.log_weights[0]) @ sc.pred_mean[0]),
+                                ("curves", None if sc.curves[0] is None
+                                 else _curve_record(summarise_curves(sc.curves[0], est.log_weights[0])))):
+                record[name].append(value)
+            log_m.append(sc.log_m[:, 0])
+        record.update(chains=fit.draws.n_chains, seconds=time.perf_counter() - t)
+        return TaskOutput(record, {"log_m": np.stack(log_m, axis=1)})
     held = np.asarray(p["held"], int)
     train = np.ones(L, bool)
     train[held] = False
