@@ -416,6 +416,7 @@ def _run_locked(comparison, dataset, out, *, method, engine, log, spot_checks, s
                 ex = InProcess(ctx)
             else:
                 ex = LocalProcesses(ctx, n_workers)
+            bar.start = time.perf_counter()     # elapsed time and ETA count from here, not from the compile
             log(f"{len(todo)} structure(s) to cross-validate ({method}, by {comparison.cv.by}) on {ex.name}: "
                 f"{ex.workers} worker(s)"
                 + (f", {ctx.chains_at_once} chain(s) at once each ({cores} cores)" if ctx.chains_at_once else "")
