@@ -141,14 +141,27 @@ class PyStanEngine:
             })
         start = time.perf_counter()
         try:
-            outputs = outside_event_loop(asyncio.run, _run_chains(model.model_name, payloads, progress,
-                                                                  self.chains_at_once))
+            outputs = outside_event_loop(_run_coroutine, _run_chains(model.model_name, payloads, progress,
+                                                                       self.chains_at_once))
         except EngineError:
             raise
         except Exception as exc:
             raise EngineError(f"PyStan sampling failed: {exc}", repr(exc)) from exc
         seconds = time.perf_counter() - start
         return _to_draws(model, outputs, settings, seed, seconds)
+
+
+def _run_coroutine(coro):
+    """Run ``coro`` on a new event loop. Not ``asyncio.run``: its Ctrl-C handler only cancels the
+    coroutine, and a cancellation swallowed inside the HTTP client then loses the Ctrl-C altogether
+    (seen: a batch that went on to its end). Here Ctrl-C raises KeyboardInterrupt where it lands."""
+    loop = asyncio.new_event_loop()
+    try:
+        result = loop.run_until_complete(coro)
+        loop.run_until_complete(loop.shutdown_asyncgens())
+        return result
+    finally:                        # interrupted: the loop and its pending tasks are abandoned
+        loop.close()
 
 
 @contextlib.contextmanager
