@@ -68,9 +68,17 @@ def _program_hash() -> str:
     return hashlib.sha256(program_text().encode()).hexdigest()
 
 
+def _data_reading(comparison: Comparison) -> str:
+    """How the data file is read (columns, units, groups, traits, centring), without where it is: its
+    content is hashed apart, so a run folder and its data moved together keep every finished task."""
+    from dataclasses import replace
+
+    return repr(replace(comparison.data, file=Path(comparison.data.file).name))
+
+
 def structure_key(structure: Structure, comparison: Comparison, data_hash: str, settings: dict) -> str:
     """Hash of everything a structure's result depends on."""
-    payload = json.dumps({"structure": repr(structure), "data": repr(comparison.data), "data_hash": data_hash,
+    payload = json.dumps({"structure": repr(structure), "data": _data_reading(comparison), "data_hash": data_hash,
                           "settings": settings, "program": _program_hash(), "version": RESULT_VERSION},
                          sort_keys=True, default=str)
     return hashlib.sha256(payload.encode()).hexdigest()
@@ -284,7 +292,7 @@ def seed_plan(seed: int) -> dict:
 def task_base(comparison: Comparison, data_hash: str, sampler) -> str:
     """Hash of what every task of a run depends on besides its own payload: the data file and its
     reading, the sampler settings and the Stan program."""
-    payload = json.dumps({"data": repr(comparison.data), "data_hash": data_hash, "sampler": asdict(sampler),
+    payload = json.dumps({"data": _data_reading(comparison), "data_hash": data_hash, "sampler": asdict(sampler),
                           "program": _program_hash()}, sort_keys=True, default=str)
     return hashlib.sha256(payload.encode()).hexdigest()
 

@@ -176,3 +176,21 @@ def test_in_process_each_task_is_stored_as_it_finishes(quick_demo, tmp_path, mon
     _run(comp, dataset, out, workers=1)
     assert [k for k, _ in seen].count("refit") >= 2
     assert [n for _, n in seen] == list(range(len(seen)))      # task i starts with i tasks stored
+
+
+def test_a_run_folder_moved_with_its_data_keeps_every_finished_task(serial_run, tmp_path):
+    """Task keys hash the data's content and how it is read, not where the file is."""
+    import shutil
+
+    comp, dataset, out = serial_run
+    data = tmp_path / "moved" / Path(comp.data.file).name
+    data.parent.mkdir()
+    shutil.copy(comp.data.file, data)
+    moved = replace(comp, data=replace(comp.data, file=data))
+    copy = tmp_path / "moved" / "run"
+    shutil.copytree(out, copy)
+    shutil.rmtree(copy / "results")
+    engine = FakeEngine()
+    _run(moved, dataset, copy, engine=engine, workers=1)
+    assert engine.calls == []
+    assert _files(copy) == _files(out)
