@@ -40,10 +40,16 @@ def tiny(tmp_path_factory) -> Path:
     return path
 
 
+def _default_sigint() -> None:
+    # a test run started in the background of a non-interactive shell inherits SIGINT ignored, and so
+    # would the run under test: give it the default disposition, as a terminal's foreground job has
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
+
+
 def _compare(path: Path, out: Path, *extra: str, **popen) -> subprocess.Popen:
     return subprocess.Popen([sys.executable, "-m", "leafcv.cli", "compare", str(path), "--out", str(out),
                              "--progress", "plain", *extra], stdout=subprocess.PIPE, stderr=subprocess.STDOUT,
-                            text=True, **popen)
+                            text=True, preexec_fn=_default_sigint, **popen)
 
 
 def _finish(proc: subprocess.Popen) -> str:
