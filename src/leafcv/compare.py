@@ -25,7 +25,6 @@ import json
 import os
 import platform
 import sys
-import tempfile
 import time
 from dataclasses import asdict
 from pathlib import Path
@@ -39,7 +38,7 @@ from .diagnostics import grade_definitions
 from .errors import EngineError
 from .data.dataset import Dataset
 from .inits import fit_leaves
-from .atomic import umask as _umask, write_atomic
+from .atomic import replacing, write_atomic
 from .manifest import file_hash, json_float
 from .ranking import format_ranking, rank, summary_notes
 from .spec import Comparison, Structure
@@ -241,17 +240,9 @@ def write_fit(path: Path, fit, dataset: Dataset, log_m: np.ndarray | None) -> No
     """Write a structure's full-data fit as ArviZ InferenceData (NetCDF, h5netcdf engine) atomically."""
     from .cv.arviz_bridge import to_inference_data
 
-    path.parent.mkdir(parents=True, exist_ok=True)
     idata = to_inference_data(fit, dataset, log_m)
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix="." + path.name, suffix=".tmp")
-    os.close(fd)
-    try:
+    with replacing(path) as tmp:
         idata.to_netcdf(tmp, engine="h5netcdf")
-        os.chmod(tmp, 0o666 & ~_umask())
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
 
 
 def rewrite_report(run_dir: Path) -> str:
