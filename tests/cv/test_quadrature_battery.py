@@ -104,8 +104,10 @@ def test_the_two_cluster_leaf_really_has_two_modes():
     assert len(peaks) == 2 and np.min(v[peaks + 1]) > v.max() - 5, np.exp(b[peaks + 1])
 
 
+@pytest.mark.filterwarnings("ignore::scipy.integrate.IntegrationWarning")
 def test_fvcb_reference_agrees_with_scipy_quad():
-    """The battery's Gauss-Legendre reference against scipy.integrate.quad with breakpoints."""
+    """The battery's Gauss-Legendre reference against scipy.integrate.quad with breakpoints (quad warns
+    that it cannot reach a relative 1e-10 near rounding; the check is the agreement to 1e-8)."""
     for k in (-2.0, 1.35, 2.5):
         case = B.fvcb_leaf(np.log(55.0) + 0.25 * k, seed=1)
         for s in (0, 5):

@@ -209,7 +209,7 @@ ROUNDING = 1e-5
 #: by 10x; with this floor 0.3 %, none by more than 1.4x.
 KINK_FLOOR = 0.003
 #: Draws brute-forced by the leaf-level screen, by dimension.
-SCREEN_DRAWS = {1: 8, 2: 6, 3: 4}
+SCREEN_DRAWS = {1: 8, 2: 4, 3: 3}
 #: Cells per round of brute force between checks of the remaining budget.
 BRUTE_CHUNK = 32
 #: A leaf is scored only when its quadrature bound (share-weighted rule gaps) is at most this (nats).
@@ -220,7 +220,7 @@ BRUTE_BUDGET = 0.1
 #: far the box reaches beyond the mode and the population mean (population SDs: the prior alone is 98
 #: nats down at 14), how often that reach may be doubled when the integrand is not negligible at the
 #: box's faces, and how many nodes one block of draws may evaluate at once.
-BRUTE_NODES = {1: 801, 2: 161, 3: 45}
+BRUTE_NODES = {1: 401, 2: 81, 3: 33}
 PRIOR_REACH = 14.0
 BRUTE_WIDENINGS = 2
 BRUTE_POINTS = 200_000
@@ -325,37 +325,45 @@ def _brute_force(loglik_rows, rows: np.ndarray, mean, sd, centre, chol, tol: flo
     of inf where the box never became wide enough."""
     d = centre.shape[1]
     out_v, out_g = np.full(len(rows), -np.inf), np.full(len(rows), np.inf)
-    n0 = BRUTE_NODES[d]
-    per = max(1, BRUTE_POINTS // n0**d)
-    for i in range(0, len(rows), per):
-        r = rows[i:i + per]
+    prior = np.sqrt(prior_var(sd[rows]))
+    lap = np.sqrt(np.sum(chol[rows] ** 2, axis=2))
+    scale = np.clip(np.nan_to_num(lap, nan=1.0), 1e-4 * prior, prior)
+    reach = np.full(len(rows), PRIOR_REACH)
+    nodes = np.full(len(rows), BRUTE_NODES[d])
+    widen = refine = 0
+    pending = np.arange(len(rows))          # positions in ``rows`` still to (re)compute
+    while pending.size:
+        # rows needing the same grid size go together, in blocks of at most BRUTE_POINTS nodes
+        for n in np.unique(nodes[pending]):
+            group = pending[nodes[pending] == n]
+            per = max(1, BRUTE_POINTS // int(n) ** d)
+            for i in range(0, len(group), per):
+                j = group[i:i + per]
+                r = rows[j]
 
-        def h_fn(b, r=r):
-            return log_integrand(loglik_rows(r), b, mean[r], sd[r])
+                def h_fn(b, r=r):
+                    return log_integrand(loglik_rows(r), b, mean[r], sd[r])
 
-        prior = np.sqrt(prior_var(sd[r]))
-        lap = np.sqrt(np.sum(chol[r] ** 2, axis=2))
-        scale = np.clip(np.nan_to_num(lap, nan=prior), 1e-4 * prior, prior)
-        c = centre[r]
-        reach = PRIOR_REACH
-        for _ in range(BRUTE_WIDENINGS + 1):
-            lo = np.minimum(c, mean[r]) - reach * prior
-            hi = np.maximum(c, mean[r]) + reach * prior
-            x, lw = _sinh_axes(c, scale, lo, hi, n0)
-            val, chk, drop = _tensor_log_m(h_fn, x, lw)
-            if np.all(drop < -EDGE_DROP):
-                break
-            reach *= 2
-        n = n0
-        for _ in range(BRUTE_REFINEMENTS):      # more nodes while the nested rules disagree
-            if np.all(np.abs(val - chk) <= tol):
-                break
-            n = 2 * n - 1
-            x, lw = _sinh_axes(c, scale, lo, hi, n)
-            val, chk, drop = _tensor_log_m(h_fn, x, lw)
-        g = np.abs(val - chk)
-        g = np.where(np.isfinite(g) & (drop < -EDGE_DROP), g, np.inf)
-        out_v[i:i + per], out_g[i:i + per] = val, g
+                lo = np.minimum(centre[r], mean[r]) - reach[j, None] * prior[j]
+                hi = np.maximum(centre[r], mean[r]) + reach[j, None] * prior[j]
+                x, lw = _sinh_axes(centre[r], scale[j], lo, hi, int(n))
+                val, chk, drop = _tensor_log_m(h_fn, x, lw)
+                g = np.abs(val - chk)
+                out_v[j] = val
+                out_g[j] = np.where(np.isfinite(g) & (drop < -EDGE_DROP), g, np.inf)
+                out_g[j[~(drop < -EDGE_DROP)]] = -1.0          # marks: box too small
+        narrow = pending[out_g[pending] == -1.0]
+        coarse = pending[(out_g[pending] > tol) & np.isfinite(out_g[pending])]
+        pending = np.zeros(0, int)
+        if narrow.size and widen < BRUTE_WIDENINGS:        # the box did not reach a negligible integrand
+            reach[narrow] *= 2
+            widen += 1
+            pending = narrow
+        if coarse.size and refine < BRUTE_REFINEMENTS:     # the nested rules disagree: halve the spacing
+            nodes[coarse] = 2 * nodes[coarse] - 1
+            refine += 1
+            pending = np.union1d(pending, coarse)
+    out_g[out_g == -1.0] = np.inf
     return out_v, out_g
 
 
