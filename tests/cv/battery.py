@@ -112,12 +112,14 @@ def leaf_error(lm: np.ndarray, truth: np.ndarray, weighting: str) -> float:
     return abs(float(logsumexp(lm) - logsumexp(truth)))
 
 
-def flat_leaf(k_sd: float, *, seed: int = 0, n_draws: int = 24) -> Case:
-    """A leaf k_sd population SDs above the mean log Vcmax25 whose points are all electron-transport
-    limited (A-Ci points at Ci >= 500 only, Jmax25 60): its likelihood is flat in Vcmax25 above the
-    kink, so the integrand has a one-sided shoulder that only the prior brings down."""
-    return fvcb_leaf(np.log(55.0) + 0.25 * k_sd, seed=seed, n_draws=n_draws, jmax25=60.0,
-                     ci=(500, 700, 900, 1100, 1300, 1500), name=f"flat above the kink ({k_sd:+.1f} SD)")
+def flat_leaf(k_sd: float, jmax25: float = 99.0, *, seed: int = 0, n_draws: int = 24) -> Case:
+    """A leaf k_sd population SDs above the mean log Vcmax25 whose A-Ci points (Ci >= 250) are all
+    electron-transport limited: its likelihood is flat in Vcmax25 above the kink and falls off a cliff
+    below it, so the mode sits at the cliff's edge (a tiny Laplace scale) and the integrand has a
+    one-sided shoulder that only the prior brings down."""
+    return fvcb_leaf(np.log(55.0) + 0.25 * k_sd, seed=seed, n_draws=n_draws, jmax25=jmax25,
+                     ci=(250, 350, 500, 700, 900, 1100, 1300, 1500),
+                     name=f"flat above the kink ({k_sd:+.1f} SD, Jmax25 {jmax25:g})")
 
 
 def sharp_leaf(*, seed: int = 0, n_draws: int = 16) -> Case:
