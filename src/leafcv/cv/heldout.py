@@ -8,8 +8,10 @@ an intercept on some parameter, or a slope), so the level is scored jointly, per
 
 the inner integrals by `leafcv.cv.quadrature.leaf_log_marginal` (every cell checked), the outer one by
 Gauss-Hermite placed at the mode of its log integrand F(U) = sum_g log m_g(U) + log N(U | 0, tau^2),
-scaled by its curvature (two Newton steps from a central-difference stencil, per draw), checked by a
-second rule and escalated like the inner rules. The sum of per-leaf integrals with U integrated for
+scaled by its curvature (Newton steps from U = 0 with a central-difference stencil, each capped at 3
+tau, until they settle: a level far in the tails is reached), checked by two shifted rules and escalated
+like the inner rules. The inner rules' bounds enter weighed by each outer node's share of the outer sum,
+so an inner integral unsettled at a node far in the tails does not spoil the level. The sum of per-leaf integrals with U integrated for
 each leaf apart is not this density (CROSS-VALIDATION.md, "Held-out levels").
 """
 from __future__ import annotations
@@ -21,15 +23,19 @@ import numpy as np
 from scipy.special import logsumexp
 
 from .leafmodel import LeafModel
-from .quadrature import (GH_LEVELS, LEAF_TOL, TOL, _LOG_2PI, _level_rules, draw_shares, grad_hess,
-                         leaf_log_marginal)
+from .quadrature import (CHECK_SHIFT, GH_LEVELS, LEAF_TOL, TOL, _LOG_2PI, _level_rules, draw_shares,
+                         grad_hess, leaf_log_marginal)
+
+#: Outer mode search: at most this many Newton steps, stopped once a step is below this many SDs.
+OUTER_ITERATIONS = 12
+OUTER_STEP_TOL = 0.01
 
 
 @dataclass(frozen=True)
 class LevelInfo:
     n_cells: int
     n_inner_calls: int
-    inner_bound: float        # largest inner bound, summed over the level's leaves (nats)
+    inner_bound: float        # inner bounds summed over the level's leaves, weighed by outer node and draw (nats)
     outer_bound: float        # share-weighted outer rule gaps (nats)
     n_unresolved: int         # draws whose outer rules never agreed, or with unresolved inner cells
     n_escalated: int
@@ -55,14 +61,12 @@ def _shifted(model: LeafModel, keys: list[tuple[int, int]], U: np.ndarray, rows:
 
 
 class _Level:
-    """Sum over the level's leaves of log m_g(U), for per-draw U, with bookkeeping of the inner rules."""
+    """Sum over the level's leaves of log m_g(U), for per-draw U, with the inner rules' bounds."""
 
     def __init__(self, models: list[LeafModel], keys, starts: list[list[np.ndarray]], tol: float):
         self.models, self.keys, self.starts, self.tol = models, keys, starts, tol
-        self.calls, self.unresolved = 0, None
-        S = len(models[0].mu)
-        self.inner_bound = np.zeros(S)
-        self.inner_bad = np.zeros(S, bool)
+        self.calls = 0
+        self.last_bound = np.zeros(0)       # per row of the last call: summed inner bounds (inf: unsettled)
 
     def __call__(self, U: np.ndarray, rows: np.ndarray) -> np.ndarray:
         total = np.zeros(len(rows))
@@ -77,10 +81,8 @@ class _Level:
             st = [s[rows] for s in starts] + [mean]
             lm, info = leaf_log_marginal(m.loglik_rows, mean, sd, st, tol=self.tol, weighting="mean")
             total += lm
-            bound += info.bound if np.isfinite(info.bound) else np.inf
-            if info.bound > LEAF_TOL:
-                self.inner_bad[rows] = True
-        self.inner_bound[rows] = np.maximum(self.inner_bound[rows], bound)
+            bound += info.bound if np.isfinite(info.bound) and info.bound <= LEAF_TOL else np.inf
+        self.last_bound = bound
         return total
 
 
@@ -89,8 +91,9 @@ def _log_prior(U: np.ndarray, tau: np.ndarray) -> np.ndarray:
 
 
 def _newton(F, tau: np.ndarray, rows: np.ndarray, centre: np.ndarray, step: np.ndarray):
-    """One Newton step of F + log prior from ``centre`` with a central-difference stencil of ``step``;
-    returns (new centre, Cholesky factor of the inverse negative Hessian, ok)."""
+    """One Newton step of F + log prior from ``centre`` with a central-difference stencil of ``step``,
+    capped at 3 tau; returns (value at centre, new centre, Cholesky factor of the inverse negative
+    Hessian, ok)."""
     n, k = centre.shape
 
     def h_fn(points):                                     # (n, n_stencil, k) -> (n, n_stencil)
@@ -108,7 +111,43 @@ def _newton(F, tau: np.ndarray, rows: np.ndarray, centre: np.ndarray, step: np.n
         limit = 3 * tau[rows][ok]
         new[ok] = centre[ok] + np.clip(delta, -limit, limit)
         chol[ok] = np.linalg.cholesky(np.linalg.inv(neg[ok]))
-    return new, chol, ok
+    return f0, new, chol, ok
+
+
+def _outer_mode(F, tau: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Mode and curvature of the outer log integrand per draw: Newton steps (each capped at 3 tau) from
+    U = 0 until the step is below OUTER_STEP_TOL posterior SDs, at most OUTER_ITERATIONS; a step that
+    lowers the log integrand is halved back. A level far in the tails (8 tau out) is reached in a few
+    steps. Returns (centre (S, k), Cholesky factor (S, k, k), ok (S,))."""
+    S, k = tau.shape
+    centre = np.zeros((S, k))
+    chol = np.einsum("ij,sj->sij", np.eye(k), tau)
+    ok = np.zeros(S, bool)
+    value = np.full(S, -np.inf)
+    previous = centre.copy()
+    step = 0.5 * tau
+    active = np.arange(S)
+    for _ in range(OUTER_ITERATIONS):
+        if not active.size:
+            break
+        f0, new, c, k_ok = _newton(F, tau, active, centre[active], step[active])
+        worse = np.isfinite(value[active]) & (f0 < value[active] - 1e-9)
+        # a step that made things worse: go back halfway and search again from there
+        back = active[worse]
+        centre[back] = 0.5 * (centre[back] + previous[back])
+        keep = active[~worse]
+        kk = ~worse
+        value[keep] = f0[kk]
+        chol[keep] = np.where(k_ok[kk][:, None, None], c[kk], chol[keep])
+        ok[keep] = k_ok[kk]
+        previous[keep] = centre[keep]
+        sd = np.sqrt(np.sum(chol[keep] ** 2, axis=2))
+        moved = np.max(np.abs(new[kk] - centre[keep]) / sd, axis=1)
+        centre[keep] = new[kk]
+        step[keep] = np.maximum(sd, 1e-3 * tau[keep])
+        still = keep[(moved > OUTER_STEP_TOL) & k_ok[kk]]
+        active = np.union1d(still, back)
+    return centre, chol, ok
 
 
 def level_log_marginal(models: list[LeafModel], tau: np.ndarray, keys: list[tuple[int, int]],
@@ -129,39 +168,47 @@ def level_log_marginal(models: list[LeafModel], tau: np.ndarray, keys: list[tupl
     S, k = tau.shape
     rows = np.arange(S)
     F = _Level(models, keys, starts, tol)
-    centre = np.zeros((S, k))
-    centre, chol, ok = _newton(F, tau, rows, centre, 0.5 * tau)
-    sd = np.sqrt(np.sum(chol**2, axis=2))
-    centre, chol2, ok2 = _newton(F, tau, rows, centre, np.maximum(sd, 1e-3 * tau))
-    chol = np.where(ok2[:, None, None], chol2, chol)
-    ok = ok | ok2
-    lm, gap = np.full(S, -np.inf), np.full(S, np.inf)
+    centre, chol, ok = _outer_mode(F, tau)
+    lm, gap, inner = np.full(S, -np.inf), np.full(S, np.inf), np.full(S, np.inf)
     todo = rows
     escalated = np.zeros(S, bool)
+    shift = np.full(k, CHECK_SHIFT / np.sqrt(k))
     for level in range(len(GH_LEVELS)):
         if not todo.size:
             break
         val_rule, chk_rule, scale = _level_rules(level, k)
+        c = chol[todo] * scale
         results = []
-        for z, lw in (val_rule, chk_rule):
+        for (z, lw), offset in ((val_rule, 0.0), (chk_rule, 1.0), (chk_rule, -1.0)):
             log_phi = -0.5 * np.sum(z**2, axis=1) - 0.5 * k * _LOG_2PI
-            c = chol[todo] * scale
-            terms = []
+            terms, bounds = [], []
             for q in range(len(z)):
-                U = centre[todo] + c @ z[q]
+                U = centre[todo] + c @ (z[q] + offset * shift)
                 terms.append(lw[q] + F(U, todo) + _log_prior(U, tau[todo]) - log_phi[q])
+                bounds.append(F.last_bound)
+            terms = np.stack(terms, axis=1)
             logdet = np.sum(np.log(np.abs(np.diagonal(c, axis1=1, axis2=2))), axis=1)
-            results.append(logdet + logsumexp(np.stack(terms, axis=1), axis=1))
-        v, chk = results
-        g = np.abs(v - chk)
+            results.append(logdet + logsumexp(terms, axis=1))
+            if offset == 0.0:
+                # the inner rules' error, weighed by each outer node's share of the outer sum: an inner
+                # integral unsettled at a node far in the tails (share ~ 0) does not spoil the level
+                with np.errstate(invalid="ignore", over="ignore"):
+                    node_share = np.exp(terms - logsumexp(terms, axis=1, keepdims=True))
+                    b = np.stack(bounds, axis=1)
+                    inner_now = np.sum(np.where(node_share > 1e-12, node_share * b, 0.0), axis=1)
+        v = results[0]
+        g = np.maximum(np.abs(v - results[1]), np.abs(v - results[2]))
         g = np.where(np.isfinite(g), g, np.inf)
-        lm[todo], gap[todo] = v, g
+        lm[todo], gap[todo], inner[todo] = v, g, inner_now
         todo = todo[(g > tol) | ~np.isfinite(v)]
         escalated[todo] = True
     bad = np.zeros(S, bool)
     bad[todo] = True
     share = draw_shares(lm, "mean")          # the level's score is log mean_s p_s (a refit)
-    outer = float(np.sum(share * gap)) if np.all(np.isfinite(gap[share > 0])) else float("inf")
-    inner = float(np.max(F.inner_bound)) if not F.inner_bad.any() else float("inf")
-    info = LevelInfo(S, F.calls, inner, outer, int((bad | F.inner_bad).sum()), int(escalated.sum()))
+    with np.errstate(invalid="ignore"):
+        outer = float(np.sum(np.where(share > 0, share * gap, 0.0))) if np.all(np.isfinite(gap[share > 0])) \
+            else float("inf")
+        inner_bound = float(np.sum(np.where(share > 0, share * inner, 0.0))) \
+            if np.all(np.isfinite(inner[share > 0])) else float("inf")
+    info = LevelInfo(S, F.calls, inner_bound, outer, int((bad | ~np.isfinite(inner)).sum()), int(escalated.sum()))
     return lm, info

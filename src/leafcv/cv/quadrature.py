@@ -11,12 +11,18 @@ probabilists' Hermite nodes z_q and weights w_q normalised to sum to 1, and b = 
 (CROSS-VALIDATION.md, "Computing m_g"). Beyond MAX_TENSOR_DIM dimensions a scrambled Sobol rule
 mapped to the normal takes the place of the tensor grid (Owen 2003, from memory).
 
-Every cell is checked by a second rule. Where the two disagree by more than ``tol`` nats, or the mode
-search failed, the cell is re-placed from further starts (multi-start across the kink of the hard
-minimum), then escalated to finer rules on wider grids (GH_LEVELS), then to a brute-force tensor
-trapezoid on a box widened until the integrand is negligible at its edge, checked against the same
-rule on every other node. No cell is ever recomputed on a grid that is not placed from its own
-conditional posterior. Cells whose rules never agree are counted, never hidden.
+Every cell is checked by two rules placed CHECK_SHIFT Laplace SDs either side of the mode (rules
+centred alike meet a kink of the hard minimum alike, and can agree on a wrong value). Where the value
+rule and a check disagree by more than ``tol`` nats, or the mode search failed, the cell is re-placed
+from further starts (multi-start across the kink), then escalated to finer rules on wider grids
+(GH_LEVELS), then to brute force: a tensor trapezoid on sinh-stretched axes, fine at the mode and
+reaching PRIOR_REACH population SDs beyond the mode and the population mean on every side, checked by
+the same rule on every other node. A leaf-level screen brute-forces a few draws the rules settled; if
+the rules missed mass there (a second mode, a shoulder beyond their grid) every cell of the leaf is
+suspect and goes to brute force. No cell is ever recomputed on a grid that is not placed from its own
+conditional posterior. Cells whose rules never agree are counted, never hidden, and every cell's gap
+enters the leaf's stated bound. tests/cv/test_quadrature_battery.py holds the bound to the true error
+on known answers.
 """
 from __future__ import annotations
 
@@ -190,15 +196,34 @@ GH_LEVELS = ((7, 5, 1.0), (15, 11, 1.5), (31, 21, 2.5))
 GH_LEVELS_3D = ((7, 5, 1.0), (11, 9, 1.5), (21, 15, 2.5))
 #: The same for d > MAX_TENSOR_DIM: points of two scrambled Sobol rules with different seeds.
 QMC_LEVELS = ((1024, 256, 1.0), (4096, 1024, 1.5), (16384, 4096, 2.5))
+#: The two check rules of every level sit this many Laplace SDs either side of the mode (along the
+#: diagonal), so that they meet a kink of the hard minimum at other nodes than the value rule does:
+#: rules centred alike can be wrong alike, and the cell's gap is the larger of the two. For a Gaussian integrand the shifted rule stays exact to rounding (the
+#: ratio to the normal weight is exp(linear), an entire function).
+CHECK_SHIFT = 0.5
+#: Rounding level of a cell's rule gap (nats): below it the integrand is taken as Gaussian-smooth.
+ROUNDING = 1e-5
+#: Added to the gap of a Gauss-Hermite cell whose rules differ beyond ROUNDING (nats). Calibrated on
+#: the known-answer battery (tests/cv/test_quadrature_battery.py: FvCB leaves swept across the kink of
+#: the hard minimum), where the rules' gap alone left 2.5 % of such cells below their true error, some
+#: by 10x; with this floor 0.3 %, none by more than 1.4x.
+KINK_FLOOR = 0.003
+#: Draws brute-forced by the leaf-level screen, by dimension.
+SCREEN_DRAWS = {1: 8, 2: 4, 3: 3}
+#: Cells per round of brute force between checks of the remaining budget.
+BRUTE_CHUNK = 32
 #: A leaf is scored only when its quadrature bound (share-weighted rule gaps) is at most this (nats).
 LEAF_TOL = 0.05
 #: Brute force stops once the cells left unsettled can move the leaf's elpd by at most this x LEAF_TOL.
 BRUTE_BUDGET = 0.1
-#: Brute-force tensor trapezoid (d <= MAX_TENSOR_DIM): nodes per dimension, box half-width in Laplace
-#: SDs, and how often the box may be doubled when the integrand is not negligible at its edge.
-BRUTE_NODES = {1: 801, 2: 161, 3: 45}
-BRUTE_HALF_WIDTH = 10.0
-BRUTE_WIDENINGS = 4
+#: Brute-force tensor trapezoid (d <= MAX_TENSOR_DIM) on sinh-mapped axes: nodes per dimension, how
+#: far the box reaches beyond the mode and the population mean (population SDs: the prior alone is 98
+#: nats down at 14), how often that reach may be doubled when the integrand is not negligible at the
+#: box's faces, and how many nodes one block of draws may evaluate at once.
+BRUTE_NODES = {1: 401, 2: 81, 3: 33}
+PRIOR_REACH = 14.0
+BRUTE_WIDENINGS = 2
+BRUTE_POINTS = 200_000
 #: ... and how often its spacing may be halved while the trapezoid and its nested check disagree.
 BRUTE_REFINEMENTS = 2
 #: The integrand at the edge of the brute-force box must be this many nats below its maximum.
@@ -215,6 +240,7 @@ class QuadratureInfo:
     """
 
     n_cells: int
+    suspect: bool = False      # the leaf-level screen found mass that the Gauss-Hermite rules missed
     n_escalated: int = 0       # cells that needed a finer, wider rule than level 0
     n_brute: int = 0           # cells settled by the brute-force trapezoid
     n_unresolved: int = 0      # cells whose rules never agreed within the tolerance
@@ -247,57 +273,98 @@ def _rule_log_m(loglik_rows, rows, mean, sd, centre, chol, rule_zw) -> np.ndarra
     return out
 
 
-def _trapezoid_log_m(h_fn, centre: np.ndarray, half: np.ndarray, n: int) -> tuple[float, float, bool]:
-    """Tensor trapezoid of exp(h) over the box centre +- half with n nodes per dimension (n odd), and
-    the same rule on every other node (the nested check). Returns (log m, log m of the check rule,
-    whether h at the box's edge is at least EDGE_DROP nats below its maximum)."""
-    d = len(centre)
-    axes = [np.linspace(c - w, c + w, n) for c, w in zip(centre, half)]
-    grid = np.stack(np.meshgrid(*axes, indexing="ij"), -1).reshape(1, -1, d)
-    h = h_fn(grid)[0].reshape((n,) * d)
-    peak = np.max(h)
-    if not np.isfinite(peak):
-        return -np.inf, -np.inf, False
-    edge = max(np.max(np.take(h, [0, -1], axis=k)) for k in range(d))
-    out = []
-    for step in (1, 2):
-        sub = h[tuple(slice(None, None, step) for _ in range(d))]
-        m = sub.shape[0]
-        logw = np.zeros((m,) * d)
-        for k in range(d):
-            w1 = np.full(m, np.log(2 * half[k] / (m - 1)))
-            w1[[0, -1]] -= np.log(2)
-            logw = logw + w1.reshape([-1 if j == k else 1 for j in range(d)])
-        out.append(float(logsumexp(sub + logw)))
-    return out[0], out[1], bool(edge < peak - EDGE_DROP)
+def _sinh_axes(centre: np.ndarray, scale: np.ndarray, lo: np.ndarray, hi: np.ndarray, n: int
+               ) -> tuple[np.ndarray, np.ndarray]:
+    """Per draw and dimension, n nodes x = c + a sinh(t) with t uniform on [-asinh((c - lo)/a),
+    asinh((hi - c)/a)], and the log trapezoid weights of int f(x) dx = int f(c + a sinh t) a cosh t dt.
+
+    The map puts nodes a fraction of ``scale`` apart near the mode and stretches them geometrically
+    towards the box's edges, so one grid resolves a sharp peak and reaches a distant edge (the
+    sinh-type substitutions of Mori & Sugihara 2001, from memory). centre, scale, lo, hi: (B, d);
+    returns x (B, d, n) and log w (B, d, n).
+    """
+    t_lo = -np.arcsinh((centre - lo) / scale)
+    t_hi = np.arcsinh((hi - centre) / scale)
+    u = np.linspace(0.0, 1.0, n)
+    t = t_lo[..., None] + (t_hi - t_lo)[..., None] * u
+    dt = (t_hi - t_lo)[..., None] / (n - 1)
+    x = centre[..., None] + scale[..., None] * np.sinh(t)
+    logw = np.log(dt) + np.log(scale[..., None] * np.cosh(t))
+    logw[..., [0, -1]] -= np.log(2)
+    return x, logw
 
 
-def _brute_force(loglik_rows, s: int, mean, sd, centre, chol, tol: float) -> tuple[float, float]:
-    """Brute-force log m of draw s: a tensor trapezoid on a box around the mode, widened until the
-    integrand is negligible at its edge; returns (value, |value - nested check|), or a gap of inf."""
+def _tensor_log_m(h_fn, x: np.ndarray, logw: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Tensor trapezoid of exp(h) on per-draw axes x (B, d, n) with log weights (B, d, n), and the same
+    rule on every other node (its nested check: spacing doubled, weights doubled, ends halved).
+    Returns (log m (B,), log m of the check (B,), the largest h on the box's faces minus its peak (B,))."""
+    B, d, n = x.shape
+    grids = np.meshgrid(*[np.arange(n)] * d, indexing="ij")
+    idx = np.stack([g.ravel() for g in grids], axis=-1)                 # (n^d, d)
+    pts = np.stack([x[:, j, idx[:, j]] for j in range(d)], axis=-1)     # (B, n^d, d)
+    h = h_fn(pts)                                                       # (B, n^d)
+    lw = sum(logw[:, j, idx[:, j]] for j in range(d))
+    val = logsumexp(h + lw, axis=1)
+    half = np.all(idx % 2 == 0, axis=1)
+    lw2 = logw[..., ::2] + np.log(2.0)
+    lw2[..., [0, -1]] -= np.log(2)
+    sub = idx[half] // 2
+    chk = logsumexp(h[:, half] + sum(lw2[:, j, sub[:, j]] for j in range(d)), axis=1)
+    face = np.any((idx == 0) | (idx == n - 1), axis=1)
+    with np.errstate(invalid="ignore"):
+        drop = np.max(h[:, face], axis=1) - np.max(h, axis=1)
+    return val, chk, drop
+
+
+def _brute_force(loglik_rows, rows: np.ndarray, mean, sd, centre, chol, tol: float
+                 ) -> tuple[np.ndarray, np.ndarray]:
+    """Brute-force log m of draws ``rows``: a tensor trapezoid on sinh-mapped axes (`_sinh_axes`), fine
+    near the mode and reaching PRIOR_REACH population SDs beyond both the mode and the population mean
+    on every side, widened while the integrand at the box's faces is not EDGE_DROP nats below its peak
+    and refined while the nested check disagrees. Returns (values, |value - nested check|), with a gap
+    of inf where the box never became wide enough."""
     d = centre.shape[1]
-    rows = np.array([s])
+    out_v, out_g = np.full(len(rows), -np.inf), np.full(len(rows), np.inf)
+    prior = np.sqrt(prior_var(sd[rows]))
+    lap = np.sqrt(np.sum(chol[rows] ** 2, axis=2))
+    scale = np.clip(np.nan_to_num(lap, nan=1.0), 1e-4 * prior, prior)
+    reach = np.full(len(rows), PRIOR_REACH)
+    nodes = np.full(len(rows), BRUTE_NODES[d])
+    widen = refine = 0
+    pending = np.arange(len(rows))          # positions in ``rows`` still to (re)compute
+    while pending.size:
+        # rows needing the same grid size go together, in blocks of at most BRUTE_POINTS nodes
+        for n in np.unique(nodes[pending]):
+            group = pending[nodes[pending] == n]
+            per = max(1, BRUTE_POINTS // int(n) ** d)
+            for i in range(0, len(group), per):
+                j = group[i:i + per]
+                r = rows[j]
 
-    def h_fn(b):
-        return log_integrand(loglik_rows(rows), b, mean[rows], sd[rows])
+                def h_fn(b, r=r):
+                    return log_integrand(loglik_rows(r), b, mean[r], sd[r])
 
-    scale = np.sqrt(np.sum(chol[s] ** 2, axis=1))
-    prior = np.sqrt(prior_var(sd[rows]))[0]
-    half = BRUTE_HALF_WIDTH * np.clip(scale, 1e-3 * prior, 2.0 * prior)
-    n = BRUTE_NODES[d]
-    for _ in range(BRUTE_WIDENINGS + 1):
-        val, chk, inside = _trapezoid_log_m(h_fn, centre[s], half, n)
-        if inside:
-            break
-        half = 2 * half
-    else:
-        return val, float("inf")
-    for _ in range(BRUTE_REFINEMENTS):       # halve the spacing while the nested rules disagree
-        if abs(val - chk) <= tol:
-            break
-        n = 2 * n - 1
-        val, chk, _ = _trapezoid_log_m(h_fn, centre[s], half, n)
-    return val, abs(val - chk)
+                lo = np.minimum(centre[r], mean[r]) - reach[j, None] * prior[j]
+                hi = np.maximum(centre[r], mean[r]) + reach[j, None] * prior[j]
+                x, lw = _sinh_axes(centre[r], scale[j], lo, hi, int(n))
+                val, chk, drop = _tensor_log_m(h_fn, x, lw)
+                g = np.abs(val - chk)
+                out_v[j] = val
+                out_g[j] = np.where(np.isfinite(g) & (drop < -EDGE_DROP), g, np.inf)
+                out_g[j[~(drop < -EDGE_DROP)]] = -1.0          # marks: box too small
+        narrow = pending[out_g[pending] == -1.0]
+        coarse = pending[(out_g[pending] > tol) & np.isfinite(out_g[pending])]
+        pending = np.zeros(0, int)
+        if narrow.size and widen < BRUTE_WIDENINGS:        # the box did not reach a negligible integrand
+            reach[narrow] *= 2
+            widen += 1
+            pending = narrow
+        if coarse.size and refine < BRUTE_REFINEMENTS:     # the nested rules disagree: halve the spacing
+            nodes[coarse] = 2 * nodes[coarse] - 1
+            refine += 1
+            pending = np.union1d(pending, coarse)
+    out_g[out_g == -1.0] = np.inf
+    return out_v, out_g
 
 
 def _modes(loglik_rows, mean, sd, starts: list[np.ndarray], rows: np.ndarray,
@@ -333,7 +400,45 @@ def draw_shares(log_m: np.ndarray, weighting: str) -> np.ndarray:
     return w / w.sum()
 
 
-def leaf_log_marginal(
+def _screen_rows(lm: np.ndarray, gap: np.ndarray, todo: np.ndarray, weighting: str, n: int) -> np.ndarray:
+    """Draws for the leaf-level screen: settled draws (not in ``todo``), half of them those with the
+    largest share in the leaf's score, the rest spread over the quantiles of log m."""
+    settled = np.setdiff1d(np.arange(len(lm)), todo)
+    settled = settled[np.isfinite(lm[settled])]
+    if settled.size <= n:
+        return settled
+    share = draw_shares(lm, weighting)[settled]
+    top = settled[np.argsort(-share)[: n // 2]]
+    rest = np.setdiff1d(settled, top)
+    spread = rest[np.argsort(lm[rest])][np.linspace(0, len(rest) - 1, n - len(top)).round().astype(int)]
+    return np.unique(np.concatenate([top, spread]))
+
+
+def _brute_force_cells(loglik_rows, todo: np.ndarray, lm: np.ndarray, gap: np.ndarray, mean, sd, mode, chol,
+                       tol: float, weighting: str, until_settled: bool) -> int:
+    """Brute force (`_brute_force`) on the cells ``todo``, in place, in order of their weight in the
+    leaf's score, until the cells left can move the leaf's elpd by at most BRUTE_BUDGET x LEAF_TOL
+    (every cell when ``until_settled``). Returns the number of cells brute-forced."""
+    if not todo.size:
+        return 0
+    share = draw_shares(lm, weighting)
+    capped = np.minimum(gap, 1e6)                 # a cell never checked (inf) weighs as a large gap
+    impact = share[todo] * capped[todo]
+    order = todo[np.argsort(-impact)]
+    left = float(np.sum(impact))
+    done = 0
+    while done < len(order) and (until_settled or left > BRUTE_BUDGET * LEAF_TOL):
+        chunk = order[done:done + BRUTE_CHUNK]
+        done += len(chunk)
+        left -= float(np.sum(share[chunk] * capped[chunk]))
+        v, g = _brute_force(loglik_rows, chunk, mean, sd, mode, chol, tol)
+        better = (g <= tol) | (g < gap[chunk])
+        lm[chunk[better]], gap[chunk[better]] = v[better], g[better]
+        left += float(np.sum(share[chunk] * np.minimum(gap[chunk], 1e6)))
+    return done
+
+
+def cell_log_marginals(
     loglik_rows: Callable[[np.ndarray], LogLik],
     mean: np.ndarray,
     sd: np.ndarray,
@@ -372,7 +477,7 @@ def leaf_log_marginal(
 
     Returns
     -------
-    (log m (S,), QuadratureInfo). Cells whose rules never agree keep their last value and are
+    (log m (S,), each cell's gap between its last two rules (S,), QuadratureInfo). Cells whose rules never agree keep their last value and are
     counted in ``n_unresolved``: the caller must not score the leaf silently.
     """
     starts = [np.asarray(starts, float)] if np.ndim(starts) == 2 else [np.asarray(x, float) for x in starts]
@@ -390,6 +495,7 @@ def leaf_log_marginal(
     restarted = np.zeros(S, bool)
     escalated = np.zeros(S, bool)
     n_levels = len(GH_LEVELS)
+    shift = np.full(d, CHECK_SHIFT / np.sqrt(d))
     for level in range(first_level, n_levels):
         if not todo.size:
             break
@@ -397,8 +503,10 @@ def leaf_log_marginal(
         for attempt in range(2):
             c = chol * scale
             v = _rule_log_m(loglik_rows, todo, mean, sd, mode, c, val_rule)
-            k = _rule_log_m(loglik_rows, todo, mean, sd, mode, c, chk_rule)
-            g = np.abs(v - k)
+            g = np.zeros(len(todo))
+            for sign in (1.0, -1.0):
+                k = _rule_log_m(loglik_rows, todo, mean, sd, mode + sign * (c @ shift), c, chk_rule)
+                g = np.maximum(g, np.abs(v - k))
             g = np.where(np.isfinite(g), g, np.inf)
             lm[todo], gap[todo] = v, g
             bad = todo[(g > tol) | ~np.isfinite(v) | ~ok[todo]]
@@ -417,30 +525,55 @@ def leaf_log_marginal(
             _modes(loglik_rows, mean, sd, extra, fresh, mode, chol, ok, hmax)
         todo = todo[(gap[todo] > tol) | ~np.isfinite(lm[todo]) | ~ok[todo]]
         escalated[todo] = True
-    n_brute = 0
-    if todo.size and d <= MAX_TENSOR_DIM:
-        # brute force, the costliest step, cell by cell in order of their weight in the leaf's score,
-        # until the cells left over can move the leaf's elpd by no more than BRUTE_BUDGET x LEAF_TOL
-        share = draw_shares(lm, weighting)
-        capped = np.minimum(gap, 1e6)                 # a cell never checked (inf) weighs as a large gap
-        impact = share[todo] * capped[todo]
-        left = float(np.sum(impact))
-        for s in todo[np.argsort(-impact)]:
-            if left <= BRUTE_BUDGET * LEAF_TOL and first_level < len(GH_LEVELS):
-                break
-            left -= share[s] * capped[s]
-            v, g = _brute_force(loglik_rows, int(s), mean, sd, mode, chol, tol)
-            if g <= tol or g < gap[s]:
-                lm[s], gap[s] = v, g
-            left += share[s] * min(gap[s], 1e6)
-            n_brute += 1
+        if level > first_level:
+            # a cell that no level settled: its value moved this much from the level before, which is
+            # the more honest measure of its error where both rules of a level err alike
+            with np.errstate(invalid="ignore"):
+                moved = np.abs(lm[todo] - previous[todo])
+            gap[todo] = np.maximum(gap[todo], np.where(np.isfinite(moved), moved, np.inf))
+        previous = lm.copy()
+    n_brute, suspect = 0, False
+    gap_of_rule = gap.copy()
+    if d <= MAX_TENSOR_DIM:
+        if first_level < n_levels:
+            # the leaf-level screen: brute force on a few draws that the rules settled, those that weigh
+            # most in the leaf's score and a spread of the rest; a rule that missed mass there (a second
+            # mode, a shoulder beyond the grid, a kink both rules got wrong alike) makes every cell suspect
+            screen = _screen_rows(lm, gap, todo, weighting, SCREEN_DRAWS[d])
+            if screen.size:
+                bv, bg = _brute_force(loglik_rows, screen, mean, sd, mode, chol, tol)
+                n_brute += len(screen)
+                disc = np.abs(bv - lm[screen])
+                trusted = bg <= tol
+                missed = trusted & (disc > np.maximum(2 * gap[screen], tol))
+                if missed.any():
+                    suspect = True
+                    worst = float(np.max(disc[missed]))
+                    others = np.setdiff1d(all_rows, screen)
+                    gap[others] = np.maximum(gap[others], 2 * worst)
+                    todo = np.union1d(todo, others)
+                keep = trusted | (bg < gap[screen])
+                lm[screen[keep]], gap[screen[keep]] = bv[keep], bg[keep]
+        n_brute += _brute_force_cells(loglik_rows, todo, lm, gap, mean, sd, mode, chol, tol, weighting,
+                                      until_settled=first_level >= n_levels)
         todo = todo[gap[todo] > tol]
+    # a Gauss-Hermite cell whose rules differ beyond rounding is not Gaussian-smooth (a kink of the hard
+    # minimum): there the rules' errors have erratic signs, and their gap alone can understate the error
+    by_rule = (gap_of_rule == gap) & (d <= MAX_TENSOR_DIM)       # Sobol rules' gaps are statistical
+    gap = gap + np.where(by_rule & (gap > ROUNDING), KINK_FLOOR, 0.0)
     share = draw_shares(lm, weighting)
     with np.errstate(invalid="ignore"):
         bound = float(np.sum(np.where(share > 0, share * gap, 0.0))) if np.all(np.isfinite(gap[share > 0])) \
             else float("inf")
     info = QuadratureInfo(
-        n_cells=S, n_escalated=int(escalated.sum()), n_brute=n_brute, n_unresolved=int(todo.size),
+        n_cells=S, suspect=suspect, n_escalated=int(escalated.sum()), n_brute=n_brute, n_unresolved=int(todo.size),
         bound=bound, max_cell_gap=float(np.max(gap)) if S else 0.0,
         unresolved_gap=float(np.max(gap[todo])) if todo.size else 0.0)
+    return lm, gap, info
+
+
+def leaf_log_marginal(loglik_rows, mean, sd, starts, **options) -> tuple[np.ndarray, QuadratureInfo]:
+    """log m_s of one leaf for every draw s and how it was integrated (`cell_log_marginals`, without
+    the per-cell gaps)."""
+    lm, _, info = cell_log_marginals(loglik_rows, mean, sd, starts, **options)
     return lm, info
