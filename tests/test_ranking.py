@@ -23,9 +23,10 @@ from scipy.optimize import check_grad, minimize
 
 from leafcv.cv.arviz_bridge import compare_results, to_elpd_data
 from leafcv.cv.result import CVResult
+from leafcv.compare import pointwise_table
 from leafcv.ranking import (
-    COLUMNS, MARGINAL_WARNING, NOT_RANKED, SMALL_DIFF_WARNING, WITHIN_SE_WARNING, _negative_mean_log_score,
-    format_ranking, rank, stacking_weights, summary_notes, table_columns,
+    COLUMNS, MARGINAL_WARNING, NOT_RANKED, NOT_TOLD_APART, _negative_mean_log_score, format_ranking, rank,
+    stacking_weights, summary_notes, table_columns,
 )
 
 # ArviZ 0.23's compare, called directly below as the reference, uses an inplace sort that pandas 3.1 deprecates
@@ -226,8 +227,9 @@ def test_sign_convention_and_order():
     results = [make(f"s{k}", base + rng.normal(0, 1, G)) for k in range(5)]
     table = rank(results)
     assert list(table.columns) == COLUMNS
-    assert COLUMNS == ["structure", "rank", "elpd", "se", "mcse", "elpd_diff", "se_diff", "weight", "rmse", "r2",
-                       "n_refits", "max_khat", "converged", "warnings"]     # DESIGN.md, "Interfaces"
+    # DESIGN.md, "Interfaces", plus quad_bound (the summed per-unit quadrature bound) after mcse
+    assert COLUMNS == ["structure", "rank", "elpd", "se", "mcse", "quad_bound", "elpd_diff", "se_diff", "weight",
+                       "rmse", "r2", "n_refits", "max_khat", "converged", "warnings"]
     assert table["elpd"].is_monotonic_decreasing
     assert table["elpd_diff"].iloc[0] == 0.0 and table["se_diff"].iloc[0] == 0.0
     assert (table["elpd_diff"] <= 0).all()
@@ -245,7 +247,7 @@ def test_ties_share_a_rank_and_keep_input_order():
     assert list(table["structure"]) == ["first", "second", "worse"]
     assert list(table["rank"]) == [1, 1, 3]
     assert table["elpd_diff"].iloc[1] == 0.0
-    assert SMALL_DIFF_WARNING in table["warnings"].iloc[1]
+    assert f"{NOT_TOLD_APART}: smaller than 4 nats" in table["warnings"].iloc[1]
     assert summary_notes(table, G)[0] == "first and second are tied for the best elpd."
 
 
@@ -319,36 +321,77 @@ def test_unscored_structure_is_listed_apart_with_its_reason():
 def test_unranked_structure_scoring_clearly_higher_is_announced_first():
     base = np.linspace(-30, -10, G)
     # d = failed - good alternates 1.5 and 0.5: elpd_diff = 30 * 1 = 30; deviations +-0.5, sum of squares 7.5,
-    # se_diff = sqrt(30 * 7.5 / 29) = sqrt(225 / 29) = 2.79, and 30 > 2 * 2.79 (common practice, no source)
+    # se_diff = sqrt(30 * 7.5 / 29) = sqrt(225 / 29) = 2.79
     failed = base + np.where(np.arange(G) % 2 == 0, 1.5, 0.5)
     table = rank([make("failed", failed, grade="failed"), make("good", base), make("worse", base - 9.0)])
     row = table.set_index("structure").loc["failed"]
     assert row["elpd_diff"] == pytest.approx(30.0) and row["se_diff"] == pytest.approx(np.sqrt(225 / 29))
     notes = summary_notes(table, G)
-    assert notes[0] == ("Among ranked structures good has the highest elpd, but unranked failed scored 30.0 nats "
-                        "higher (SE 2.8): its fits did not pass their diagnostics, so neither can be recommended "
-                        "without a refit.")
-    assert not any("best" in n for n in notes)
-    assert notes[1].startswith("Among ranked structures, good's lead over worse") and "is clear" in notes[1]
+    assert notes[0] == ("failed's fits did not pass their diagnostics; its score, 30.0 nats higher, would make it "
+                        "the best; see Diagnostics.")
+    assert not any("predicts new leaves best" in n for n in notes)
+    assert notes[1].startswith("good is the best among the reliably scored structures; its lead over worse")
+    assert notes[1].endswith("is clear.")
 
 
-def test_unranked_structure_within_two_se_is_not_announced():
+def test_unranked_structure_higher_within_two_se_is_still_announced():
     base = np.linspace(-30, -10, G)
     # d alternates +3 and -2.5: elpd_diff = 15 * 0.5 = 7.5; deviations +-2.75, se_diff = sqrt(30 * 30 * 7.5625 / 29)
-    # = 15.3, so 7.5 < 2 SE: no announcement, the usual lead sentence
+    # = 15.3: the rule cannot tell it from the leader, and its score is higher, so the leader is not called best
     failed = base + np.where(np.arange(G) % 2 == 0, 3.0, -2.5)
     table = rank([make("failed", failed, grade="failed"), make("good", base), make("worse", base - 9.0)])
     assert table.iloc[-1]["se_diff"] == pytest.approx(np.sqrt(30 * 30 * 7.5625 / 29))
-    assert summary_notes(table, G)[0].startswith("good predicts new leaves best")
+    notes = summary_notes(table, G)
+    assert notes[0].startswith("failed's fits did not pass their diagnostics; its score, 7.5 nats higher")
+    assert not any("predicts new leaves best" in n for n in notes)
+    # below the leader, an unranked structure is listed, not announced
+    lower = rank([make("failed", base - 7.5, grade="failed"), make("good", base), make("worse", base - 9.0)])
+    assert summary_notes(lower, G)[0].startswith("good predicts new leaves best")
+
+
+def test_unscored_structure_far_ahead_with_large_se_is_named_and_the_leader_only_best_among_scored():
+    # The reviewer's case: unranked C +15.0 nats ahead of A with SE_diff 10.7. 15 < 2 x 10.7, so the rule cannot
+    # tell C from A, and C's score is higher: A must not be called the best. d alternates 15.5 and -14.5
+    # (mean 0.5, deviations +-15): elpd_diff 15.0, se_diff = sqrt(30 * 30 * 225 / 29) / sqrt(30) ... computed below.
+    base = np.linspace(-30, -10, G)
+    c = base + np.where(np.arange(G) % 2 == 0, 2.5, -1.5)
+    table = rank([make("A", base), make("B", base - 10.0), make("C", c, unscored="quadrature did not settle for leaf03")])
+    row = table.set_index("structure").loc["C"]
+    d = c - base
+    assert row["elpd_diff"] == pytest.approx(15.0)
+    assert row["se_diff"] == pytest.approx(np.sqrt(G * np.var(d, ddof=1)))
+    notes = summary_notes(table, G)
+    assert notes[0] == ("C could not be scored reliably; its score, 15.0 nats higher, would make it the best; "
+                        "see Diagnostics.")
+    assert notes[1].startswith("A is the best among the reliably scored structures")
+    assert not any("A predicts new leaves best" in n for n in notes)
+
+
+def test_nan_se_of_an_unranked_higher_structure_changes_nothing_in_the_announcement():
+    # one leaf: every SE is NaN (G < 2); the unranked structure 3 nats higher is named all the same
+    one = ("L1",)
+    table = rank([make("A", [-20.0], leaves=one), make("C", [-17.0], leaves=one, grade="failed")])
+    assert np.isnan(table.set_index("structure").loc["C", "se_diff"])
+    notes = summary_notes(table, 1)
+    assert notes[0] == ("C's fits did not pass their diagnostics; its score, 3.0 nats higher, would make it the "
+                        "best; see Diagnostics.")
+    assert notes[1] == "A is the best among the reliably scored structures, and the only one."
 
 
 def test_notes_count_levels_of_the_unit():
     levels = tuple(f"sp{i}" for i in range(8))
     base = np.linspace(-300, -100, 8)
-    table = rank([make("a", base + 8.0, leaves=levels, unit="species"), make("b", base, leaves=levels, unit="species")])
-    notes = summary_notes(table, 8, "species")
+    results = [make("a", base + 8.0, leaves=levels, unit="species"), make("b", base, leaves=levels, unit="species")]
+    table = rank(results)
+    notes = summary_notes(table, 8, "species", pointwise_table(results))
+    # d = 8 on every level: total 64, 56 without any one level, so the leave-one-unit-out check passes
     assert notes[0].startswith("a predicts new levels of species best")
     assert any("fewer than 100 levels of species (here 8)" in n for n in notes)
+    assert any(n.startswith("With only 8 levels of species, the SE of a difference over so few units is unreliable")
+               for n in notes)
+    # without the per-unit values the check cannot be made, so the lead is not called clear
+    assert "with only 8 units, the per-unit values needed for the leave-one-unit-out check are not available" \
+        in summary_notes(table, 8, "species")[0]
 
 
 def test_mismatched_leaves_raise_naming_structures():
@@ -367,8 +410,10 @@ def test_mismatched_leaves_raise_naming_structures():
 # ------------------------------------------------------------------------------------------
 # warnings and notes
 
-def test_small_difference_warning_exactly_below_four():
-    # Sivula et al. 2020: |Δelpd| < 4 is small. One leaf shifted by a dyadic amount: exact totals.
+def test_small_difference_reason_exactly_below_four():
+    # Sivula et al. 2020: |Δelpd| < 4 is small. One leaf shifted by a dyadic amount: exact totals. d has one
+    # non-zero value s, so se_diff = sqrt(G var(d, ddof=1)) = s and |Δ| = s <= 2 SE: never told apart, and
+    # "smaller than 4 nats" is among the reasons exactly when s < 4.
     base = -np.arange(10.0, 10.0 + G)
     shifts = {"d3.75": 3.75, "d4.00": 4.0, "d4.25": 4.25, "d8.00": 8.0}
     results = [make("best", base)]
@@ -377,13 +422,16 @@ def test_small_difference_warning_exactly_below_four():
         elpd[0] -= shift
         results.append(make(name, elpd))
     table = rank(results).set_index("structure")
-    assert SMALL_DIFF_WARNING not in table.loc["best", "warnings"]
+    assert NOT_TOLD_APART not in table.loc["best", "warnings"]
     for name, shift in shifts.items():
         assert table.loc[name, "elpd_diff"] == -shift
-        assert (SMALL_DIFF_WARNING in table.loc[name, "warnings"]) == (shift < 4.0)
+        assert table.loc[name, "se_diff"] == pytest.approx(shift)
+        assert NOT_TOLD_APART in table.loc[name, "warnings"]
+        assert ("smaller than 4 nats" in table.loc[name, "warnings"]) == (shift < 4.0)
+        assert "within 2 SE of the difference" in table.loc[name, "warnings"]
 
 
-def test_within_two_se_warning_follows_paired_se():
+def test_within_two_se_reason_follows_paired_se():
     rng = np.random.default_rng(12)
     base = rng.normal(-20, 2, G)
     results = [make("best", base + 0.5)] + [make(f"s{k}", base + rng.normal(-0.2 * k, 1.0, G)) for k in range(5)]
@@ -393,8 +441,8 @@ def test_within_two_se_warning_follows_paired_se():
         if r.structure == best:
             continue
         d = r.elpd_i - next(x for x in results if x.structure == best).elpd_i
-        within = abs(d.sum()) < 2 * np.sqrt(G * np.var(d, ddof=1))
-        assert (WITHIN_SE_WARNING in table.loc[r.structure, "warnings"]) == within
+        within = abs(d.sum()) <= 2 * np.sqrt(G * np.var(d, ddof=1))
+        assert ("within 2 SE of the difference" in table.loc[r.structure, "warnings"]) == within
 
 
 def test_khat_warning_uses_draw_dependent_threshold():
