@@ -26,7 +26,7 @@ from leafcv.cv.result import CVResult
 from leafcv.compare import pointwise_table
 from leafcv.ranking import (
     COLUMNS, MARGINAL_WARNING, NOT_RANKED, NOT_TOLD_APART, _negative_mean_log_score, format_ranking, rank,
-    stacking_weights, summary_notes, table_columns,
+    stacking_weights, summary_notes, summed_bound, table_columns, told_apart,
 )
 
 # ArviZ 0.23's compare, called directly below as the reference, uses an inplace sort that pandas 3.1 deprecates
@@ -350,16 +350,15 @@ def test_unranked_structure_higher_within_two_se_is_still_announced():
 
 
 def test_unscored_structure_far_ahead_with_large_se_is_named_and_the_leader_only_best_among_scored():
-    # The reviewer's case: unranked C +15.0 nats ahead of A with SE_diff 10.7. 15 < 2 x 10.7, so the rule cannot
-    # tell C from A, and C's score is higher: A must not be called the best. d alternates 15.5 and -14.5
-    # (mean 0.5, deviations +-15): elpd_diff 15.0, se_diff = sqrt(30 * 30 * 225 / 29) / sqrt(30) ... computed below.
+    # Unranked C about 15 nats ahead of A with an SE_diff near 11: 15 < 2 SE, so the rule cannot tell C from A,
+    # and C's score is higher, so A must not be called the best. d = C - A alternates 2.5 and -1.5: elpd_diff
+    # 15 x 2.5 - 15 x 1.5 = 15.0; mean 0.5, deviations +-2, se_diff = sqrt(30 x 30 x 4 / 29) = 11.1.
     base = np.linspace(-30, -10, G)
     c = base + np.where(np.arange(G) % 2 == 0, 2.5, -1.5)
     table = rank([make("A", base), make("B", base - 10.0), make("C", c, unscored="quadrature did not settle for leaf03")])
     row = table.set_index("structure").loc["C"]
-    d = c - base
     assert row["elpd_diff"] == pytest.approx(15.0)
-    assert row["se_diff"] == pytest.approx(np.sqrt(G * np.var(d, ddof=1)))
+    assert row["se_diff"] == pytest.approx(np.sqrt(30 * 30 * 4 / 29))
     notes = summary_notes(table, G)
     assert notes[0] == ("C could not be scored reliably; its score, 15.0 nats higher, would make it the best; "
                         "see Diagnostics.")
@@ -539,3 +538,108 @@ def test_format_ranking_lists_every_structure_and_warning():
     # mcse of alpha_leaf: sqrt(30 * 0.01^2) = 0.0548
     assert lines[1].split()[4] == "0.05"
     assert [line.split()[-1] for line in lines[1:4]] == ["yes", "marginal", "NO"]
+
+
+# ------------------------------------------------------------------------------------------
+# the one decision rule: |Δ| < 4 nats (Sivula et al. 2020), or |Δ| <= 2 sqrt(SE² + MCSE_a² + MCSE_b²) + B_a + B_b
+# (the factor 2: common practice, no source), or, with fewer than 10 units, undone by dropping one unit
+# (common practice, no source). Margins below are worked out by hand.
+
+def test_rule_clear_lead():
+    # 2 sqrt(1² + 0.1² + 0.1²) + 0.01 + 0.01 = 2 sqrt(1.02) + 0.02 = 2.040; 10 > 2.04 and 10 >= 4
+    v = told_apart(-10.0, 1.0, (0.1, 0.1), (0.01, 0.01))
+    assert v.told_apart and v.reasons == ()
+    assert v.margin == pytest.approx(2 * np.sqrt(1.02) + 0.02)
+
+
+def test_rule_lead_within_four_nats():
+    v = told_apart(3.9, 0.0, (0.0, 0.0), (0.0, 0.0))
+    assert not v.told_apart and v.reasons == ("smaller than 4 nats",)
+    assert told_apart(4.0, 0.0, (0.0, 0.0), (0.0, 0.0)).told_apart          # 4 itself is not small
+
+
+def test_rule_lead_hidden_by_monte_carlo_error():
+    # A 4.4-nat lead with SE_diff 0.15 alone would be clear: 4.4 >= 4 and 4.4 > 2 x 0.15 = 0.3.
+    assert told_apart(4.4, 0.15).told_apart
+    # With an MCSE of 3.3 nats: 2 sqrt(0.15² + 3.3²) = 2 sqrt(0.0225 + 10.89) = 6.61 > 4.4, not told apart ...
+    v = told_apart(4.4, 0.15, (3.3, 0.0), (0.0, 0.0))
+    assert not v.told_apart and v.margin == pytest.approx(2 * np.sqrt(0.0225 + 10.89))
+    # ... and with summed quadrature bounds of 3.0 nats on top: 6.61 + 3.0 = 9.61
+    v = told_apart(4.4, 0.15, (3.3, 0.0), (1.5, 1.5))
+    assert not v.told_apart and v.margin == pytest.approx(2 * np.sqrt(0.0225 + 10.89) + 3.0)
+    assert v.why() == ("within the margin 2·√(SE_diff² + MCSE_a² + MCSE_b²) + B_a + B_b = "
+                       "2·√(0.15² + 3.30² + 0.00²) + 1.50 + 1.50 = 9.6 nats (B: summed quadrature bounds)")
+
+
+def test_rule_lead_hidden_by_summed_quadrature_bounds():
+    # 100 leaves with a bound of 0.05 nats each sum to 5 nats. A 6-nat lead with SE 0.5 and MCSEs 0.1:
+    # 2 sqrt(0.25 + 0.01 + 0.01) = 1.039 alone would tell them apart; + 5.0 + 0 = 6.039 >= 6 does not.
+    b = summed_bound(np.full(100, 0.05))
+    assert b == pytest.approx(5.0)
+    assert told_apart(6.0, 0.5, (0.1, 0.1), (0.0, 0.0)).told_apart
+    v = told_apart(6.0, 0.5, (0.1, 0.1), (b, 0.0))
+    assert not v.told_apart and v.margin == pytest.approx(2 * np.sqrt(0.27) + 5.0)
+
+
+def test_rule_nan_se_and_unknown_bounds_cannot_be_told_apart():
+    v = told_apart(50.0, np.nan)
+    assert not v.told_apart and v.reasons == ("without an SE of the difference",)
+    assert not told_apart(50.0, 1.0, bounds=(np.inf, 0.0)).told_apart
+    # summed bounds: none computed -> NaN (counted as 0); one missing among computed ones, or any inf -> inf
+    assert np.isnan(summed_bound([np.nan, np.nan]))
+    assert summed_bound([0.01, np.nan]) == np.inf and summed_bound([0.01, np.inf]) == np.inf
+    assert summed_bound([0.01, 0.02]) == pytest.approx(0.03)
+    assert told_apart(50.0, 1.0, (np.nan, np.nan), (np.nan, np.nan)).told_apart
+
+
+def test_rule_few_units_sign_flip_when_one_unit_is_dropped():
+    # 5 species; d = (40, -3, -2, -1, -2): total +32, dropping sp1 leaves -8, so the sign flips. (Such a flip
+    # always comes with SE > |Δ|: here SE = sqrt(5 var(d, ddof=1)) = 42.0, so 2 SE hides it too; both reasons.)
+    d = np.array([40.0, -3.0, -2.0, -1.0, -2.0])
+    se = np.sqrt(5 * np.var(d, ddof=1))
+    assert se == pytest.approx(np.sqrt(5 * 1413.2 / 4))    # mean 6.4; squares 33.6², 9.4², 8.4², 7.4², 8.4²: 1413.2
+    v = told_apart(32.0, se, per_unit=d, unit_ids=["sp1", "sp2", "sp3", "sp4", "sp5"])
+    assert not v.told_apart
+    assert v.reasons[-1] == ("undone when sp1 alone is dropped (with only 5 units the difference goes from +32.0 "
+                             "to -8.0 nats, changing its sign; leave-one-unit-out check)")
+    assert v.reasons[0].startswith("within 2 SE of the difference")
+
+
+def test_rule_few_units_lead_that_one_unit_brings_below_four_nats():
+    # d = (4.5, 0.875, 0.875, 0.875, 0.875): total 8.0, mean 1.6, deviations 2.9 and -0.725 (x4), sum of squares
+    # 8.41 + 2.1025 = 10.5125, SE = sqrt(5 x 10.5125 / 4) = 3.625; 8 >= 4 and 8 > 2 x 3.625 = 7.25, so on the SE
+    # alone it would be clear; without the first unit 3.5 nats are left, below 4: not clear.
+    d = np.array([4.5, 0.875, 0.875, 0.875, 0.875])
+    se = np.sqrt(5 * np.var(d, ddof=1))
+    assert se == pytest.approx(np.sqrt(5 * 10.5125 / 4))
+    assert told_apart(8.0, se).told_apart
+    v = told_apart(8.0, se, per_unit=d, unit_ids=list("abcde"))
+    assert not v.told_apart
+    assert v.reasons == ("undone when a alone is dropped (with only 5 units the difference goes from +8.0 to "
+                         "+3.5 nats, less than 4 in size; leave-one-unit-out check)",)
+    # spread evenly (1.6 each) the lead keeps >= 4 nats without any one unit (6.4): clear
+    assert told_apart(8.0, 0.0, per_unit=np.full(5, 1.6)).told_apart
+    # with 10 units the check no longer applies
+    assert told_apart(8.0, se, per_unit=np.r_[d, np.zeros(5)]).told_apart
+
+
+def test_ranking_table_sees_the_monte_carlo_and_quadrature_example():
+    # The reviewer's example through rank() and summary_notes(): a 4.4-nat lead, SE_diff 0.15, the leader's MCSE
+    # 3.3 nats (sqrt(30) x 3.3/sqrt(30)) and summed bounds 3.0 nats (30 x 0.1): not told apart, not clear.
+    rng = np.random.default_rng(21)
+    base = rng.normal(-20, 2, G)
+    a = 0.15 / np.sqrt(G * G / (G - 1))                  # alternating +-a gives se_diff = sqrt(G G a² / (G - 1))
+    lead = base + 4.4 / G + np.where(np.arange(G) % 2 == 0, a, -a)
+    results = [make("A", lead, mcse_i=np.full(G, 3.3 / np.sqrt(G)), quad_bound_i=np.full(G, 0.1)),
+               make("B", base, mcse_i=np.zeros(G), quad_bound_i=np.zeros(G))]
+    table = rank(results).set_index("structure")
+    assert table.loc["B", "elpd_diff"] == pytest.approx(-4.4) and table.loc["B", "se_diff"] == pytest.approx(0.15)
+    assert table.loc["A", "mcse"] == pytest.approx(3.3) and table.loc["A", "quad_bound"] == pytest.approx(3.0)
+    assert table.loc["B", "warnings"].startswith(f"{NOT_TOLD_APART}: within the margin")
+    note = summary_notes(table.reset_index(), G)[0]
+    assert note.startswith("A has the highest elpd, but its lead over B (4.4 nats, SE 0.1)")  # 0.15 shown as 0.1
+    assert "is not clear" in note and "= 9.6 nats" in note
+    # the same lead without the Monte Carlo error and the bounds is clear
+    clean = rank([make("A", lead), make("B", base)])
+    assert NOT_TOLD_APART not in clean["warnings"].iloc[1]
+    assert summary_notes(clean, G)[0].startswith("A predicts new leaves best; its lead over B")

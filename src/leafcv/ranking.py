@@ -118,9 +118,9 @@ def _drop_one(per_unit: np.ndarray, unit_ids: Sequence[str] | None) -> str | Non
     if sign * rest[worst] >= SMALL_DIFF:
         return None
     name = str(unit_ids[worst]) if unit_ids is not None else f"unit {worst + 1}"
-    change = "changes its sign" if sign * rest[worst] < 0 else f"brings it below {SMALL_DIFF:g} nats"
-    return (f"with only {d.size} units, dropping {name} alone {change} ({total:+.1f} → {rest[worst]:+.1f} "
-            "nats; leave-one-unit-out check)")
+    change = "changing its sign" if sign * rest[worst] < 0 else f"less than {SMALL_DIFF:g} in size"
+    return (f"undone when {name} alone is dropped (with only {d.size} units the difference goes from {total:+.1f} "
+            f"to {rest[worst]:+.1f} nats, {change}; leave-one-unit-out check)")
 
 
 def told_apart(diff: float, se_diff: float, mcse: tuple[float, float] = (np.nan, np.nan),
