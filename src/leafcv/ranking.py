@@ -153,7 +153,7 @@ def told_apart(diff: float, se_diff: float, mcse: tuple[float, float] = (np.nan,
     """
     diff, se = float(diff), float(se_diff)
     if not np.isfinite(diff):
-        return Verdict(False, ("no finite difference",))
+        return Verdict(False, ("without a finite difference",))
     gap = abs(diff)
     reasons: list[str] = []
     if gap < SMALL_DIFF:
@@ -165,7 +165,7 @@ def told_apart(diff: float, se_diff: float, mcse: tuple[float, float] = (np.nan,
         reasons.append("without an SE of the difference")
     elif np.isinf(ba) or np.isinf(bb):
         margin = float("inf")
-        reasons.append("a quadrature bound is unknown or unbounded")
+        reasons.append("not measured to a stated accuracy (a summed quadrature bound is unknown or unbounded)")
     else:
         margin = SE_MULTIPLE * float(np.sqrt(se**2 + ma**2 + mb**2)) + ba + bb
         if gap <= SE_MULTIPLE * se:
