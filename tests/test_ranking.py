@@ -23,9 +23,10 @@ from scipy.optimize import check_grad, minimize
 
 from leafcv.cv.arviz_bridge import compare_results, to_elpd_data
 from leafcv.cv.result import CVResult
+from leafcv.compare import pointwise_table
 from leafcv.ranking import (
-    COLUMNS, MARGINAL_WARNING, NOT_RANKED, SMALL_DIFF_WARNING, WITHIN_SE_WARNING, _negative_mean_log_score,
-    format_ranking, rank, stacking_weights, summary_notes, table_columns,
+    COLUMNS, MARGINAL_WARNING, NOT_RANKED, NOT_TOLD_APART, _negative_mean_log_score, format_ranking, rank,
+    stacking_weights, summary_notes, summed_bound, table_columns, told_apart,
 )
 
 # ArviZ 0.23's compare, called directly below as the reference, uses an inplace sort that pandas 3.1 deprecates
@@ -226,8 +227,9 @@ def test_sign_convention_and_order():
     results = [make(f"s{k}", base + rng.normal(0, 1, G)) for k in range(5)]
     table = rank(results)
     assert list(table.columns) == COLUMNS
-    assert COLUMNS == ["structure", "rank", "elpd", "se", "mcse", "elpd_diff", "se_diff", "weight", "rmse", "r2",
-                       "n_refits", "max_khat", "converged", "warnings"]     # DESIGN.md, "Interfaces"
+    # DESIGN.md, "Interfaces", plus quad_bound (the summed per-unit quadrature bound) after mcse
+    assert COLUMNS == ["structure", "rank", "elpd", "se", "mcse", "quad_bound", "elpd_diff", "se_diff", "weight",
+                       "rmse", "r2", "n_refits", "max_khat", "converged", "warnings"]
     assert table["elpd"].is_monotonic_decreasing
     assert table["elpd_diff"].iloc[0] == 0.0 and table["se_diff"].iloc[0] == 0.0
     assert (table["elpd_diff"] <= 0).all()
@@ -245,7 +247,7 @@ def test_ties_share_a_rank_and_keep_input_order():
     assert list(table["structure"]) == ["first", "second", "worse"]
     assert list(table["rank"]) == [1, 1, 3]
     assert table["elpd_diff"].iloc[1] == 0.0
-    assert SMALL_DIFF_WARNING in table["warnings"].iloc[1]
+    assert f"{NOT_TOLD_APART}: smaller than 4 nats" in table["warnings"].iloc[1]
     assert summary_notes(table, G)[0] == "first and second are tied for the best elpd."
 
 
@@ -319,36 +321,76 @@ def test_unscored_structure_is_listed_apart_with_its_reason():
 def test_unranked_structure_scoring_clearly_higher_is_announced_first():
     base = np.linspace(-30, -10, G)
     # d = failed - good alternates 1.5 and 0.5: elpd_diff = 30 * 1 = 30; deviations +-0.5, sum of squares 7.5,
-    # se_diff = sqrt(30 * 7.5 / 29) = sqrt(225 / 29) = 2.79, and 30 > 2 * 2.79 (common practice, no source)
+    # se_diff = sqrt(30 * 7.5 / 29) = sqrt(225 / 29) = 2.79
     failed = base + np.where(np.arange(G) % 2 == 0, 1.5, 0.5)
     table = rank([make("failed", failed, grade="failed"), make("good", base), make("worse", base - 9.0)])
     row = table.set_index("structure").loc["failed"]
     assert row["elpd_diff"] == pytest.approx(30.0) and row["se_diff"] == pytest.approx(np.sqrt(225 / 29))
     notes = summary_notes(table, G)
-    assert notes[0] == ("Among ranked structures good has the highest elpd, but unranked failed scored 30.0 nats "
-                        "higher (SE 2.8): its fits did not pass their diagnostics, so neither can be recommended "
-                        "without a refit.")
-    assert not any("best" in n for n in notes)
-    assert notes[1].startswith("Among ranked structures, good's lead over worse") and "is clear" in notes[1]
+    assert notes[0] == ("failed's fits did not pass their diagnostics; its score, 30.0 nats higher, would make it "
+                        "the best; see Diagnostics.")
+    assert not any("predicts new leaves best" in n for n in notes)
+    assert notes[1].startswith("good is the best among the reliably scored structures; its lead over worse")
+    assert notes[1].endswith("is clear.")
 
 
-def test_unranked_structure_within_two_se_is_not_announced():
+def test_unranked_structure_higher_within_two_se_is_still_announced():
     base = np.linspace(-30, -10, G)
     # d alternates +3 and -2.5: elpd_diff = 15 * 0.5 = 7.5; deviations +-2.75, se_diff = sqrt(30 * 30 * 7.5625 / 29)
-    # = 15.3, so 7.5 < 2 SE: no announcement, the usual lead sentence
+    # = 15.3: the rule cannot tell it from the leader, and its score is higher, so the leader is not called best
     failed = base + np.where(np.arange(G) % 2 == 0, 3.0, -2.5)
     table = rank([make("failed", failed, grade="failed"), make("good", base), make("worse", base - 9.0)])
     assert table.iloc[-1]["se_diff"] == pytest.approx(np.sqrt(30 * 30 * 7.5625 / 29))
-    assert summary_notes(table, G)[0].startswith("good predicts new leaves best")
+    notes = summary_notes(table, G)
+    assert notes[0].startswith("failed's fits did not pass their diagnostics; its score, 7.5 nats higher")
+    assert not any("predicts new leaves best" in n for n in notes)
+    # below the leader, an unranked structure is listed, not announced
+    lower = rank([make("failed", base - 7.5, grade="failed"), make("good", base), make("worse", base - 9.0)])
+    assert summary_notes(lower, G)[0].startswith("good predicts new leaves best")
+
+
+def test_unscored_structure_far_ahead_with_large_se_is_named_and_the_leader_only_best_among_scored():
+    # Unranked C about 15 nats ahead of A with an SE_diff near 11: 15 < 2 SE, so the rule cannot tell C from A,
+    # and C's score is higher, so A must not be called the best. d = C - A alternates 2.5 and -1.5: elpd_diff
+    # 15 x 2.5 - 15 x 1.5 = 15.0; mean 0.5, deviations +-2, se_diff = sqrt(30 x 30 x 4 / 29) = 11.1.
+    base = np.linspace(-30, -10, G)
+    c = base + np.where(np.arange(G) % 2 == 0, 2.5, -1.5)
+    table = rank([make("A", base), make("B", base - 10.0), make("C", c, unscored="quadrature did not settle for leaf03")])
+    row = table.set_index("structure").loc["C"]
+    assert row["elpd_diff"] == pytest.approx(15.0)
+    assert row["se_diff"] == pytest.approx(np.sqrt(30 * 30 * 4 / 29))
+    notes = summary_notes(table, G)
+    assert notes[0] == ("C could not be scored reliably; its score, 15.0 nats higher, would make it the best; "
+                        "see Diagnostics.")
+    assert notes[1].startswith("A is the best among the reliably scored structures")
+    assert not any("A predicts new leaves best" in n for n in notes)
+
+
+def test_nan_se_of_an_unranked_higher_structure_changes_nothing_in_the_announcement():
+    # one leaf: every SE is NaN (G < 2); the unranked structure 3 nats higher is named all the same
+    one = ("L1",)
+    table = rank([make("A", [-20.0], leaves=one), make("C", [-17.0], leaves=one, grade="failed")])
+    assert np.isnan(table.set_index("structure").loc["C", "se_diff"])
+    notes = summary_notes(table, 1)
+    assert notes[0] == ("C's fits did not pass their diagnostics; its score, 3.0 nats higher, would make it the "
+                        "best; see Diagnostics.")
+    assert notes[1] == "A is the best among the reliably scored structures, and the only one."
 
 
 def test_notes_count_levels_of_the_unit():
     levels = tuple(f"sp{i}" for i in range(8))
     base = np.linspace(-300, -100, 8)
-    table = rank([make("a", base + 8.0, leaves=levels, unit="species"), make("b", base, leaves=levels, unit="species")])
-    notes = summary_notes(table, 8, "species")
+    results = [make("a", base + 8.0, leaves=levels, unit="species"), make("b", base, leaves=levels, unit="species")]
+    table = rank(results)
+    notes = summary_notes(table, 8, "species", pointwise_table(results))
+    # d = 8 on every level: total 64, 56 without any one level, so the leave-one-unit-out check passes
     assert notes[0].startswith("a predicts new levels of species best")
     assert any("fewer than 100 levels of species (here 8)" in n for n in notes)
+    assert any(n.startswith("With only 8 levels of species, the SE of a difference over so few units is unreliable")
+               for n in notes)
+    # without the per-unit values the check cannot be made, so the lead is not called clear
+    assert "with only 8 units, the per-unit values needed for the leave-one-unit-out check are not available" \
+        in summary_notes(table, 8, "species")[0]
 
 
 def test_mismatched_leaves_raise_naming_structures():
@@ -367,8 +409,10 @@ def test_mismatched_leaves_raise_naming_structures():
 # ------------------------------------------------------------------------------------------
 # warnings and notes
 
-def test_small_difference_warning_exactly_below_four():
-    # Sivula et al. 2020: |Δelpd| < 4 is small. One leaf shifted by a dyadic amount: exact totals.
+def test_small_difference_reason_exactly_below_four():
+    # Sivula et al. 2020: |Δelpd| < 4 is small. One leaf shifted by a dyadic amount: exact totals. d has one
+    # non-zero value s, so se_diff = sqrt(G var(d, ddof=1)) = s and |Δ| = s <= 2 SE: never told apart, and
+    # "smaller than 4 nats" is among the reasons exactly when s < 4.
     base = -np.arange(10.0, 10.0 + G)
     shifts = {"d3.75": 3.75, "d4.00": 4.0, "d4.25": 4.25, "d8.00": 8.0}
     results = [make("best", base)]
@@ -377,13 +421,16 @@ def test_small_difference_warning_exactly_below_four():
         elpd[0] -= shift
         results.append(make(name, elpd))
     table = rank(results).set_index("structure")
-    assert SMALL_DIFF_WARNING not in table.loc["best", "warnings"]
+    assert NOT_TOLD_APART not in table.loc["best", "warnings"]
     for name, shift in shifts.items():
         assert table.loc[name, "elpd_diff"] == -shift
-        assert (SMALL_DIFF_WARNING in table.loc[name, "warnings"]) == (shift < 4.0)
+        assert table.loc[name, "se_diff"] == pytest.approx(shift)
+        assert NOT_TOLD_APART in table.loc[name, "warnings"]
+        assert ("smaller than 4 nats" in table.loc[name, "warnings"]) == (shift < 4.0)
+        assert "within 2 SE of the difference" in table.loc[name, "warnings"]
 
 
-def test_within_two_se_warning_follows_paired_se():
+def test_within_two_se_reason_follows_paired_se():
     rng = np.random.default_rng(12)
     base = rng.normal(-20, 2, G)
     results = [make("best", base + 0.5)] + [make(f"s{k}", base + rng.normal(-0.2 * k, 1.0, G)) for k in range(5)]
@@ -393,8 +440,8 @@ def test_within_two_se_warning_follows_paired_se():
         if r.structure == best:
             continue
         d = r.elpd_i - next(x for x in results if x.structure == best).elpd_i
-        within = abs(d.sum()) < 2 * np.sqrt(G * np.var(d, ddof=1))
-        assert (WITHIN_SE_WARNING in table.loc[r.structure, "warnings"]) == within
+        within = abs(d.sum()) <= 2 * np.sqrt(G * np.var(d, ddof=1))
+        assert ("within 2 SE of the difference" in table.loc[r.structure, "warnings"]) == within
 
 
 def test_khat_warning_uses_draw_dependent_threshold():
@@ -491,3 +538,108 @@ def test_format_ranking_lists_every_structure_and_warning():
     # mcse of alpha_leaf: sqrt(30 * 0.01^2) = 0.0548
     assert lines[1].split()[4] == "0.05"
     assert [line.split()[-1] for line in lines[1:4]] == ["yes", "marginal", "NO"]
+
+
+# ------------------------------------------------------------------------------------------
+# the one decision rule: |Δ| < 4 nats (Sivula et al. 2020), or |Δ| <= 2 sqrt(SE² + MCSE_a² + MCSE_b²) + B_a + B_b
+# (the factor 2: common practice, no source), or, with fewer than 10 units, undone by dropping one unit
+# (common practice, no source). Margins below are worked out by hand.
+
+def test_rule_clear_lead():
+    # 2 sqrt(1² + 0.1² + 0.1²) + 0.01 + 0.01 = 2 sqrt(1.02) + 0.02 = 2.040; 10 > 2.04 and 10 >= 4
+    v = told_apart(-10.0, 1.0, (0.1, 0.1), (0.01, 0.01))
+    assert v.told_apart and v.reasons == ()
+    assert v.margin == pytest.approx(2 * np.sqrt(1.02) + 0.02)
+
+
+def test_rule_lead_within_four_nats():
+    v = told_apart(3.9, 0.0, (0.0, 0.0), (0.0, 0.0))
+    assert not v.told_apart and v.reasons == ("smaller than 4 nats",)
+    assert told_apart(4.0, 0.0, (0.0, 0.0), (0.0, 0.0)).told_apart          # 4 itself is not small
+
+
+def test_rule_lead_hidden_by_monte_carlo_error():
+    # A 4.4-nat lead with SE_diff 0.15 alone would be clear: 4.4 >= 4 and 4.4 > 2 x 0.15 = 0.3.
+    assert told_apart(4.4, 0.15).told_apart
+    # With an MCSE of 3.3 nats: 2 sqrt(0.15² + 3.3²) = 2 sqrt(0.0225 + 10.89) = 6.61 > 4.4, not told apart ...
+    v = told_apart(4.4, 0.15, (3.3, 0.0), (0.0, 0.0))
+    assert not v.told_apart and v.margin == pytest.approx(2 * np.sqrt(0.0225 + 10.89))
+    # ... and with summed quadrature bounds of 3.0 nats on top: 6.61 + 3.0 = 9.61
+    v = told_apart(4.4, 0.15, (3.3, 0.0), (1.5, 1.5))
+    assert not v.told_apart and v.margin == pytest.approx(2 * np.sqrt(0.0225 + 10.89) + 3.0)
+    assert v.why() == ("within the margin 2·√(SE_diff² + MCSE_a² + MCSE_b²) + B_a + B_b = "
+                       "2·√(0.15² + 3.30² + 0.00²) + 1.50 + 1.50 = 9.6 nats (B: summed quadrature bounds)")
+
+
+def test_rule_lead_hidden_by_summed_quadrature_bounds():
+    # 100 leaves with a bound of 0.05 nats each sum to 5 nats. A 6-nat lead with SE 0.5 and MCSEs 0.1:
+    # 2 sqrt(0.25 + 0.01 + 0.01) = 1.039 alone would tell them apart; + 5.0 + 0 = 6.039 >= 6 does not.
+    b = summed_bound(np.full(100, 0.05))
+    assert b == pytest.approx(5.0)
+    assert told_apart(6.0, 0.5, (0.1, 0.1), (0.0, 0.0)).told_apart
+    v = told_apart(6.0, 0.5, (0.1, 0.1), (b, 0.0))
+    assert not v.told_apart and v.margin == pytest.approx(2 * np.sqrt(0.27) + 5.0)
+
+
+def test_rule_nan_se_and_unknown_bounds_cannot_be_told_apart():
+    v = told_apart(50.0, np.nan)
+    assert not v.told_apart and v.reasons == ("without an SE of the difference",)
+    assert not told_apart(50.0, 1.0, bounds=(np.inf, 0.0)).told_apart
+    # summed bounds: none computed -> NaN (counted as 0); one missing among computed ones, or any inf -> inf
+    assert np.isnan(summed_bound([np.nan, np.nan]))
+    assert summed_bound([0.01, np.nan]) == np.inf and summed_bound([0.01, np.inf]) == np.inf
+    assert summed_bound([0.01, 0.02]) == pytest.approx(0.03)
+    assert told_apart(50.0, 1.0, (np.nan, np.nan), (np.nan, np.nan)).told_apart
+
+
+def test_rule_few_units_sign_flip_when_one_unit_is_dropped():
+    # 5 species; d = (40, -3, -2, -1, -2): total +32, dropping sp1 leaves -8, so the sign flips. (Such a flip
+    # always comes with SE > |Δ|: here SE = sqrt(5 var(d, ddof=1)) = 42.0, so 2 SE hides it too; both reasons.)
+    d = np.array([40.0, -3.0, -2.0, -1.0, -2.0])
+    se = np.sqrt(5 * np.var(d, ddof=1))
+    assert se == pytest.approx(np.sqrt(5 * 1413.2 / 4))    # mean 6.4; squares 33.6², 9.4², 8.4², 7.4², 8.4²: 1413.2
+    v = told_apart(32.0, se, per_unit=d, unit_ids=["sp1", "sp2", "sp3", "sp4", "sp5"])
+    assert not v.told_apart
+    assert v.reasons[-1] == ("undone when sp1 alone is dropped (with only 5 units the difference goes from +32.0 "
+                             "to -8.0 nats, changing its sign; leave-one-unit-out check)")
+    assert v.reasons[0].startswith("within 2 SE of the difference")
+
+
+def test_rule_few_units_lead_that_one_unit_brings_below_four_nats():
+    # d = (4.5, 0.875, 0.875, 0.875, 0.875): total 8.0, mean 1.6, deviations 2.9 and -0.725 (x4), sum of squares
+    # 8.41 + 2.1025 = 10.5125, SE = sqrt(5 x 10.5125 / 4) = 3.625; 8 >= 4 and 8 > 2 x 3.625 = 7.25, so on the SE
+    # alone it would be clear; without the first unit 3.5 nats are left, below 4: not clear.
+    d = np.array([4.5, 0.875, 0.875, 0.875, 0.875])
+    se = np.sqrt(5 * np.var(d, ddof=1))
+    assert se == pytest.approx(np.sqrt(5 * 10.5125 / 4))
+    assert told_apart(8.0, se).told_apart
+    v = told_apart(8.0, se, per_unit=d, unit_ids=list("abcde"))
+    assert not v.told_apart
+    assert v.reasons == ("undone when a alone is dropped (with only 5 units the difference goes from +8.0 to "
+                         "+3.5 nats, less than 4 in size; leave-one-unit-out check)",)
+    # spread evenly (1.6 each) the lead keeps >= 4 nats without any one unit (6.4): clear
+    assert told_apart(8.0, 0.0, per_unit=np.full(5, 1.6)).told_apart
+    # with 10 units the check no longer applies
+    assert told_apart(8.0, se, per_unit=np.r_[d, np.zeros(5)]).told_apart
+
+
+def test_ranking_table_sees_the_monte_carlo_and_quadrature_example():
+    # The reviewer's example through rank() and summary_notes(): a 4.4-nat lead, SE_diff 0.15, the leader's MCSE
+    # 3.3 nats (sqrt(30) x 3.3/sqrt(30)) and summed bounds 3.0 nats (30 x 0.1): not told apart, not clear.
+    rng = np.random.default_rng(21)
+    base = rng.normal(-20, 2, G)
+    a = 0.15 / np.sqrt(G * G / (G - 1))                  # alternating +-a gives se_diff = sqrt(G G a² / (G - 1))
+    lead = base + 4.4 / G + np.where(np.arange(G) % 2 == 0, a, -a)
+    results = [make("A", lead, mcse_i=np.full(G, 3.3 / np.sqrt(G)), quad_bound_i=np.full(G, 0.1)),
+               make("B", base, mcse_i=np.zeros(G), quad_bound_i=np.zeros(G))]
+    table = rank(results).set_index("structure")
+    assert table.loc["B", "elpd_diff"] == pytest.approx(-4.4) and table.loc["B", "se_diff"] == pytest.approx(0.15)
+    assert table.loc["A", "mcse"] == pytest.approx(3.3) and table.loc["A", "quad_bound"] == pytest.approx(3.0)
+    assert table.loc["B", "warnings"].startswith(f"{NOT_TOLD_APART}: within the margin")
+    note = summary_notes(table.reset_index(), G)[0]
+    assert note.startswith("A has the highest elpd, but its lead over B (4.4 nats, SE 0.1)")  # 0.15 shown as 0.1
+    assert "is not clear" in note and "= 9.6 nats" in note
+    # the same lead without the Monte Carlo error and the bounds is clear
+    clean = rank([make("A", lead), make("B", base)])
+    assert NOT_TOLD_APART not in clean["warnings"].iloc[1]
+    assert summary_notes(clean, G)[0].startswith("A predicts new leaves best; its lead over B")

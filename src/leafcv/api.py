@@ -256,7 +256,8 @@ class Run:
 
     @property
     def ranking(self) -> pd.DataFrame:
-        """ranking.csv: one row per structure (columns as in DESIGN.md, plus ``mcse``)."""
+        """ranking.csv: one row per structure (columns as in DESIGN.md, plus ``mcse`` and ``quad_bound``,
+        the summed per-unit quadrature bound)."""
         return self._table("ranking.csv")
 
     @property

@@ -227,12 +227,13 @@ def write_ranking(out: Path, results: list[CVResult], all_details: dict[str, dic
     ``n_leaves`` is the number of held-out units (leaves, or levels of the results' unit).
     """
     table = rank(results)
+    pointwise = pointwise_table(results)
     write_atomic(out / "ranking.csv", table.to_csv(index=False))
-    notes = summary_notes(table, n_leaves, results[0].unit)
+    notes = summary_notes(table, n_leaves, results[0].unit, pointwise)
     spot = [spot_check_line(name, s) for name, d in all_details.items() for s in d.get("spot_checks", [])]
     text = format_ranking(table) + "\n\n" + "\n".join(notes + spot) + "\n"
     write_atomic(out / "ranking.txt", text)
-    write_atomic(out / "pointwise.csv", pointwise_table(results).to_csv(index=False))
+    write_atomic(out / "pointwise.csv", pointwise.to_csv(index=False))
     return text, table
 
 

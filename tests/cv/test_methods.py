@@ -8,7 +8,7 @@ from dataclasses import replace
 import numpy as np
 import pytest
 
-from leafcv.cv.methods import MAX_ATTEMPTS, cross_validate, folds_for, remedy
+from leafcv.cv.methods import MAX_ATTEMPTS, cross_validate, folds_for, remedy, spot_tolerance
 from leafcv.inits import fit_leaves
 from leafcv.spec import SamplerSpec
 from ..fakes import FakeEngine
@@ -114,3 +114,63 @@ def test_seeds_near_the_top_of_the_range_wrap_instead_of_overflowing(quick_demo)
     seeds = [f["seed"] for f in det.fits]
     assert len(seeds) >= 4 and all(0 <= s <= MAX_SEED for s in seeds)
     assert seeds[0] == MAX_SEED and seeds[1] == (MAX_SEED + 7919) % 2**32      # the retry of the full fit
+
+
+def test_spot_tolerance_adds_both_quadrature_bounds():
+    # max(0.1, 3 x hypot(0.03, 0.04)) = max(0.1, 3 x 0.05) = 0.15, plus 0.2 + 0.3 = 0.65
+    assert spot_tolerance(0.03, 0.04, 0.2, 0.3) == pytest.approx(0.65)
+    # the floor: max(0.1, 3 x 0.01) = 0.1, plus 0.05 + 0 = 0.15
+    assert spot_tolerance(0.01, 0.0, 0.05, 0.0) == pytest.approx(0.15)
+    # not computed (NaN) counts as 0
+    assert spot_tolerance(np.nan, 0.04, np.nan, 0.3) == pytest.approx(max(0.1, 0.12) + 0.3)
+
+
+def test_spot_checks_allow_for_both_leaves_quadrature_bounds(quick_demo, monkeypatch):
+    """PSIS made wrong by 1 nat on every leaf while every leaf's quadrature bound is 0.75 nats (PSIS and refit
+    alike). The fake engine's MCSE is tiny, so max(0.1, 3 x MCSE) alone would call each spot check a
+    disagreement; with both bounds added (>= 0.1 + 0.75 + 0.75 = 1.6) the gap of about 1 nat is within the
+    stated accuracy, and the PSIS values stay."""
+    import leafcv.cv.methods as methods
+    import leafcv.cv.plan as plan
+
+    real_loo, real_score = plan.integrated_loo, methods.score_leaves
+
+    def off(log_m, chains=1):
+        est = real_loo(log_m, chains)
+        return replace(est, elpd=est.elpd + 1.0, khat=np.zeros_like(est.khat))
+
+    def loose(*args, **kwargs):
+        sc = real_score(*args, **kwargs)
+        return replace(sc, quad=[replace(q, bound=0.75) for q in sc.quad])
+
+    monkeypatch.setattr(plan, "integrated_loo", off)
+    monkeypatch.setattr(methods, "score_leaves", loose)
+    comparison, dataset, _ = quick_demo
+    res, det = cross_validate(pooled_structure(comparison), dataset, comparison, method="auto", spot_checks=2,
+                              engine=FakeEngine(), leaf_fits=fit_leaves(dataset),
+                              sampler=SamplerSpec(chains=4, warmup=50, draws=200, seed=5))
+    assert len(det.spot_checks) == 2
+    for s in det.spot_checks:
+        assert s["bound_psis"] == 0.75 and s["bound_exact"] == 0.75
+        without_bounds = max(0.1, 3 * np.hypot(s["mcse_psis"], s["mcse_exact"]))
+        assert s["tolerance"] == pytest.approx(without_bounds + 1.5)
+        assert without_bounds < abs(s["elpd_psis"] - s["elpd_exact"]) <= s["tolerance"]
+        assert not s["disagree"]
+    assert set(res.method_i) == {"psis"}                 # no spot check replaced a PSIS value
+
+
+@pytest.mark.parametrize("method,by,folds", [("kfold", "leaf", 2), ("exact", "taxon", 0)])
+def test_fold_and_level_results_count_the_draws_kept_after_a_retry(quick_demo, method, by, folds):
+    # every refit's first attempt has split chains (150 draws < 200), so it is retried with twice the draws or
+    # more (remedy: mixing): the result must record the draws behind its scores (the fewest of any fold's kept
+    # fit), not the planned 2 x 150
+    comparison, dataset, _ = quick_demo
+    engine = FakeEngine(split_below=200)
+    res, det = cross_validate(pooled_structure(comparison), dataset, comparison, method=method, by=by, folds=folds,
+                              engine=engine, leaf_fits=fit_leaves(dataset),
+                              sampler=SamplerSpec(chains=2, warmup=50, draws=150, seed=6))
+    kept = [f for f in det.fits if f["kept"]]
+    assert kept and all(f["attempt"] >= 2 and f["draws"] >= 300 for f in kept)
+    assert res.n_draws == min(f["chains"] * f["draws"] for f in kept) >= 2 * 300
+    # the k-hat threshold min(1 - 1/log10 S, 0.7) of the real S (Vehtari et al. 2024)
+    assert res.khat_threshold == pytest.approx(min(1 - 1 / np.log10(res.n_draws), 0.7))

@@ -107,21 +107,30 @@ def test_the_decision_names_best_close_structures_weights_and_the_question(writt
     run, _, html = written
     ranking = pd.read_csv(run / "ranking.csv")
     decision = html[html.index('<section id="decision">'):html.index('<section id="ranking">')]
-    assert "The best ranked structure is traits-month-fixed</b>" in decision
+    # the failed traits-month-fixed-t scores higher, so the leader is only the best among the reliably scored
+    assert "traits-month-fixed is the best among the reliably scored structures</b>" in decision
+    assert "The best structure is" not in decision
     close = ranking.set_index("structure").loc["traits-month-random"]
     diff = f"{close['elpd_diff']:.1f}".replace("-", "−")
-    assert (f"Not distinguishable from it (within 2 SE of the difference or 4 nats): traits-month-random "
-            f"(Δelpd {diff} ± {close['se_diff']:.1f})") in decision
+    assert (f"Not told apart from it (leafcv's decision rule, see Methods): traits-month-random "
+            f"(Δelpd {diff} ± {close['se_diff']:.1f}: smaller than 4 nats") in decision
     assert "leaf-vcmax (Δelpd" not in decision                         # 20 nats behind: told apart
     assert "are <b>not</b> posterior probabilities that a structure is true" in decision
     assert f"<i>{QUESTION}</i>" in decision                            # two comment lines, cut at the "?"
 
 
 def test_a_failed_structure_that_scores_higher_is_announced_before_the_best(written):
-    _, _, html = written
-    announced = html.index("<b>Announced first:</b> traits-month-fixed-t scored")
-    assert announced < html.index("The best ranked structure is")
-    assert "not ranked (fits did not converge)" in html
+    run, _, html = written
+    ranking = pd.read_csv(run / "ranking.csv")
+    d = ranking.set_index("structure").loc["traits-month-fixed-t", "elpd_diff"]
+    sentence = (f"traits-month-fixed-t&#x27;s fits did not pass their diagnostics; its score, {d:.1f} nats higher, "
+                "would make it the best; see Diagnostics.")
+    announced = html.index(f"<b>Announced first:</b> {sentence}")
+    assert announced < html.index("is the best among the reliably scored structures</b>")
+    assert html.index('<div class="box">') < announced                 # in the decision box
+    assert "traits-month-fixed-t (fits did not converge)" in html
+    # ranking.txt (the terminal's summary) names it in the same words
+    assert sentence.replace("&#x27;", "'") in (run / "ranking.txt").read_text()
 
 
 def test_contrasts_are_the_one_term_pairs_with_paired_differences(written):

@@ -17,9 +17,11 @@ def test_auto_agrees_with_exact_refits_on_spot_checks(demo_run):
     spots = res["details"]["spot_checks"]
     assert len(spots) == 3
     for s in spots:
-        # within the stated tolerance max(0.1 nats, 3 x combined MCSE), and never silently: the check is stored
+        # within the stated tolerance max(0.1 nats, 3 x combined MCSE) plus both quadrature bounds, and never
+        # silently: the check is stored
         assert abs(s["elpd_psis"] - s["elpd_exact"]) <= s["tolerance"], s
-        assert s["tolerance"] == max(0.1, 3 * np.hypot(s["mcse_psis"], s["mcse_exact"]))
+        assert s["tolerance"] == max(0.1, 3 * np.hypot(s["mcse_psis"], s["mcse_exact"])) + s["bound_psis"] \
+            + s["bound_exact"]
         assert not s["disagree"]
 
 
@@ -33,9 +35,9 @@ def test_generating_structure_ranks_first_or_within_2_se(demo_run):
 
 def test_run_folder_and_resume(demo_run):
     comp, dataset, out, table = demo_run
-    cols = ["structure", "rank", "elpd", "se", "mcse", "elpd_diff", "se_diff", "weight", "rmse", "r2",
+    cols = ["structure", "rank", "elpd", "se", "mcse", "quad_bound", "elpd_diff", "se_diff", "weight", "rmse", "r2",
             "rmse_aci", "r2_aci", "rmse_aq", "r2_aq", "n_refits", "max_khat", "converged", "warnings"]
-    assert list(table.columns) == cols          # DESIGN.md, "Ranking table columns"
+    assert list(table.columns) == cols          # DESIGN.md, "Ranking table columns", plus quad_bound
     import pandas as pd
 
     csv = pd.read_csv(out / "ranking.csv")

@@ -4,8 +4,8 @@ auto: one full-data fit; per-leaf marginal likelihoods by checked quadrature; in
 psislw) with Monte Carlo errors; exact refits for every leaf whose Pareto k-hat is above
 min(1 - 1/log10 S, 0.7) (Vehtari et al. 2024), however many, so that every structure estimates the
 same quantity (leave-one-leaf-out) on the same leaves; plus a few seeded spot-check leaves. A spot
-check that disagrees with PSIS beyond max(SPOT_MIN_NATS, SPOT_MCSE_MULTIPLE x combined MCSE) replaces
-the PSIS value and raises a warning; when two or more disagree, every leaf is refitted.
+check that disagrees with PSIS beyond max(SPOT_MIN_NATS, SPOT_MCSE_MULTIPLE x combined MCSE) plus both
+values' quadrature bounds (`spot_tolerance`) replaces the PSIS value and raises a warning; when two or more disagree, every leaf is refitted.
 exact: one refit per held-out fold (a leaf, or a level of a grouping). kfold: K seeded grouped folds.
 Every held-out leaf is scored jointly over its points, with its effects integrated out.
 
@@ -53,11 +53,24 @@ KFOLD_SEED_OFFSET = 5000
 SEED_MODULUS = 2**32
 #: Stream of the run seed that orders leaves for spot checks (the same leaves for every structure).
 SPOT_STREAM = 17
-#: A spot check disagrees when |PSIS - exact| > max(SPOT_MIN_NATS, SPOT_MCSE_MULTIPLE sqrt(mcse_psis^2 + mcse_exact^2)).
+#: A spot check disagrees when |PSIS - exact| > max(SPOT_MIN_NATS, SPOT_MCSE_MULTIPLE sqrt(mcse_psis^2 + mcse_exact^2))
+#: + bound_psis + bound_exact (`spot_tolerance`; the multiple and the floor: common practice, no source).
 SPOT_MIN_NATS = 0.1
 SPOT_MCSE_MULTIPLE = 3.0
 #: Spot checks that must disagree before every leaf of the structure is refitted.
 SPOT_DISAGREE_REFIT_ALL = 2
+
+
+def spot_tolerance(mcse_psis: float, mcse_exact: float, bound_psis: float, bound_exact: float) -> float:
+    """How far (nats) a leaf's PSIS and exact values may differ before a spot check disagrees:
+    max(SPOT_MIN_NATS, SPOT_MCSE_MULTIPLE x sqrt(mcse_psis^2 + mcse_exact^2)) + bound_psis + bound_exact.
+
+    Both values carry a Monte Carlo error and a quadrature error bound, and either may account for a
+    difference. A NaN MCSE or bound (not computed) counts as 0.
+    """
+    mc = float(np.hypot(*(0.0 if np.isnan(m) else float(m) for m in (mcse_psis, mcse_exact))))
+    bounds = sum(0.0 if np.isnan(b) else float(b) for b in (bound_psis, bound_exact))
+    return max(SPOT_MIN_NATS, SPOT_MCSE_MULTIPLE * mc) + bounds
 
 
 @dataclass

@@ -207,7 +207,7 @@ def execute(ctx: Context, task: Task, inputs: dict[str, TaskOutput]) -> TaskOutp
                            retry_marginal=p.get("retry_marginal", True))
     sc = score_leaves(fit, dataset, held, ctx.leaf_fits, in_fit=False)
     grade = fit.diagnostics.grade
-    record: dict = {"fits": details.fits, "grade": grade, "held": held}
+    record: dict = {"fits": details.fits, "grade": grade, "held": held, "n_draws": int(sc.log_m.shape[0])}
     if task.kind == "level":
         by = p["by"]
         level_of = dataset.leaves[by].astype(str).to_numpy()
@@ -246,7 +246,7 @@ def plan(structure: Structure, dataset: Dataset, comparison: Comparison, *, samp
     was made), ``log_m``, ``points`` and ``curves``."""
     from .methods import (REFIT_SEED_OFFSET, _fold_seed_base, SPOT_DISAGREE_REFIT_ALL, SPOT_MCSE_MULTIPLE,
                           SPOT_MIN_NATS, SPOT_STREAM, CVDetails, _fit_warnings, _Leafwise, _note_quadrature,
-                          _prediction_scores, _set_curve, folds_for)
+                          _prediction_scores, _set_curve, folds_for, spot_tolerance)
     from ..diagnostics import worst_grade
     from .predictions import curves_table, points_table
     from .psis import khat_threshold
@@ -337,18 +337,20 @@ def plan(structure: Structure, dataset: Dataset, comparison: Comparison, *, samp
         replace_leaves = list(flagged)
         disagree = []
         for g in spots:
-            e, m = ex[g][0], ex[g][1]
-            tol = max(SPOT_MIN_NATS, SPOT_MCSE_MULTIPLE * float(np.hypot(acc.mcse[g], m)))
+            e, m, b = ex[g][0], ex[g][1], ex[g][2]
+            tol = spot_tolerance(acc.mcse[g], m, acc.bound[g], b)
             bad = abs(acc.elpd[g] - e) > tol
             details.spot_checks.append({"leaf": leaf_ids[g], "khat": float(acc.khat[g]), "elpd_psis": float(acc.elpd[g]),
                                         "elpd_exact": float(e), "mcse_psis": float(acc.mcse[g]), "mcse_exact": float(m),
+                                        "bound_psis": float(acc.bound[g]), "bound_exact": float(b),
                                         "tolerance": tol, "disagree": bool(bad), "refit_grade": ex[g][5]})
             if bad:
                 disagree.append(g)
                 replace_leaves.append(g)
         if disagree:
             details.notes.append(f"spot check(s) of {', '.join(leaf_ids[g] for g in disagree)} disagree with PSIS "
-                                 f"beyond max({SPOT_MIN_NATS:g} nats, {SPOT_MCSE_MULTIPLE:g} x MCSE): the exact values are used")
+                                 f"beyond max({SPOT_MIN_NATS:g} nats, {SPOT_MCSE_MULTIPLE:g} x MCSE) plus both quadrature "
+                                 "bounds: the exact values are used")
         if len(disagree) >= SPOT_DISAGREE_REFIT_ALL:
             rest = [g for g in range(L) if g not in todo]
             more = yield from refits(rest, frozenset())
@@ -395,8 +397,9 @@ def plan(structure: Structure, dataset: Dataset, comparison: Comparison, *, samp
             details.refit_seconds += o.record["seconds"]
             grades.append(o.record["grade"])
         n_refits = len(fold_sets)
+        n_draws = _kept_draws(outs)
         if by != LEAF_TERM:
-            return (yield from _assemble_levels(structure, dataset, by, method, sampler, details, outs, grades,
+            return (yield from _assemble_levels(structure, dataset, by, method, n_draws, details, outs, grades,
                                                 keep, estimates, full_and_scores))
         quads = {}
         for o in outs:
@@ -423,6 +426,12 @@ def plan(structure: Structure, dataset: Dataset, comparison: Comparison, *, samp
     return result, details, keep
 
 
+def _kept_draws(outs: list[TaskOutput]) -> int:
+    """The draws behind the scores of refit, fold or level tasks: the fewest any of their kept fits has
+    (a retry may have doubled a fold's draws; the k-hat threshold and ArviZ's n_samples use this)."""
+    return min(int(o.record["n_draws"]) for o in outs)
+
+
 def _check_planned(structure: Structure, dataset: Dataset, held) -> None:
     """Refuse, before any task runs, a fold whose held-out curve types no training leaf has."""
     from .methods import _check_curve_types
@@ -441,7 +450,7 @@ def _estimates(keep: dict, full_and_scores, L: int):
     keep.update(full_output=out, log_m=log_m)
 
 
-def _assemble_levels(structure, dataset, by, method, sampler, details, outs, grades, keep, estimates,
+def _assemble_levels(structure, dataset, by, method, n_draws, details, outs, grades, keep, estimates,
                      full_and_scores):
     """Leave-one-level-out (or K folds of levels): each level scored jointly; SEs over levels."""
     from .methods import _fit_warnings, _prediction_scores
@@ -472,7 +481,7 @@ def _assemble_levels(structure, dataset, by, method, sampler, details, outs, gra
     grade = worst_grade(grades)
     warnings = _fit_warnings(details, grade) + details.notes
     unscored = ("the held-out quadrature did not settle for " + ", ".join(unresolved)) if unresolved else ""
-    result = CVResult(structure.name, method, tuple(levels), elpd, sampler.chains * sampler.draws,
+    result = CVResult(structure.name, method, tuple(levels), elpd, n_draws,
                       n_refits=len(outs), grade=grade, warnings=tuple(warnings), rmse=rmse, r2=r2, mcse_i=mcse,
                       quad_bound_i=bound, unscored=unscored, unit=by)
     return result, details, keep

@@ -81,11 +81,12 @@ def spot_table(run: RunFolder) -> pd.DataFrame:
             rows.append({"structure": name, "leaf": s.get("leaf"), "khat": json_float(s.get("khat")),
                          "elpd_psis": json_float(s.get("elpd_psis", s.get("elpd_auto"))),
                          "mcse_psis": json_float(s.get("mcse_psis")), "elpd_exact": json_float(s.get("elpd_exact")),
-                         "mcse_exact": json_float(s.get("mcse_exact")), "tolerance": json_float(s.get("tolerance")),
+                         "mcse_exact": json_float(s.get("mcse_exact")), "bound_psis": json_float(s.get("bound_psis")),
+                         "bound_exact": json_float(s.get("bound_exact")), "tolerance": json_float(s.get("tolerance")),
                          "agrees": "no: exact value used" if s.get("disagree") else "yes",
                          "refit_grade": s.get("refit_grade", "")})
     return pd.DataFrame(rows, columns=["structure", "leaf", "khat", "elpd_psis", "mcse_psis", "elpd_exact",
-                                       "mcse_exact", "tolerance", "agrees", "refit_grade"])
+                                       "mcse_exact", "bound_psis", "bound_exact", "tolerance", "agrees", "refit_grade"])
 
 
 def thresholds(run: RunFolder) -> dict[str, float]:
@@ -160,9 +161,11 @@ def diagnostics_html(run: RunFolder, tables: Tables, khat_figure_html: str) -> s
             Column("structure", "structure"), Column("leaf", "unit"), Column("khat", "k̂", ".2f"),
             Column("elpd_psis", "PSIS elpd", ".2f"), Column("mcse_psis", "MCSE", ".2f"),
             Column("elpd_exact", "exact elpd", ".2f"), Column("mcse_exact", "MCSE", ".2f"),
+            Column("bound_psis", "bound (PSIS)", ".3f"), Column("bound_exact", "bound (exact)", ".3f"),
             Column("tolerance", "tolerance", ".2f"), Column("agrees", "agrees")],
-            "Units chosen at random (seeded) among those not flagged by k̂; a disagreement beyond the tolerance "
-            "replaces the PSIS value by the exact one."))
+            "Units chosen at random (seeded) among those not flagged by k̂; a disagreement beyond the tolerance, "
+            "max(0.1 nats, 3 × the combined MCSE) plus both values' quadrature bounds, replaces the PSIS value by "
+            "the exact one."))
     parts.append("<h3>Pareto k̂ per unit</h3>" + khat_figure_html)
     warned = [(n, r.get("warnings", []), r.get("details", {}).get("notes", [])) for n, r in run.results.items()]
     lines = [f"<li><b>{esc(n)}</b>: {esc('; '.join(dict.fromkeys([*w, *nt])))}</li>" for n, w, nt in warned if w or nt]

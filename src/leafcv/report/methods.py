@@ -8,7 +8,7 @@ from pathlib import Path
 import pandas as pd
 
 from ..manifest import file_hash
-from ..ranking import FEW_LEAVES, SE_MULTIPLE, SMALL_DIFF, units_word
+from ..ranking import FEW_LEAVES, RULE_WORDS, units_word
 from .html import Column, Tables, esc
 from .run import RunFolder
 from .terms import OPTION_WORDS
@@ -156,8 +156,10 @@ def methods_html(run: RunFolder) -> str:
           "computed from the chains. Stacking weights (Yao et al. 2018) are reported as the weights of the best "
           "predictive mix, not as model probabilities. Structures whose fits failed their diagnostics, or that "
           "could not be scored reliably, are listed without a rank.</p>")
-    p3 = (f"<p><b>Uncertainty and caveats.</b> A difference of less than {SMALL_DIFF:g} nats, or within "
-          f"{SE_MULTIPLE:g} SE of the difference, is not taken as a preference (Sivula et al. 2020). The SE of a "
+    p3 = (f"<p><b>Uncertainty and caveats.</b> One decision rule serves the ranking and this report alike. "
+          f"{esc(RULE_WORDS)} Such structures are not taken as preferred over one another; a structure that could "
+          "not be ranked but scored higher than the best ranked one is named first, and the leader is then only "
+          "the best among the reliably scored structures. The SE of a "
           "difference rests on a normal approximation that is rough with few units"
           + (f" (here {n_units} {units}, fewer than {FEW_LEAVES})" if n_units < FEW_LEAVES else "")
           + " and can be too small when two structures predict almost alike (Sivula et al. 2020). Monte Carlo "

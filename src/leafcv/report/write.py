@@ -44,13 +44,14 @@ def _ranking_html(run: RunFolder, tables: Tables) -> str:
                       else "not scored") for c, r, w in zip(table["converged"], table["rank"], table["warnings"])]
     cols = [Column("rank", "rank", ".0f"), Column("structure", "structure"), Column("elpd", "elpd", ".1f"),
             Column("se", "SE", ".1f"), Column("elpd_diff", "Δelpd", ".1f"), Column("se_diff", "SE_diff", ".1f"),
-            Column("weight", "weight", ".2f"), Column("mcse", "MCSE", ".2f"), Column("rmse", "RMSE", ".3g"),
+            Column("weight", "weight", ".2f"), Column("mcse", "MCSE", ".2f"),
+            *([Column("quad_bound", "quad. bound", ".2f")] if "quad_bound" in table else []), Column("rmse", "RMSE", ".3g"),
             Column("r2", "R²", ".3g"),
             Column("n_refits", "refits", ".0f"), Column("max_khat", "max k̂", ".2f"), Column("grade", "converged")]
     parts.append(tables.render("ranking", table, cols,
                                "The ranking (ranking.csv): elpd in nats; RMSE (µmol m⁻² s⁻¹) and R² of held-out "
-                               "predictions of all points (per curve type in the CSV); max k̂ over units scored "
-                               "by PSIS."))
+                               "predictions of all points (per curve type in the CSV); quad. bound: the structure's summed "
+                               "per-unit quadrature bounds (nats); max k̂ over units scored by PSIS."))
     warned = [(s, w) for s, w in zip(table["structure"], table["warnings"]) if w]
     if warned:
         parts.append("<p>Warnings:</p><ul>" + "".join(f"<li><b>{esc(s)}</b>: {esc(w)}</li>" for s, w in warned)
