@@ -68,7 +68,46 @@ def _parser() -> argparse.ArgumentParser:
                    help="also the expected A at these conditions: columns intercellular_co2, photon_flux, "
                         "leaf_temperature (and optionally oxygen)")
     q.add_argument("--out", type=Path, metavar="DIR", help="also write parameters.csv (and assimilation.csv) here")
+    s = sub.add_parser("simulate", help="how reliable is the choice: replicate studies drawn from a fitted structure, "
+                                        "compared over the same candidates")
+    s.add_argument("rundir", type=Path)
+    s.add_argument("--structure", help="the generating structure (default: the best ranked)")
+    s.add_argument("--replicates", type=int, default=20, metavar="K", help="replicate studies (default 20)")
+    s.add_argument("--leaves-per-level", type=int, metavar="N",
+                   help="resize the design to N leaves in every level of --level-of (default: the run's own design)")
+    s.add_argument("--level-of", metavar="COLUMN", help="the grouping --leaves-per-level counts in (default: the first)")
+    s.add_argument("--out", type=Path, metavar="DIR",
+                   help="the simulation's folder (default RUNDIR/simulation, which the run's report shows)")
+    for flag, what in (("--chains", "chains"), ("--warmup", "warm-up draws"), ("--draws", "draws")):
+        s.add_argument(flag, type=int, metavar="N", help=f"{what} per replicate fit (default: the run's)")
+    s.add_argument("--workers", type=int, metavar="N", help="as for compare")
+    s.add_argument("--scheduler", metavar="ADDRESS", help="as for compare")
+    s.add_argument("--progress", choices=("bar", "plain", "quiet"), help="as for compare")
     return p
+
+
+def cmd_simulate(args) -> int:
+    from .api import open_run
+
+    run = open_run(args.rundir)
+    t = run.simulate(args.structure, replicates=args.replicates, leaves_per_level=args.leaves_per_level,
+                     level_of=args.level_of, out=args.out, chains=args.chains, warmup=args.warmup, draws=args.draws,
+                     workers=args.workers, scheduler=args.scheduler, progress=args.progress)
+    cands = t["candidates"]
+    gen = cands.loc[cands["generating"], "structure"]
+    print(f"\n{t['n_replicates']} replicate studies drawn from {gen.iloc[0] if len(gen) else '?'}:")
+    shown = cands.assign(share_first=(100 * cands["share_first"]).round(0),
+                         share_not_told_apart_from_first=(100 * cands["share_not_told_apart_from_first"]).round(0))
+    print(shown.rename(columns={"share_first": "% first", "share_not_told_apart_from_first": "% not told apart from first",
+                                "delta_median": "median Δelpd (generating − it)"})
+          [["structure", "% first", "% not told apart from first", "median Δelpd (generating − it)"]]
+          .to_string(index=False, float_format=lambda v: f"{v:.1f}"))
+    cov = t["coverage"]
+    if len(cov):
+        print(f"coverage of the generating structure's 90 % intervals: {cov['coverage'].min():.0%} to "
+              f"{cov['coverage'].max():.0%} over {len(cov)} quantities (coverage.csv)")
+    print(f"tables in {t['folder']}")
+    return EXIT_OK
 
 
 def cmd_predict(args) -> int:
@@ -202,7 +241,7 @@ def _progress(label: str):
 
 
 COMMANDS = {"check": cmd_check, "fit": cmd_fit, "compare": cmd_compare, "demo": cmd_demo, "report": cmd_report,
-            "predict": cmd_predict}
+            "predict": cmd_predict, "simulate": cmd_simulate}
 
 
 def _show_progress() -> None:

@@ -307,7 +307,7 @@ class BatchIncomplete(EngineError):
 def run_comparison(comparison: Comparison, dataset: Dataset, out: Path, *, method: str | None = None,
                    engine=None, log: Callable[[str], None] | None = None, spot_checks: int = 3,
                    sampler=None, workers: int | None = None, scheduler: str | None = None,
-                   progress: str | None = None) -> pd.DataFrame:
+                   progress: str | None = None, report: bool = True) -> pd.DataFrame:
     """Cross-validate every structure and rank them, every unit of work a task kept in the run folder's
     task store (`leafcv.batch`), so a re-run, or a run started again after being killed, recomputes only
     unfinished tasks. Messages go to ``log`` (default: the "leafcv" logger at INFO).
@@ -315,7 +315,8 @@ def run_comparison(comparison: Comparison, dataset: Dataset, out: Path, *, metho
     ``workers``: tasks run at once (default: one per core; 1 runs them in this process); ``scheduler``:
     a Dask scheduler address, or "local" for a LocalCluster of ``workers`` processes; ``progress``:
     "bar", "plain" or "quiet" (default: a bar on a terminal, else plain lines). ``engine``: tasks use it
-    in place of PyStan (tests); it must be picklable for worker processes.
+    in place of PyStan (tests); it must be picklable for worker processes. ``report``: write the HTML
+    report at the end (False for the replicate studies of a simulation).
     """
     import logging
 
@@ -326,11 +327,11 @@ def run_comparison(comparison: Comparison, dataset: Dataset, out: Path, *, metho
     with RunLock(out):
         return _run_locked(comparison, dataset, out, method=method, engine=engine, log=log,
                            spot_checks=spot_checks, sampler=sampler, workers=workers, scheduler=scheduler,
-                           progress=progress)
+                           progress=progress, report=report)
 
 
 def _run_locked(comparison, dataset, out, *, method, engine, log, spot_checks, sampler, workers, scheduler,
-                progress) -> pd.DataFrame:
+                progress, report=True) -> pd.DataFrame:
     from .batch.executors import DaskCluster, InProcess, Lazy, LocalProcesses, chains_at_once, default_workers
     from .batch.progress import Progress, default_mode
     from .batch.runner import Runner
@@ -472,9 +473,10 @@ def _run_locked(comparison, dataset, out, *, method, engine, log, spot_checks, s
     manifest["finished"] = time.strftime("%Y-%m-%dT%H:%M:%S%z")
     write_atomic(out / "manifest.json", json.dumps(manifest, indent=1))
     log(text)
-    from .report import write_report    # here: the report needs matplotlib, the scores do not
+    if report:
+        from .report import write_report    # here: the report needs matplotlib, the scores do not
 
-    log(f"report: {write_report(out)}")
+        log(f"report: {write_report(out)}")
     if failures:
         raise BatchIncomplete(
             f"{len(failures)} structure(s) not finished ({', '.join(failures)}): "
