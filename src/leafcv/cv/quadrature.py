@@ -552,8 +552,10 @@ def cell_log_marginals(
                     others = np.setdiff1d(all_rows, screen)
                     gap[others] = np.maximum(gap[others], 2 * worst)
                     todo = np.union1d(todo, others)
-                keep = trusted | (bg < gap[screen])
-                lm[screen[keep]], gap[screen[keep]] = bv[keep], bg[keep]
+                # brute force's value replaces the rules' where the two differ by more than both their gaps
+                # (on a smooth integrand the rules are the more exact, and their value stands)
+                better = trusted & (disc > gap[screen] + bg)
+                lm[screen[better]], gap[screen[better]] = bv[better], bg[better]
         n_brute += _brute_force_cells(loglik_rows, todo, lm, gap, mean, sd, mode, chol, tol, weighting,
                                       until_settled=first_level >= n_levels)
         todo = todo[gap[todo] > tol]
