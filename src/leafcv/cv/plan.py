@@ -62,8 +62,9 @@ class TaskOutput:
 
 @dataclass
 class Context:
-    """What every task of a comparison shares. ``engine``: None creates PyStan's in the process that
-    runs the task; ``chains_at_once``: chains one task runs at the same time (None: all)."""
+    """What every task of a comparison shares. ``engine``: an engine's name ("pystan", "cmdstan"; None:
+    PyStan), from which the process that runs a task builds its own engine, or an engine object (tests'
+    fakes); ``chains_at_once``: chains one task runs at the same time (None: all)."""
 
     comparison: Comparison
     dataset: Dataset
@@ -76,14 +77,15 @@ class Context:
 
     def __getstate__(self):
         state = dict(self.__dict__)
-        state["engine"] = None if getattr(self.engine, "name", "") == "pystan" else self.engine
+        if getattr(self.engine, "name", None) in ("pystan", "cmdstan"):
+            state["engine"] = self.engine.name      # each process builds (and compiles for) its own
         return state
 
     def get_engine(self):
-        if self.engine is None:
-            from ..engines.pystan_engine import PyStanEngine
+        if self.engine is None or isinstance(self.engine, str):
+            from ..engines.choice import make_engine
 
-            self.engine = PyStanEngine(chains_at_once=self.chains_at_once, compile_log=self.compile_log)
+            self.engine = make_engine(self.engine, chains_at_once=self.chains_at_once, compile_log=self.compile_log)
         return self.engine
 
 
