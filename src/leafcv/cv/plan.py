@@ -35,8 +35,9 @@ from .predictions import summarise_curves
 from .psis import integrated_loo, refit_elpd
 
 #: Version of task payloads and outputs: part of every task key, so a change of what a task computes
-#: never reuses an output stored by an earlier leafcv.
-TASK_VERSION = 2
+#: never reuses an output stored by an earlier leafcv. 3: PSIS by arviz-stats (its Pareto tail fit differs
+#: slightly from ArviZ 0.23's ``psislw``, so stored scores of version 2 are not reused).
+TASK_VERSION = 3
 #: Leaves scored per ``score`` task: blocks bound a worker's memory (curve draws of a block's leaves)
 #: and let several workers score one fit at once. The scores do not depend on the block size.
 SCORE_BLOCK = 16

@@ -169,6 +169,8 @@ class CmdStanEngine:
         inits: list[dict[str, Any]],
         progress: Callable[[int, int], None] | None = None,
     ) -> Draws:
+        from cmdstanpy import write_stan_json
+
         model = self.compile(program)
         if len(inits) != settings.chains:
             raise ValueError(f"{len(inits)} init sets for {settings.chains} chains")
@@ -178,11 +180,17 @@ class CmdStanEngine:
         try:
             with _quiet_cmdstanpy(messages):
                 try:
+                    # data and inits written here too (cmdstanpy's own folder empties only at exit)
+                    write_stan_json(os.path.join(out, "data.json"), dict(data))
+                    init_files = []
+                    for k, init in enumerate(inits, start=1):
+                        init_files.append(os.path.join(out, f"init-{k}.json"))
+                        write_stan_json(init_files[-1], dict(init))
                     fit = model.sample(
-                        data={k: np.asarray(v) if isinstance(v, (list, tuple)) else v for k, v in data.items()},
+                        data=os.path.join(out, "data.json"),
                         chains=settings.chains, chain_ids=list(range(1, settings.chains + 1)),
                         parallel_chains=min(settings.chains, self.chains_at_once or settings.chains),
-                        seed=int(seed), inits=[dict(i) for i in inits],
+                        seed=int(seed), inits=init_files,
                         iter_warmup=int(settings.warmup), iter_sampling=int(settings.draws),
                         adapt_delta=float(settings.adapt_delta), max_treedepth=int(settings.max_treedepth),
                         output_dir=out, sig_figs=SIG_FIGS, show_progress=False, force_one_process_per_chain=True)
