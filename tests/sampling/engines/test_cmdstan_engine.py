@@ -60,3 +60,35 @@ def test_a_cmdstan_fit_leaves_no_csv_files(both_fits, tmp_path, monkeypatch, qui
     fit_structure(comparison.structure("leaf-vcmax-alpha"), dataset, comparison.data,
                   SamplerSpec(chains=2, warmup=30, draws=10, seed=3), engine=cmdstan_engine)
     assert list(tmp_path.iterdir()) == []
+
+
+def test_a_cmdstan_run_scores_as_the_pystan_run(demo_run, cmdstan_engine, tmp_path):
+    # The session's run (PyStan) repeated for one of its structures with engine "cmdstan" by name, in local
+    # worker processes (the name travels with the tasks; each worker builds its own engine): the same
+    # draws give the same scores, leaf by leaf. Task keys differ (the engine is part of them), so nothing is
+    # shared between the two run folders.
+    from dataclasses import replace
+
+    import pandas as pd
+
+    from leafcv.compare import run_comparison
+
+    comp, dataset, out, _ = demo_run
+    one = replace(comp, structures=(comp.structure("traits-month-fixed"),))
+    run_comparison(one, dataset, tmp_path / "run", engine="cmdstan", workers=2, log=lambda _: None)
+    a = pd.read_csv(out / "pointwise.csv").set_index("leaf")
+    b = pd.read_csv(tmp_path / "run" / "pointwise.csv").set_index("leaf")
+    cols = [c for c in b.columns if c.endswith(":traits-month-fixed")]
+    assert len(cols) >= 4
+    for col in cols:
+        if pd.api.types.is_numeric_dtype(b[col]):
+            np.testing.assert_allclose(b[col], a.loc[b.index, col], rtol=0, atol=1e-8, err_msg=col)
+        else:
+            assert list(b[col]) == list(a.loc[b.index, col]), col
+    ranked = pd.read_csv(out / "ranking.csv").set_index("structure").loc["traits-month-fixed"]
+    alone = pd.read_csv(tmp_path / "run" / "ranking.csv").set_index("structure").loc["traits-month-fixed"]
+    for col in ("elpd", "se", "mcse", "rmse", "r2", "n_refits", "max_khat"):
+        assert alone[col] == pytest.approx(ranked[col], abs=1e-8), col
+    manifest = __import__("json").loads((tmp_path / "run" / "manifest.json").read_text())
+    assert manifest["engine"]["name"] == "cmdstan" and manifest["engine"]["version"].startswith("CmdStan 2.35")
+    assert not set((out / "tasks").glob("*.json")) & set((tmp_path / "run" / "tasks").glob("*.json"))
