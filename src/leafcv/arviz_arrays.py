@@ -35,3 +35,8 @@ def psislw(log_ratios: np.ndarray, r_eff: float = 1.0) -> tuple[np.ndarray, floa
     arviz-stats' ``psislw`` takes the log likelihood itself (the ratios' negative), unlike ArviZ 0.x's."""
     lw, k = _stats().psislw(-np.asarray(log_ratios, float), r_eff=float(r_eff))
     return np.asarray(lw, float), float(k)
+
+
+def mcse(x: np.ndarray, method: str = "mean") -> float:
+    """Monte Carlo standard error of the mean (or ``sd``, ...) of a (chain, draw) array (Vehtari et al. 2021)."""
+    return float(_stats().mcse(np.asarray(x, float), method=method, chain_axis=0, draw_axis=1))

@@ -96,10 +96,21 @@ def _stan_version(header) -> str:
 
 
 def _cmdstan_version() -> str:
+    """MAJOR.MINOR.PATCH from the CmdStan folder's makefile (cmdstanpy's own reading keeps MAJOR.MINOR)."""
+    import re
+    from pathlib import Path
+
     import cmdstanpy
 
-    found = cmdstanpy.cmdstan_version()
-    return ".".join(map(str, found)) if found else "unknown"
+    try:
+        text = (Path(cmdstan_folder()) / "makefile").read_text()
+        found = re.search(r"(?m)^CMDSTAN_VERSION := (\S+)", text)
+        if found:
+            return found.group(1)
+    except OSError:
+        pass
+    version = cmdstanpy.cmdstan_version()
+    return ".".join(map(str, version)) if version else "unknown"
 
 
 def make_engine(engine: Any, *, chains_at_once: int | None = None, compile_log: str | None = None, log=None):
