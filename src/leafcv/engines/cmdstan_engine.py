@@ -197,6 +197,7 @@ class CmdStanEngine:
                 except Exception as exc:
                     raise EngineError(f"CmdStan sampling failed: {exc}", "\n".join(messages) + "\n" + str(exc)) from exc
                 seconds = time.perf_counter() - start
+                messages += _console_messages(fit)
                 draws = _to_draws(fit, self._info[program], inits[0], settings, seed, seconds, messages)
         finally:
             shutil.rmtree(out, ignore_errors=True)
@@ -204,6 +205,23 @@ class CmdStanEngine:
             total = settings.chains * (settings.warmup + settings.draws)
             progress(total, total)
         return draws
+
+
+#: Lines of CmdStan's console output kept as the fit's messages (rejections, exceptions, warnings); the
+#: rest is progress and the echo of its arguments.
+_KEPT = ("Informational Message", "Exception", "Warning", "Rejecting", "If this warning")
+
+
+def _console_messages(fit: Any) -> list[str]:
+    """Stan's messages from each chain's console output (read before its folder is removed)."""
+    kept = []
+    for path in getattr(fit.runset, "stdout_files", []):
+        try:
+            lines = Path(path).read_text(errors="replace").splitlines()
+        except OSError:
+            continue
+        kept += [line.strip() for line in lines if line.strip().startswith(_KEPT)]
+    return kept
 
 
 def _to_draws(fit: Any, info: dict, init: dict[str, Any], settings: SamplerSpec, seed: int, seconds: float,
