@@ -28,7 +28,7 @@ from .result import CVResult, check_comparable
 LEAF_DIM = "leaf"
 
 
-def _accepted(func, values: dict) -> dict:
+def accepted_keywords(func, values: dict) -> dict:
     """The entries of ``values`` that ``func`` takes as keywords (arviz-stats 0.8 and 1.x differ)."""
     names = inspect.signature(func).parameters
     return {k: v for k, v in values.items() if k in names}
@@ -64,7 +64,7 @@ def to_elpd_data(result: CVResult):
         values["warning"] = result.n_psis_high > 0
         values["pareto_k"] = xr.DataArray(np.array(result.pareto_k), dims=[LEAF_DIM], coords=coords, name="pareto_k")
         values["good_k"] = result.khat_threshold
-    return ELPDData(**_accepted(ELPDData.__init__, values))
+    return ELPDData(**accepted_keywords(ELPDData.__init__, values))
 
 
 def _shift_pointwise(elpd, offset: np.ndarray):
@@ -120,7 +120,7 @@ def compare_results(results: dict[str, CVResult]) -> pd.Series:
         warnings.filterwarnings("ignore", message="The inplace keyword")
         # its note on many models' order statistics: leafcv's ranking states its own decision rule
         warnings.filterwarnings("ignore", message="Difference in performance potentially due to chance")
-        table = compare(elpds, **_accepted(compare, {"method": "stacking", "round_to": "none"}))
+        table = compare(elpds, **accepted_keywords(compare, {"method": "stacking", "round_to": "none"}))
     weights = table["weight"].astype(float).reindex(list(results)).rename("weight")
     weights.index.name = "structure"
     return weights
