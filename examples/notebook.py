@@ -39,7 +39,8 @@ fit = study.fit("traits-month-fixed", engine=args.engine)
 print(fit.diagnostics.grade)
 print(fit.summary.to_string(index=False))
 tree = fit.to_datatree()
-print(summary(tree, var_names=["b0", "beta"], kind="diagnostics"))
+for name in ("b0", "beta"):           # one at a time: each carries its own labelling coordinates
+    print(summary(tree, var_names=[name], kind="diagnostics"))
 
 # %% The main job: every structure cross-validated by leaf and ranked (resumable: run it again to reuse)
 run = study.run(folder / "runs" / "notebook", engine=args.engine)
