@@ -94,11 +94,11 @@ class CmdStanEngine:
         return engine_version("cmdstan")
 
     def folder_for(self, program: str) -> Path:
-        """The cache folder of ``program``'s executable: a hash of program text, CmdStan version and flags."""
-        import cmdstanpy
+        """The cache folder of ``program``'s executable: a hash of program text, CmdStan version and folder
+        (an executable links to its CmdStan's libraries) and flags."""
+        from .choice import engine_version
 
-        cmdstan_folder()
-        key = "\n".join([program, ".".join(map(str, cmdstanpy.cmdstan_version() or ())), repr(sorted(CPP_OPTIONS.items()))])
+        key = "\n".join([program, engine_version("cmdstan"), cmdstan_folder(), repr(sorted(CPP_OPTIONS.items()))])
         return cache_root() / hashlib.sha256(key.encode()).hexdigest()[:20]
 
     def is_compiled(self, program: str) -> bool:
@@ -141,7 +141,7 @@ class CmdStanEngine:
             try:
                 (building / "leafcv.stan").write_text(program)
                 self.log(f"compiling the Stan program with CmdStan (once per program version on this machine; "
-                         f"1-2 minutes; compiler output in {self.compile_log or folder / 'compile.log'})...")
+                         f"a few minutes; compiler output in {self.compile_log or folder / 'compile.log'})...")
                 messages: list[str] = []
                 Path(log_path).parent.mkdir(parents=True, exist_ok=True)
                 with output_to(log_path), _quiet_cmdstanpy(messages):
