@@ -35,7 +35,7 @@ from reference.programs import TRAITS_MONTH, population, reference_data, referen
 
 
 def _min_ess(pop: dict[str, np.ndarray]) -> tuple[float, str]:
-    import arviz as az
+    from leafcv import arviz_arrays as az
 
     ess = {k: float(az.ess(v, method="bulk")) for k, v in pop.items()}
     worst = min(ess, key=ess.get)

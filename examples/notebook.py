@@ -10,7 +10,7 @@ import tempfile
 from dataclasses import replace
 from pathlib import Path
 
-import arviz as az
+from arviz_stats import loo, summary
 
 import leafcv
 from leafcv.demo import write_demo
@@ -19,6 +19,7 @@ from leafcv.spec import SamplerSpec
 ap = argparse.ArgumentParser()
 ap.add_argument("folder", nargs="?", type=Path)
 ap.add_argument("--fast", action="store_true")
+ap.add_argument("--engine", choices=("pystan", "cmdstan"), help="the Stan engine (default: PyStan)")
 args, _ = ap.parse_known_args()
 logging.basicConfig(level=logging.INFO, format="%(message)s")   # leafcv's progress is on the "leafcv" logger
 folder = args.folder or Path(tempfile.mkdtemp(prefix="leafcv-notebook-"))
@@ -33,17 +34,18 @@ if args.fast:
                                                   for n in ("leaf-vcmax-alpha", "traits-month-fixed"))),
                          study.dataset)
 
-# %% One structure on all leaves: estimates, diagnostics, and the posterior for ArviZ
-fit = study.fit("traits-month-fixed")
+# %% One structure on all leaves: estimates, diagnostics, and the posterior for ArviZ (an xarray DataTree)
+fit = study.fit("traits-month-fixed", engine=args.engine)
 print(fit.diagnostics.grade)
 print(fit.summary.to_string(index=False))
-idata = fit.to_inference_data()
-print(az.summary(idata, var_names=["b0", "beta"], kind="diagnostics"))
+tree = fit.to_datatree()
+for name in ("b0", "beta"):           # one at a time: each carries its own labelling coordinates
+    print(summary(tree, var_names=[name], kind="diagnostics"))
 
 # %% The main job: every structure cross-validated by leaf and ranked (resumable: run it again to reuse)
-run = study.run(folder / "runs" / "notebook")
+run = study.run(folder / "runs" / "notebook", engine=args.engine)
 print(run.ranking[["structure", "rank", "elpd", "se", "elpd_diff", "se_diff", "converged"]].to_string(index=False))
 
 # %% The best structure's full-data fit, and leave-one-leaf-out PSIS from ArviZ on its log_likelihood group
 best = run.ranking.iloc[0]["structure"]
-print(best, az.loo(run.fit(best)))
+print(best, loo(run.fit(best)))

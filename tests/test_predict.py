@@ -39,13 +39,13 @@ def _leaf_rows(dataset, idx):
 
 
 def test_a_copy_of_a_fitted_leaf_has_that_leafs_population_mean(fake_run):
-    import arviz as az
+    from leafcv.cv.arviz_bridge import open_fit
 
     comparison, dataset, out = fake_run
     name = "traits-month-random"
     pred = predict(out, name, _leaf_rows(dataset, [0, 5]))
     design = build_design(comparison.structure(name), dataset, comparison.data, leaf_fits=fit_leaves(dataset))
-    post = az.from_netcdf(out / "fits" / f"{name}.nc").posterior
+    post = open_fit(out / "fits" / f"{name}.nc").posterior
     draws = {k: post[k].values.reshape((-1,) + post[k].shape[2:]) for k in post.data_vars}
     mu, _ = leaf_link_values(design, draws)
     nat = natural_values(design, mu)

@@ -29,7 +29,7 @@ from .errors import SpecError, UserInputError
 from .spec import Comparison
 
 if TYPE_CHECKING:
-    import arviz as az
+    import xarray as xr
 
     from .diagnostics import Diagnostics
     from .fitting import StructureFit
@@ -173,10 +173,14 @@ class Study:
         return describe(self.comparison)
 
     def fit(self, structure: str, *, engine=None, progress=None) -> "Fit":
-        """Fit one structure on all leaves with the comparison's sampler settings."""
+        """Fit one structure on all leaves with the comparison's sampler settings. ``engine``: "pystan"
+        or "cmdstan" (default: the comparison file's [engine] name, else PyStan), or an engine object."""
+        from .engines.choice import check_engine
         from .fitting import fit_structure
 
         st = self.comparison.structure(structure)
+        engine = engine if engine is not None else self.comparison.engine
+        check_engine(engine)
         self._warn()
         logger.info("fitting %s on %d leaves", st.name, self.dataset.n_leaves)
         f = fit_structure(st, self.dataset, self.comparison.data, self.comparison.sampler, engine=engine,
@@ -191,9 +195,11 @@ class Study:
 
         ``workers``: tasks at once (default: one per core; 1 runs them in this process);
         ``scheduler``: a Dask scheduler address, or "local" for a LocalCluster; ``progress``: "bar",
-        "plain" or "quiet" (default: a bar on a terminal, plain lines otherwise)."""
+        "plain" or "quiet" (default: a bar on a terminal, plain lines otherwise); ``engine``: "pystan" or
+        "cmdstan" (default: the comparison file's [engine] name, else PyStan)."""
         from .compare import run_comparison
 
+        engine = engine if engine is not None else self.comparison.engine
         self._warn()
         out = Path(out) if out is not None else self.comparison.path.parent / "runs" / self.comparison.path.stem
         run_comparison(self.comparison, self.dataset, out, method=method, engine=engine, log=logger.info,
@@ -230,10 +236,11 @@ class Fit:
 
         return format_fit(self.result, f"structure {self.structure!r} on {self.dataset.n_leaves} leaves")
 
-    def to_inference_data(self, log_marginals: bool = False) -> "az.InferenceData":
-        """The fit as ArviZ InferenceData; with ``log_marginals`` also the ``log_likelihood`` group of
-        each leaf's integrated log marginal per draw (quadrature; seconds to a minute)."""
-        from .cv.arviz_bridge import to_inference_data
+    def to_datatree(self, log_marginals: bool = False) -> "xr.DataTree":
+        """The fit as an ArviZ data tree (xarray DataTree: ArviZ 1.x's InferenceData; groups posterior,
+        sample_stats, observed_data); with ``log_marginals`` also the ``log_likelihood`` group of each
+        leaf's integrated log marginal per draw (quadrature; seconds to a minute)."""
+        from .cv.arviz_bridge import to_datatree
 
         log_m = None
         if log_marginals:
@@ -244,7 +251,10 @@ class Fit:
 
             log_m = score_leaves(self.result, self.dataset, np.arange(self.dataset.n_leaves),
                                  fit_leaves(self.dataset), in_fit=True).log_m
-        return to_inference_data(self.result, self.dataset, log_m)
+        return to_datatree(self.result, self.dataset, log_m)
+
+    #: The earlier name of `to_datatree`.
+    to_inference_data = to_datatree
 
 
 @dataclass
@@ -273,11 +283,12 @@ class Run:
         """The stored result of one structure (scores, diagnostics of every fit, seeds, notes)."""
         return json.loads(self._path("results", f"{structure}.json").read_text())
 
-    def fit(self, structure: str) -> "az.InferenceData":
-        """The structure's full-data fit (posterior, sample_stats, observed_data, log_likelihood)."""
-        import arviz as az
+    def fit(self, structure: str) -> "xr.DataTree":
+        """The structure's full-data fit as an ArviZ data tree (groups posterior, sample_stats,
+        observed_data, log_likelihood)."""
+        from .cv.arviz_bridge import open_fit
 
-        return az.from_netcdf(self._path("fits", f"{structure}.nc"), engine="h5netcdf")
+        return open_fit(self._path("fits", f"{structure}.nc"))
 
     def predictions(self, structure: str) -> tuple[pd.DataFrame, pd.DataFrame]:
         """Held-out predictions of one structure: every point's observed and predicted A, and each

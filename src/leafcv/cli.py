@@ -15,12 +15,15 @@ import time
 import traceback
 from pathlib import Path
 
+from .engines.choice import ENGINE_NAMES, EngineUnavailable
 from .errors import EngineError, UserInputError
 from .spec import CV_METHODS
 
 EXIT_OK, EXIT_USER, EXIT_USAGE, EXIT_ENGINE = 0, 1, 2, 3
 #: Stopped by Ctrl-C or SIGTERM (the shell's convention for SIGINT: 128 + 2).
 EXIT_INTERRUPTED = 130
+ENGINE_HELP = ("the Stan engine: pystan (the default) or cmdstan (CmdStan through cmdstanpy; pip install "
+               "\"leafcv[cmdstan]\"); overrides the comparison file's [engine] name")
 
 
 def _interrupt(signum, frame):
@@ -37,12 +40,14 @@ def _parser() -> argparse.ArgumentParser:
     d.add_argument("--force", action="store_true", help="write into a non-empty DIR")
     d.add_argument("--workers", type=int, metavar="N", help="as for compare")
     d.add_argument("--progress", choices=("bar", "plain", "quiet"), help="as for compare")
+    d.add_argument("--engine", choices=ENGINE_NAMES, help=ENGINE_HELP)
     c = sub.add_parser("check", help="validate data and structures, print a summary")
     c.add_argument("file", type=Path)
     f = sub.add_parser("fit", help="fit one structure on all data")
     f.add_argument("file", type=Path)
     f.add_argument("--structure", required=True)
-    f.add_argument("--save", type=Path, metavar="FILE.nc", help="also write the fit as ArviZ InferenceData (NetCDF)")
+    f.add_argument("--save", type=Path, metavar="FILE.nc", help="also write the fit as an ArviZ data tree (NetCDF)")
+    f.add_argument("--engine", choices=ENGINE_NAMES, help=ENGINE_HELP)
     m = sub.add_parser("compare", help="fit every structure and rank them (the main job)")
     m.add_argument("file", type=Path)
     m.add_argument("--out", type=Path)
@@ -55,6 +60,7 @@ def _parser() -> argparse.ArgumentParser:
                         "start a Dask LocalCluster of N workers here")
     m.add_argument("--progress", choices=("bar", "plain", "quiet"),
                    help="a progress bar (default on a terminal), plain log lines (default otherwise), or quiet")
+    m.add_argument("--engine", choices=ENGINE_NAMES, help=ENGINE_HELP)
     r = sub.add_parser("report", help="rewrite the ranking of a run folder from its results and write report.html")
     r.add_argument("rundir", type=Path)
     r.add_argument("--structure", help="the structure whose estimates are shown (default: the best ranked)")
@@ -161,14 +167,14 @@ def cmd_fit(args) -> int:
     from .api import load as api_load
 
     study = api_load(args.file)
-    fit = study.fit(args.structure, progress=_progress(args.structure))
+    fit = study.fit(args.structure, engine=args.engine, progress=_progress(args.structure))
     sys.stderr.write("\n")
     print(fit.text())
     if args.save:
         from .compare import write_fit
 
         write_fit(args.save, fit.result, study.dataset, None)
-        print(f"fit written to {args.save} (ArviZ InferenceData, NetCDF)")
+        print(f"fit written to {args.save} (ArviZ data tree, NetCDF)")
     return EXIT_OK
 
 
@@ -184,7 +190,7 @@ def cmd_compare(args) -> int:
     signal.signal(signal.SIGTERM, _interrupt)      # `kill PID` stops as cleanly as Ctrl-C
     try:
         run = study.run(args.out, method=args.method, workers=args.workers, scheduler=args.scheduler,
-                        progress=args.progress)
+                        progress=args.progress, engine=args.engine)
     except KeyboardInterrupt:
         sys.stderr.write("leafcv compare: stopped; finished tasks are kept: run the same command to continue\n")
         return EXIT_INTERRUPTED
@@ -220,7 +226,7 @@ def cmd_demo(args) -> int:
     if args.no_run:
         return EXIT_OK
     return cmd_compare(argparse.Namespace(file=path, out=None, method=None, workers=args.workers, scheduler=None,
-                                          progress=args.progress))
+                                          progress=args.progress, engine=args.engine))
 
 
 def _progress(label: str):
@@ -264,6 +270,9 @@ def main(argv: list[str] | None = None) -> int:
     except UserInputError as exc:
         sys.stderr.write(f"leafcv {args.command}: {exc}\n")
         return EXIT_USER
+    except EngineUnavailable as exc:       # nothing to save: the message says what to install
+        sys.stderr.write(f"leafcv {args.command}: {exc}\n")
+        return EXIT_ENGINE
     except EngineError as exc:
         path = _save_details(exc, exc.engine_messages)
         sys.stderr.write(f"leafcv {args.command}: {exc}\n  details saved to {path}\n")

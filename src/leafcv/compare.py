@@ -5,7 +5,7 @@ Run folder (default ``runs/<file stem>/`` beside the comparison file):
                            and per structure its model options and priors
   structures.txt           each structure's terms, model options and priors in words
   results/<structure>.json one per structure, written atomically; reused on a re-run when its inputs match
-  fits/<structure>.nc      its full-data fit as ArviZ InferenceData (posterior, sample_stats,
+  fits/<structure>.nc      its full-data fit as an ArviZ data tree (posterior, sample_stats,
                            observed_data, and log_likelihood "leaf_log_marginal": each leaf's log marginal
                            per draw, so that arviz.loo gives its leave-one-leaf-out PSIS)
   predictions/<structure>-points.csv   every point's observed and held-out predicted A
@@ -53,7 +53,7 @@ def _versions() -> dict[str, str]:
     from importlib.metadata import PackageNotFoundError, version
 
     out = {"python": platform.python_version()}
-    for pkg in ("leafcv", "pystan", "httpstan", "arviz", "numpy", "scipy", "pandas"):
+    for pkg in ("leafcv", "pystan", "httpstan", "cmdstanpy", "arviz-base", "arviz-stats", "numpy", "scipy", "pandas"):
         try:
             out[pkg] = version(pkg)
         except PackageNotFoundError:
@@ -238,12 +238,12 @@ def write_ranking(out: Path, results: list[CVResult], all_details: dict[str, dic
 
 
 def write_fit(path: Path, fit, dataset: Dataset, log_m: np.ndarray | None) -> None:
-    """Write a structure's full-data fit as ArviZ InferenceData (NetCDF, h5netcdf engine) atomically."""
-    from .cv.arviz_bridge import to_inference_data
+    """Write a structure's full-data fit as an ArviZ data tree (NetCDF, h5netcdf engine) atomically."""
+    from .cv.arviz_bridge import to_datatree
 
-    idata = to_inference_data(fit, dataset, log_m)
+    tree = to_datatree(fit, dataset, log_m)
     with replacing(path) as tmp:
-        idata.to_netcdf(tmp, engine="h5netcdf")
+        tree.to_netcdf(tmp, engine="h5netcdf")
 
 
 def rewrite_report(run_dir: Path) -> str:
@@ -281,11 +281,15 @@ def seed_plan(seed: int) -> dict:
             "range": "every fit's seed is taken modulo 2^32"}
 
 
-def task_base(comparison: Comparison, data_hash: str, sampler) -> str:
+def task_base(comparison: Comparison, data_hash: str, sampler, engine: str = "") -> str:
     """Hash of what every task of a run depends on besides its own payload: the data file and its
-    reading, the sampler settings and the Stan program."""
-    payload = json.dumps({"data": _data_reading(comparison), "data_hash": data_hash, "sampler": asdict(sampler),
-                          "program": _program_hash()}, sort_keys=True, default=str)
+    reading, the sampler settings, the Stan program and the engine (``engine``: its name and Stan
+    version, `engines.choice.engine_identity`; "" for PyStan, whose keys it leaves as they were)."""
+    fields = {"data": _data_reading(comparison), "data_hash": data_hash, "sampler": asdict(sampler),
+              "program": _program_hash()}
+    if engine:
+        fields["engine"] = engine
+    payload = json.dumps(fields, sort_keys=True, default=str)
     return hashlib.sha256(payload.encode()).hexdigest()
 
 
@@ -346,14 +350,22 @@ def _run_locked(comparison, dataset, out, *, method, engine, log, spot_checks, s
     settings = {"method": method, "by": comparison.cv.by, "folds": comparison.cv.folds,
                 "spot_checks": spot_checks, "sampler": asdict(sampler)}
     cores = machine_cores()
-    n_workers = workers or (1 if scheduler is None and engine is not None else default_workers())
+    from .engines.choice import check_engine, engine_identity, engine_version
+
+    engine_label = check_engine(engine)            # a named engine that cannot run here stops the run now
+    identity = engine_identity(engine)
+    if identity:
+        settings["engine"] = identity             # results of another engine are not reused
+    n_workers = workers or (1 if scheduler is None and engine is not None and not isinstance(engine, str)
+                            else default_workers())
     if n_workers < 1:
         raise ValueError(f"workers must be at least 1, not {n_workers}")
     manifest = {
         "comparison": str(comparison.path), "comparison_sha256": file_hash(comparison.path),
         "data": str(comparison.data.file), "data_sha256": data_hash, "settings": settings,
         "seeds": seed_plan(sampler.seed), "grades": grade_definitions(),
-        "versions": _versions(), "started": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
+        "versions": _versions(), "engine": {"name": engine_label, "version": engine_version(engine)},
+        "started": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
         "command": " ".join(sys.argv),
     }
     from .cv.quadrature import LEAF_TOL
@@ -397,7 +409,7 @@ def _run_locked(comparison, dataset, out, *, method, engine, log, spot_checks, s
         ctx = Context(comparison, dataset, leaf_fits, sampler, engine=engine,
                       chains_at_once=chains_at_once(cores, n_workers) if n_workers > 1 else None,
                       compile_log=compile_log if local else None)
-        base = task_base(comparison, data_hash, sampler)
+        base = task_base(comparison, data_hash, sampler, identity)
         plans = {s.name: plan(s, dataset, comparison, sampler=sampler, method=method, by=comparison.cv.by,
                               folds=comparison.cv.folds, spot_checks=spot_checks, estimates=True, base=base)
                  for s, _ in todo}
@@ -406,11 +418,11 @@ def _run_locked(comparison, dataset, out, *, method, engine, log, spot_checks, s
         mode = progress or default_mode()
 
         def start_executor():
-            if engine is None and local:         # compile once here, before workers start (they find it cached)
+            if (engine is None or isinstance(engine, str)) and local:   # compile once here, before workers
+                from .engines.choice import make_engine                   # start (they find it cached)
                 from .engines.program import program_text
-                from .engines.pystan_engine import PyStanEngine
 
-                PyStanEngine(log=log, compile_log=compile_log).precompile(program_text())
+                make_engine(engine, log=log, compile_log=compile_log).precompile(program_text())
             if scheduler is not None:
                 ex = DaskCluster(ctx, scheduler, workers)
             elif n_workers == 1:

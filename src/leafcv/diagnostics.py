@@ -2,15 +2,15 @@
 
 Thresholds follow Vehtari, Gelman, Simpson, Carpenter & Buerkner 2021 (Bayesian Analysis 16:667-718:
 R-hat < 1.01, ESS above 100 per chain) and Betancourt 2016 (arXiv:1604.00695, E-BFMI below 0.3 is a
-problem); values recalled from memory. ESS uses ArviZ's rank-normalised estimators.
+problem); values recalled from memory. ESS uses ArviZ's rank-normalised estimators (arviz-stats).
 """
 from __future__ import annotations
 
 from dataclasses import dataclass
 
-import arviz as az
 import numpy as np
 
+from . import arviz_arrays as az
 from .engines.base import Draws
 from .errors import Problem
 

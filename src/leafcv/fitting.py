@@ -64,13 +64,22 @@ def default_engine() -> Engine:
     return PyStanEngine()
 
 
+def resolve_engine(engine) -> Engine:
+    """An engine object from a name ("pystan", "cmdstan"), an engine, or None (PyStan)."""
+    if engine is None:
+        return default_engine()
+    from .engines.choice import make_engine
+
+    return make_engine(engine)
+
+
 def fit_structure(
     structure: Structure,
     dataset: Dataset,
     data_spec: DataSpec,
     sampler: SamplerSpec,
     *,
-    engine: Engine | None = None,
+    engine: Engine | str | None = None,
     options: ModelOptions | None = None,
     priors: PriorSet | None = None,
     train_leaves: np.ndarray | None = None,
@@ -84,7 +93,7 @@ def fit_structure(
     ``warm_start`` (a fit of the same structure, e.g. on all leaves before a refit), each chain from the
     last draw of the same chain of that fit (`warm_inits`; not with ``warm_inits_too`` False) and every
     free parameter offset and scaled by that fit's posterior (`warm_scaling`)."""
-    engine = engine or default_engine()
+    engine = resolve_engine(engine)
     leaf_fits = leaf_fits or fit_leaves(dataset)
     design = build_design(structure, dataset, data_spec, options, priors, train_leaves, leaf_fits)
     seed = sampler.seed if seed is None else seed
@@ -216,7 +225,7 @@ def _labels(design: Design) -> dict[str, tuple[str, Callable[[np.ndarray], np.nd
 
 def summary_table(fit: StructureFit) -> pd.DataFrame:
     """Population-level parameters by meaning on the reported scale, with R-hat and ESS."""
-    import arviz as az
+    from . import arviz_arrays as az
 
     arrays = chain_arrays(fit.draws, [n for n in POPULATION if n in fit.draws.params])
     rows = []

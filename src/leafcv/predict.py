@@ -43,9 +43,8 @@ class Prediction:
 def predict(run_dir: str | Path, structure: str, leaves: str | Path | pd.DataFrame,
             conditions: str | Path | pd.DataFrame | None = None) -> Prediction:
     """Predict the FvCB parameters (and optionally A) of new leaves under ``structure`` of a run."""
-    import arviz as az
-
     from .api import load
+    from .cv.arviz_bridge import open_fit
     from .manifest import file_hash
     from .design import build_design, natural_values
 
@@ -65,7 +64,7 @@ def predict(run_dir: str | Path, structure: str, leaves: str | Path | pd.DataFra
             "the data the fit was made on: restore it, or run `leafcv compare` again"])
     st = comparison.structure(structure)
     design = build_design(st, dataset, comparison.data)
-    post = az.from_netcdf(fit_path).posterior
+    post = open_fit(fit_path)["posterior"].to_dataset()
     _check_fit_matches(design, post, fit_path)
 
     traits, groups, fixed_groups = _used_columns(design)

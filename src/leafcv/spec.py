@@ -116,6 +116,7 @@ class Comparison:
     structures: tuple[Structure, ...]
     format: int = 1
     question: str = ""                          # the question the comparison asks, in the user's words
+    engine: str | None = None                   # [engine] name: "pystan", "cmdstan"; None: the default
 
     def structure(self, name: str) -> Structure:
         for s in self.structures:

@@ -338,3 +338,29 @@ def test_roles_fill_their_observation_columns(tmp_path: Path) -> None:
     np.testing.assert_array_equal(dataset.obs["t_leaf"], table["tl_c"].to_numpy()[order])
     assert (dataset.obs["o2"] == 205.0).all()
     assert not any("column mapped" in note and "oxygen" in note for note in dataset.notes)
+
+
+# [engine] (format 2): the Stan engine by name, "pystan" (the default) or "cmdstan" (DESIGN.md "Engines")
+
+@pytest.mark.parametrize("name", ["pystan", "cmdstan"])
+def test_engine_name_is_read(tmp_path: Path, name: str) -> None:
+    comparison = load_comparison(write(tmp_path, compose(fmt="format = 2\n", extra=f'\n[engine]\nname = "{name}"\n')))
+    assert comparison.engine == name
+
+
+def test_engine_absent_is_the_default(tmp_path: Path) -> None:
+    assert load_comparison(write(tmp_path, compose(fmt="format = 2\n"))).engine is None
+
+
+@pytest.mark.parametrize("case, extra, fragments, code", [
+    ("unknown engine", '\n[engine]\nname = "cmdstanpy"\n', ["engine.name", "cmdstan", "pystan"], "unknown-choice"),
+    ("engine not a string", '\n[engine]\nname = 2\n', ["engine.name: expected one of pystan, cmdstan"], "wrong-type"),
+    ("unknown key", '\n[engine]\nname = "pystan"\nthreads = 4\n', ["threads"], "unknown-key"),
+])
+def test_bad_engine(tmp_path: Path, case: str, extra: str, fragments: list[str], code: str) -> None:
+    assert_bad_case(tmp_path, case, compose(fmt="format = 2\n", extra=extra), fragments, code)
+
+
+def test_engine_needs_format_2(tmp_path: Path) -> None:
+    assert_bad_case(tmp_path, "engine in format 1", compose(extra='\n[engine]\nname = "cmdstan"\n'),
+                    ["format 1 has no engine; set `format = 2`"], "needs-format-2")

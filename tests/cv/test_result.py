@@ -10,7 +10,8 @@ directly on a simulated log likelihood, for the total, its SE and the k-hat thre
 """
 from __future__ import annotations
 
-import arviz as az
+from arviz_base import from_dict
+from arviz_stats import loo as arviz_loo
 import numpy as np
 import pytest
 
@@ -128,13 +129,13 @@ def test_non_finite_elpd_only_refused_where_the_structure_would_be_ranked():
 def test_se_and_elpd_match_arviz_loo():
     rng = np.random.default_rng(5)
     log_lik = rng.normal(-20.0, 1.0, size=(1, 1000, G)) + rng.normal(0.0, 2.0, size=(1, 1, G))
-    idata = az.from_dict(log_likelihood={"y": log_lik})
-    loo = az.loo(idata, pointwise=True, reff=1.0)
-    res = make("m", loo["loo_i"].values, pareto_k=loo["pareto_k"].values, n_draws=1000, leaves=LEAVES_G)
-    assert res.elpd == pytest.approx(float(loo["elpd_loo"]), rel=1e-12)
-    # ArviZ 0.23: loo_lppd_se = sqrt(n * var(loo_i)) with ddof=0; leafcv uses ddof=1
-    assert res.se == pytest.approx(float(loo["se"]) * DDOF1, rel=1e-12)
-    assert res.khat_threshold == pytest.approx(float(loo["good_k"]), rel=1e-12)
+    tree = from_dict({"log_likelihood": {"y": log_lik}})
+    loo = arviz_loo(tree, pointwise=True, reff=1.0)
+    res = make("m", loo.elpd_i.values, pareto_k=loo.pareto_k.values, n_draws=1000, leaves=LEAVES_G)
+    assert res.elpd == pytest.approx(float(loo.elpd), rel=1e-12)
+    # arviz-stats: se = sqrt(n * var(elpd_i)) with ddof=0; leafcv uses ddof=1
+    assert res.se == pytest.approx(float(loo.se) * DDOF1, rel=1e-12)
+    assert res.khat_threshold == pytest.approx(float(loo.good_k), rel=1e-12)
 
 
 def test_result_rejects_inconsistent_shapes():

@@ -10,7 +10,7 @@ of three species and two campaigns:
   one term: leaf effects on vcmax25);
 - ``traits-month-fixed-t`` (graded failed, so not ranked, although it scores higher than the best).
 
-``fits/traits-month-fixed.nc`` is a hand-built InferenceData in the labelled layout (see
+``fits/traits-month-fixed.nc`` is a hand-built ArviZ data tree in the labelled layout (see
 :func:`labelled_idata`); the other structures have no saved fit.
 """
 from __future__ import annotations
@@ -146,13 +146,13 @@ def results() -> tuple[list[CVResult], dict[str, dict]]:
 
 
 def labelled_idata(seed: int = 3, chains: int = 2, draws: int = 200):
-    """A hand-built InferenceData in the labelled layout of a fit of traits-month-fixed, with known draws.
+    """A hand-built ArviZ data tree in the labelled layout of a fit of traits-month-fixed, with known draws.
 
     ``b0`` (parameter; link scale, jmax25 and rd25 as log ratios), ``beta`` (coefficient; per-coefficient
     parameter, kind, term, grouping and scale as coordinates ``coefficient_*``), ``tau_leaf``
     (leaf_term), ``sigma`` (sigma_group) and ``leaf_value`` (leaf, parameter) on the natural scale.
     """
-    import arviz as az
+    from arviz_base import from_dict
 
     rng = np.random.default_rng(seed)
     params = ["vcmax25", "jmax25", "alpha", "theta", "rd25"]
@@ -162,14 +162,14 @@ def labelled_idata(seed: int = 3, chains: int = 2, draws: int = 200):
     b0 = b0_mean + rng.normal(0, 0.05, shape + (5,))
     beta = np.array([0.2, -0.1]) + rng.normal(0, 0.03, shape + (2,))
     leaf_value = np.exp(rng.normal(0, 0.1, shape + (len(LEAVES), 5))) * np.array([60, 100, 0.3, 0.7, 0.9])
-    idata = az.from_dict(
-        posterior={"b0": b0, "beta": beta, "tau_leaf": np.abs(rng.normal(0.2, 0.02, shape + (2,))),
-                   "sigma": np.abs(rng.normal(0.8, 0.05, shape + (1,))), "leaf_value": leaf_value},
+    idata = from_dict(
+        {"posterior": {"b0": b0, "beta": beta, "tau_leaf": np.abs(rng.normal(0.2, 0.02, shape + (2,))),
+                       "sigma": np.abs(rng.normal(0.8, 0.05, shape + (1,))), "leaf_value": leaf_value}},
         dims={"b0": ["parameter"], "beta": ["coefficient"], "tau_leaf": ["leaf_term"], "sigma": ["sigma_group"],
               "leaf_value": ["leaf", "parameter"]},
         coords={"parameter": params, "coefficient": coef, "leaf_term": ["vcmax25", "alpha"],
                 "sigma_group": ["all points"], "leaf": LEAVES})
-    idata.posterior = idata.posterior.assign_coords(
+    idata["posterior"] = idata["posterior"].to_dataset().assign_coords(
         parameter_link=("parameter", ["log", "log", "logit", "logit", "log"]),
         parameter_ratio_to_vcmax25=("parameter", [0, 1, 0, 0, 1]),
         coefficient_parameter=("coefficient", ["vcmax25", "vcmax25"]),

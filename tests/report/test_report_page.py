@@ -262,3 +262,18 @@ def test_the_disabled_engines_really_are_disabled(no_engine):
         fitting.default_engine()
     with pytest.raises(EngineUsed):
         pystan_engine.PyStanEngine()
+
+
+def test_a_cmdstan_run_names_its_engine(fresh_run, no_engine):
+    # the manifest's engine (DESIGN.md "Engines": a run folder never mixes engines) reaches the methods
+    # paragraph, the reproduction table and the command that continues the run
+    manifest = json.loads((fresh_run / "manifest.json").read_text())
+    manifest["engine"] = {"name": "cmdstan", "version": "CmdStan 2.35.0"}
+    manifest["versions"]["cmdstanpy"] = "1.3.2"
+    (fresh_run / "manifest.json").write_text(json.dumps(manifest))
+    html = write_report(fresh_run).read_text()
+    methods = html[html.index('<section id="methods">'):html.index('<section id="reproduction">')]
+    assert "fitted in Stan through CmdStan 2.35.0 (cmdstanpy 1.3.2) with" in methods
+    repro = pd.read_csv(fresh_run / "tables" / "reproduction.csv").set_index("item")["value"]
+    assert repro["engine"] == "cmdstan (CmdStan 2.35.0)"
+    assert "--engine cmdstan</code>" in html

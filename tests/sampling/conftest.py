@@ -47,3 +47,20 @@ def demo_run(tmp_path_factory):
     out = folder / "runs" / "demo"
     table = run_comparison(comp, dataset, out, log=lambda _: None)
     return comp, dataset, out, table
+
+
+@pytest.fixture(scope="session")
+def cmdstan_engine():
+    """A CmdStan engine for the session, its program compiled once (a cache folder per machine, so later
+    sessions find it compiled). Skipped, with the reason, where no CmdStan is found (``.ci/run`` assembles
+    one with ../shared/cmdstan/install.sh and exports CMDSTAN)."""
+    from leafcv.engines.choice import EngineUnavailable, check_engine, make_engine
+    from leafcv.engines.program import program_text
+
+    try:
+        check_engine("cmdstan")
+    except EngineUnavailable as exc:
+        pytest.skip(f"no CmdStan here: {exc}")
+    engine = make_engine("cmdstan", log=lambda _: None)
+    engine.compile(program_text())
+    return engine

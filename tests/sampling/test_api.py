@@ -1,6 +1,6 @@
 """The Python API (leafcv.api) with the sampler: a finished run opened with ``leafcv.open_run`` (the session's
-one run, ``demo_run`` in tests/sampling/conftest.py) keeps each full fit as InferenceData that arviz.loo
-reproduces; fitting inside a running event loop (Jupyter); the notebook example run as a kernel would."""
+one run, ``demo_run`` in tests/sampling/conftest.py) keeps each full fit as an ArviZ data tree that
+arviz-stats' loo reproduces; fitting inside a running event loop (Jupyter); the notebook example run as a kernel would."""
 from __future__ import annotations
 
 from dataclasses import replace
@@ -10,11 +10,12 @@ import pytest
 from leafcv.spec import SamplerSpec
 
 
-def test_the_run_keeps_each_full_fit_as_inference_data_that_arviz_loo_reproduces(demo_run):
-    # arviz.loo (Vehtari, Gelman & Gabry 2017; PSIS of Vehtari et al. 2024, ArviZ's implementation) on the
-    # saved log_likelihood group, leaf by leaf with leafcv's relative efficiency, gives the PSIS elpd and
+def test_the_run_keeps_each_full_fit_as_a_data_tree_that_arviz_loo_reproduces(demo_run):
+    # arviz_stats.loo (Vehtari, Gelman & Gabry 2017; PSIS of Vehtari et al. 2024, ArviZ's implementation) on
+    # the saved log_likelihood group, leaf by leaf with leafcv's relative efficiency, gives the PSIS elpd and
     # k-hat that leafcv stored for every leaf it scored by PSIS.
-    import arviz as az
+    import xarray as xr
+    from arviz_stats import loo as arviz_loo
 
     import leafcv
     from leafcv.cv.psis import relative_efficiency
@@ -25,7 +26,7 @@ def test_the_run_keeps_each_full_fit_as_inference_data_that_arviz_loo_reproduces
     point = run.pointwise.set_index("leaf")
     for name in ("leaf-vcmax-alpha", "traits-month-fixed"):
         idata = run.fit(name)
-        assert {"posterior", "sample_stats", "observed_data", "log_likelihood"} <= set(idata.groups())
+        assert {"posterior", "sample_stats", "observed_data", "log_likelihood"} <= set(idata.children)
         ll = idata.log_likelihood["leaf_log_marginal"]
         assert ll.dims == ("chain", "draw", "leaf") and list(ll["leaf"].values) == list(point.index)
         assert idata.observed_data["net_assimilation"].size == len(dataset.obs)
@@ -33,11 +34,11 @@ def test_the_run_keeps_each_full_fit_as_inference_data_that_arviz_loo_reproduces
         assert len(psis) >= dataset.n_leaves - 6
         chains = ll.sizes["chain"]
         for g in psis:
-            one = idata.sel(leaf=[g])
+            one = xr.DataTree.from_dict({"log_likelihood": idata["log_likelihood"].to_dataset().sel(leaf=[g])})
             reff = relative_efficiency(ll.sel(leaf=g).values.reshape(-1), chains)
-            loo = az.loo(one, pointwise=True, reff=reff)
-            assert float(loo["loo_i"].values[0]) == pytest.approx(point.loc[g, f"elpd:{name}"], abs=1e-8)
-            assert float(loo["pareto_k"].values[0]) == pytest.approx(point.loc[g, f"khat:{name}"], abs=1e-8)
+            loo = arviz_loo(one, pointwise=True, reff=reff)
+            assert float(loo.elpd_i.values[0]) == pytest.approx(point.loc[g, f"elpd:{name}"], abs=1e-8)
+            assert float(loo.pareto_k.values[0]) == pytest.approx(point.loc[g, f"khat:{name}"], abs=1e-8)
 
 
 def test_the_api_works_inside_a_running_event_loop(quick_demo):
@@ -56,8 +57,8 @@ def test_the_api_works_inside_a_running_event_loop(quick_demo):
 
     fit = asyncio.run(notebook_cell())
     assert fit.result.draws.params["b0"].shape[:2] == (2, 100)
-    idata = fit.to_inference_data()
-    assert idata.posterior["b0"].shape[:2] == (2, 100)
+    tree = fit.to_datatree()
+    assert tree.posterior["b0"].shape[:2] == (2, 100)
     assert "vcmax25" in " ".join(fit.summary.astype(str).to_numpy().ravel())
 
 

@@ -7,6 +7,7 @@ workers only compute, so results never depend on the executor.
 from __future__ import annotations
 
 import concurrent.futures as cf
+import contextlib
 import multiprocessing as mp
 import os
 import pickle
@@ -85,6 +86,27 @@ def _fresh_chain_pool() -> None:
     stub.executor = cf.ProcessPoolExecutor(mp_context=mp.get_context("fork"), initializer=stub.init_worker)
 
 
+@contextlib.contextmanager
+def _main_not_rerun():
+    """Workers started in this block do not run the caller's script again. A spawned process imports the
+    parent's main script by path (as ``__mp_main__``) so that functions defined there can be unpickled; a
+    script without an ``if __name__ == "__main__":`` guard (examples/notebook.py, a user's) would then run
+    its whole comparison again in every worker. Workers only run leafcv's own functions, so they are told
+    the main module is one that needs no import (multiprocessing skips a module named ``__main__``)."""
+    import sys
+    import types
+
+    main = sys.modules.get("__main__")
+    if main is None or getattr(main, "__spec__", None) is not None:
+        yield                                   # run as ``python -m``, or interactive: nothing to do
+        return
+    main.__spec__ = types.SimpleNamespace(name="__main__")
+    try:
+        yield
+    finally:
+        main.__spec__ = None
+
+
 class LocalProcesses:
     """``workers`` local worker processes (started fresh, not forked from the coordinator)."""
 
@@ -105,11 +127,12 @@ class LocalProcesses:
     def submit(self, task, inputs):
         from .worker import run_local
 
-        try:
-            return self._pool.submit(run_local, task, inputs)
-        except cf.process.BrokenProcessPool:
-            self.restart()
-            return self._pool.submit(run_local, task, inputs)
+        with _main_not_rerun():
+            try:
+                return self._pool.submit(run_local, task, inputs)
+            except cf.process.BrokenProcessPool:
+                self.restart()
+                return self._pool.submit(run_local, task, inputs)
 
     def wait(self, futures, timeout):
         done, _ = cf.wait(futures, timeout=timeout, return_when=cf.FIRST_COMPLETED)

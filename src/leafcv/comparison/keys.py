@@ -15,9 +15,12 @@ __all__ = ["FORMAT_VERSION", "SUPPORTED_FORMATS", "LEAF_TERM", "RATIO_TARGET", "
 FORMAT_VERSION = 2
 SUPPORTED_FORMATS: tuple[int, ...] = (1, 2)
 
-TOP_KEYS: tuple[str, ...] = ("format", "question", "data", "sampler", "cv", "model", "priors", "structure", "grid")
+TOP_KEYS: tuple[str, ...] = ("format", "question", "data", "sampler", "cv", "model", "priors", "structure", "grid",
+                             "engine")
 #: Keys that format 2 added (a format-1 file using them is told to say format = 2).
-FORMAT2_TOP_KEYS: tuple[str, ...] = ("model", "priors", "grid")
+FORMAT2_TOP_KEYS: tuple[str, ...] = ("model", "priors", "grid", "engine")
+#: [engine]: the Stan engine's name (``leafcv.engines.choice.ENGINE_NAMES``).
+ENGINE_KEYS: tuple[str, ...] = ("name",)
 FORMAT2_PARAM_KEYS: tuple[str, ...] = ("slopes", "split")
 FORMAT2_STRUCTURE_KEYS: tuple[str, ...] = ("model", "priors", "leaf_correlation", "lkj_eta")
 STRUCTURE_KEYS: tuple[str, ...] = ("name", *FORMAT2_STRUCTURE_KEYS)

@@ -11,7 +11,7 @@ from .checker import Checker
 from .grid import parse_grids
 from .keys import TOP_KEYS
 from .reading import read_toml
-from .sections import parse_cv, parse_data, parse_format, parse_model, parse_priors, parse_sampler
+from .sections import parse_cv, parse_data, parse_engine, parse_format, parse_model, parse_priors, parse_sampler
 from .structures import parse_structures
 
 
@@ -55,6 +55,7 @@ def parse_comparison(check: Checker, raw: dict[str, Any], path: Path) -> Compari
     base = Path(os.path.abspath(path)).parent
     data = parse_data(check, raw.get("data"), base, path.name)
     sampler = parse_sampler(check, raw.get("sampler", {}))
+    engine = parse_engine(check, raw.get("engine", {}))
     groups = data.groups if data else ()
     traits = data.traits if data else ()
     cv = parse_cv(check, raw.get("cv", {}), groups, traits)
@@ -72,4 +73,4 @@ def parse_comparison(check: Checker, raw: dict[str, Any], path: Path) -> Compari
     if check or data is None or fmt is None:
         return None
     return Comparison(path=Path(os.path.abspath(path)), data=data, sampler=sampler, cv=cv,
-                      structures=tuple(structures), format=fmt, question=question or "")
+                      structures=tuple(structures), format=fmt, question=question or "", engine=engine)

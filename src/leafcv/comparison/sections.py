@@ -34,6 +34,7 @@ from .checker import Checker, is_int, is_number, show, suggest, unknown
 from .keys import (
     CV_KEYS,
     DATA_KEYS,
+    ENGINE_KEYS,
     FORMAT2_PARAM_KEYS,
     FORMAT2_STRUCTURE_KEYS,
     FORMAT2_TOP_KEYS,
@@ -239,6 +240,17 @@ def parse_sampler(check: Checker, value: Any) -> SamplerSpec:
         settings["max_treedepth"] = check.integer(table["max_treedepth"], "sampler.max_treedepth", 1,
                                                   MAX_TREEDEPTH_LIMIT, f"an integer from 1 to {MAX_TREEDEPTH_LIMIT}")
     return SamplerSpec(**{k: v for k, v in settings.items() if v is not None})
+
+
+def parse_engine(check: Checker, value: Any) -> str | None:
+    """[engine]: ``name = "pystan"`` (the default) or ``"cmdstan"``; None when the file names none."""
+    from ..engines.choice import ENGINE_NAMES
+
+    table = check.table(value, "engine")
+    check.keys(table, ENGINE_KEYS, "engine")
+    if "name" not in table:
+        return None
+    return check.choice(table["name"], "engine.name", ENGINE_NAMES, "engine")
 
 
 def parse_cv(check: Checker, value: Any, groups: Sequence[str], traits: Sequence[str]) -> CVSpec:

@@ -1,20 +1,24 @@
-"""The one module that builds and reads ArviZ result objects (ArviZ pinned to >=0.23,<0.24).
+"""The one module that builds and reads ArviZ result objects (arviz-base and arviz-stats, the packages
+of ArviZ 1.x; on Python 3.11 their 0.8 releases, whose API ArviZ 1.x took over).
 
-ArviZ 0.23's ``compare`` accepts precomputed ``ELPDData`` (a pandas Series) whose index is
-``elpd_loo, se, p_loo, n_samples, n_data_points, warning, loo_i, scale`` (``pareto_k`` and
-``good_k`` optional), with ``loo_i`` an xarray DataArray. Every method (auto, exact, kfold) is
-labelled ``loo`` because ``compare`` only knows ``loo`` and ``waic``; the per-unit values are
+arviz-stats' ``compare`` accepts precomputed ``ELPDData`` objects (``elpd``, ``se``, ``p``, ``n_samples``,
+``n_data_points``, ``scale``, ``warning``, ``elpd_i`` as an xarray DataArray, and ``pareto_k`` and
+``good_k`` optional). Every method (auto, exact, kfold) is labelled ``loo``; the per-unit values are
 leave-one-leaf-out (or leave-one-level-out, or grouped K-fold) elpd all the same.
 
 Only the stacking weights are taken from ``compare``. Totals, their SE and the paired differences
-are computed by :mod:`leafcv.ranking` with the sample variance (``ddof=1``); ``compare``'s own
-``se`` and ``dse`` use ``ddof=0`` and are not used.
+are computed by :mod:`leafcv.ranking` with the sample variance (``ddof=1``).
+
+A fit is an xarray ``DataTree`` (ArviZ 1.x's replacement of InferenceData) with the groups
+``posterior``, ``sample_stats``, ``observed_data`` and ``log_likelihood``, saved as NetCDF
+(`open_fit` reads one back).
 """
 from __future__ import annotations
 
+import inspect
 import warnings
+from pathlib import Path
 
-import arviz as az
 import numpy as np
 import pandas as pd
 import xarray as xr
@@ -24,8 +28,14 @@ from .result import CVResult, check_comparable
 LEAF_DIM = "leaf"
 
 
-def to_elpd_data(result: CVResult) -> az.ELPDData:
-    """Convert a result to ArviZ's ``ELPDData`` on the log scale.
+def accepted_keywords(func, values: dict) -> dict:
+    """The entries of ``values`` that ``func`` takes as keywords (arviz-stats 0.8 and 1.x differ)."""
+    names = inspect.signature(func).parameters
+    return {k: v for k, v in values.items() if k in names}
+
+
+def to_elpd_data(result: CVResult):
+    """Convert a result to arviz-stats' ``ELPDData`` on the log scale.
 
     Parameters
     ----------
@@ -34,49 +44,46 @@ def to_elpd_data(result: CVResult) -> az.ELPDData:
 
     Returns
     -------
-    arviz.ELPDData
-        ``elpd_loo`` and ``se`` from the result (see :attr:`CVResult.se`), ``p_loo`` NaN (no
+    arviz_stats.ELPDData
+        ``elpd`` and ``se`` from the result (see :attr:`CVResult.se`), ``p`` NaN (no
         effective number of parameters is estimated by leave-one-leaf-out), ``n_samples`` the
         result's draws, ``n_data_points`` the number of units, ``warning`` True when a finite
-        k-hat is above the threshold, ``loo_i`` over dimension ``"leaf"`` (whatever the unit),
+        k-hat is above the threshold, ``elpd_i`` over dimension ``"leaf"`` (whatever the unit),
         and ``pareto_k``/``good_k`` when some entry was scored by PSIS with a k-hat (NaN for the
         other entries).
     """
+    from arviz_stats import ELPDData
+
     coords = {LEAF_DIM: list(result.leaves)}
-    loo_i = xr.DataArray(np.array(result.elpd_i), dims=[LEAF_DIM], coords=coords, name="loo_i")
     values: dict[str, object] = {
-        "elpd_loo": result.elpd,
-        "se": result.se,
-        "p_loo": float("nan"),
-        "n_samples": int(result.n_draws),
-        "n_data_points": result.n_leaves,
-        "warning": False,
-        "loo_i": loo_i,
+        "kind": "loo", "elpd": result.elpd, "se": result.se, "p": float("nan"), "n_samples": int(result.n_draws),
+        "n_data_points": result.n_leaves, "scale": "log", "warning": False, "good_k": None,
+        "elpd_i": xr.DataArray(np.array(result.elpd_i), dims=[LEAF_DIM], coords=coords, name="elpd_i"),
     }
     if np.any(np.isfinite(result.pareto_k)):
-        good_k = result.khat_threshold
         values["warning"] = result.n_psis_high > 0
         values["pareto_k"] = xr.DataArray(np.array(result.pareto_k), dims=[LEAF_DIM], coords=coords, name="pareto_k")
-        values["good_k"] = good_k
-    values["scale"] = "log"
-    return az.ELPDData(data=list(values.values()), index=list(values.keys()))
+        values["good_k"] = result.khat_threshold
+    return ELPDData(**accepted_keywords(ELPDData.__init__, values))
 
 
-def _shift_pointwise(elpd: az.ELPDData, offset: np.ndarray) -> az.ELPDData:
-    """A copy of ``elpd`` whose ``loo_i`` has ``offset`` (one value per leaf) subtracted.
+def _shift_pointwise(elpd, offset: np.ndarray):
+    """A copy of ``elpd`` whose ``elpd_i`` has ``offset`` (one value per leaf) subtracted.
 
-    ``compare``'s stacking exponentiates ``loo_i`` without a log-sum-exp, so a leaf's joint
+    ``compare``'s stacking exponentiates ``elpd_i`` without a log-sum-exp, so a leaf's joint
     density below about exp(-745) underflows to 0. Subtracting the same value from every
     structure's elpd of a leaf does not move the stacking optimum (the objective moves by a
     constant), and only the weights are read from ``compare``.
     """
-    shifted = elpd.copy()
-    shifted["loo_i"] = elpd["loo_i"] - xr.DataArray(offset, dims=[LEAF_DIM], coords=elpd["loo_i"].coords)
+    import copy
+
+    shifted = copy.copy(elpd)
+    shifted.elpd_i = elpd.elpd_i - xr.DataArray(offset, dims=[LEAF_DIM], coords=elpd.elpd_i.coords)
     return shifted
 
 
 def compare_results(results: dict[str, CVResult]) -> pd.Series:
-    """Stacking weights from ``arviz.compare(ic="loo", method="stacking", scale="log")``.
+    """Stacking weights from ``arviz_stats.compare(..., method="stacking")`` (log scale).
 
     Parameters
     ----------
@@ -106,10 +113,14 @@ def compare_results(results: dict[str, CVResult]) -> pd.Series:
         raise ValueError(f"stacking needs finite per-unit elpd; not finite in: {', '.join(not_finite)}")
     offset = np.max(np.stack([r.elpd_i for r in results.values()]), axis=0)
     elpds = {name: _shift_pointwise(to_elpd_data(res), offset) for name, res in results.items()}
+    from arviz_stats import compare
+
     with warnings.catch_warnings():
-        # ArviZ 0.23 calls DataFrame.sort_values(inplace=True), deprecated in pandas 3.1
+        # arviz-stats 0.8 calls DataFrame.sort_values(inplace=True), deprecated in pandas 3.1
         warnings.filterwarnings("ignore", message="The inplace keyword")
-        table = az.compare(elpds, ic="loo", method="stacking", scale="log")
+        # its note on many models' order statistics: leafcv's ranking states its own decision rule
+        warnings.filterwarnings("ignore", message="Difference in performance potentially due to chance")
+        table = compare(elpds, **accepted_keywords(compare, {"method": "stacking", "round_to": "none"}))
     weights = table["weight"].astype(float).reindex(list(results)).rename("weight")
     weights.index.name = "structure"
     return weights
@@ -168,8 +179,8 @@ def _labelled_dims(design) -> tuple[dict[str, list[str]], dict[str, list], dict[
     return dims, coords, extra
 
 
-def to_inference_data(fit, dataset, log_m: np.ndarray | None = None) -> az.InferenceData:
-    """One structure's fit as ArviZ InferenceData.
+def to_datatree(fit, dataset, log_m: np.ndarray | None = None) -> xr.DataTree:
+    """One structure's fit as an ArviZ data tree (xarray DataTree; ArviZ 1.x's InferenceData).
 
     Parameters
     ----------
@@ -180,13 +191,13 @@ def to_inference_data(fit, dataset, log_m: np.ndarray | None = None) -> az.Infer
     log_m
         Optional (draws chain after chain, leaves): each leaf's log marginal likelihood per draw, its
         own effects integrated out (:mod:`leafcv.cv.quadrature`). Stored as the ``log_likelihood``
-        variable ``leaf_log_marginal`` (chain, draw, leaf), so that ``arviz.loo`` gives
+        variable ``leaf_log_marginal`` (chain, draw, leaf), so that ``arviz_stats.loo`` gives
         leave-one-leaf-out PSIS.
 
     Returns
     -------
-    arviz.InferenceData
-        ``posterior``: every parameter of the program on its own scale, the population ones labelled
+    xarray.DataTree
+        Groups ``posterior``: every parameter of the program on its own scale, the population ones labelled
         (``b0`` over ``parameter``, on the link scale, a log ratio to vcmax25 where
         ``parameter_ratio_to_vcmax25`` is 1; ``beta`` over ``coefficient`` ("parameter: label", e.g.
         "vcmax25: n_area") with its label, parameter, kind, trait, grouping, and the trait's centre and scale
@@ -221,17 +232,30 @@ def to_inference_data(fit, dataset, log_m: np.ndarray | None = None) -> az.Infer
     dims, coords, extra = _labelled_dims(design)
     coords[LEAF_DIM] = leaves
     dims = {k: v for k, v in dims.items() if k in posterior}
-    idata = az.from_dict(posterior=posterior, sample_stats=stats, dims=dims, coords=coords,
-                         attrs={"structure": design.structure.name, "engine": draws.engine, "seed": int(draws.seed)})
-    post = idata.posterior
+    from arviz_base import from_dict
+
+    attrs = {"structure": design.structure.name, "engine": draws.engine, "seed": int(draws.seed)}
+    tree = from_dict({"posterior": posterior, "sample_stats": stats}, dims=dims, coords=coords,
+                     attrs={"posterior": attrs, "sample_stats": attrs})
+    post = tree["posterior"].to_dataset()
     post = post.assign_coords({name: (dim, values) for name, (dim, values) in extra.items() if dim in post.dims})
-    idata.posterior = post
-    idata.add_groups({"observed_data": observed})
+    groups = {"posterior": post, "sample_stats": tree["sample_stats"].to_dataset(), "observed_data": observed}
     if log_m is not None:
         lm = np.asarray(log_m, float)
         if lm.shape != (C * D, len(leaves)):
             raise ValueError(f"log_m has shape {lm.shape}; expected ({C * D}, {len(leaves)})")
-        idata.add_groups({"log_likelihood": xr.Dataset(
+        groups["log_likelihood"] = xr.Dataset(
             {LOG_MARGINAL: (("chain", "draw", LEAF_DIM), lm.reshape(C, D, len(leaves)))},
-            coords={"chain": np.arange(C), "draw": np.arange(D), LEAF_DIM: leaves})})
-    return idata
+            coords={"chain": np.arange(C), "draw": np.arange(D), LEAF_DIM: leaves})
+    return xr.DataTree.from_dict(groups)
+
+
+#: The earlier name of `to_datatree`.
+to_inference_data = to_datatree
+
+
+def open_fit(path: str | Path) -> xr.DataTree:
+    """A saved fit (NetCDF) read whole into memory, the file closed again (so that a later atomic
+    replacement of it never meets an open handle)."""
+    with xr.open_datatree(str(path), engine="h5netcdf") as tree:
+        return tree.load()

@@ -35,7 +35,9 @@ from .predictions import summarise_curves
 from .psis import integrated_loo, refit_elpd
 
 #: Version of task payloads and outputs: part of every task key, so a change of what a task computes
-#: never reuses an output stored by an earlier leafcv.
+#: never reuses an output stored by an earlier leafcv. 3: quadrature checked by shifted rules and a
+#: brute-force screen, refit draw counts recorded, PSIS by arviz-stats (its Pareto tail fit differs slightly
+#: from ArviZ 0.23's ``psislw``), so no stored score of version 2 is reused.
 TASK_VERSION = 3
 #: Leaves scored per ``score`` task: blocks bound a worker's memory (curve draws of a block's leaves)
 #: and let several workers score one fit at once. The scores do not depend on the block size.
@@ -62,8 +64,9 @@ class TaskOutput:
 
 @dataclass
 class Context:
-    """What every task of a comparison shares. ``engine``: None creates PyStan's in the process that
-    runs the task; ``chains_at_once``: chains one task runs at the same time (None: all)."""
+    """What every task of a comparison shares. ``engine``: an engine's name ("pystan", "cmdstan"; None:
+    PyStan), from which the process that runs a task builds its own engine, or an engine object (tests'
+    fakes); ``chains_at_once``: chains one task runs at the same time (None: all)."""
 
     comparison: Comparison
     dataset: Dataset
@@ -76,14 +79,15 @@ class Context:
 
     def __getstate__(self):
         state = dict(self.__dict__)
-        state["engine"] = None if getattr(self.engine, "name", "") == "pystan" else self.engine
+        if getattr(self.engine, "name", None) in ("pystan", "cmdstan"):
+            state["engine"] = self.engine.name      # each process builds (and compiles for) its own
         return state
 
     def get_engine(self):
-        if self.engine is None:
-            from ..engines.pystan_engine import PyStanEngine
+        if self.engine is None or isinstance(self.engine, str):
+            from ..engines.choice import make_engine
 
-            self.engine = PyStanEngine(chains_at_once=self.chains_at_once, compile_log=self.compile_log)
+            self.engine = make_engine(self.engine, chains_at_once=self.chains_at_once, compile_log=self.compile_log)
         return self.engine
 
 

@@ -5,7 +5,7 @@ Since a leaf's effects are informed only by its own data, p(theta | y_-g) is pro
 p(theta | y) / m_g(theta): the importance ratios are 1 / m_g(theta_s) and
 p(y_g | y_-g) ~= sum_s w_s m_g(theta_s) / sum_s w_s with Pareto-smoothed weights w
 (Vehtari et al. 2016, JMLR 17(103); Merkle, Furr & Rabe-Hesketh 2019; smoothing: Vehtari et al. 2024,
-JMLR 25(72), through ArviZ's `psislw`).
+JMLR 25(72), through arviz-stats' `psislw`).
 
 Monte Carlo error (delta method for the log of a self-normalised importance-sampling estimate; the
 form of Vehtari et al. 2024 and of the PSIS-LOO MCSE of Vehtari, Gelman & Gabry 2017, sec. 2.3 and
@@ -47,9 +47,9 @@ def relative_efficiency(log_m: np.ndarray, chains: int) -> float:
     m = np.exp(x - np.max(x)).reshape(chains, S // chains)
     if np.ptp(m) == 0 or S // chains < 4:
         return 1.0
-    import arviz as az
+    from ..arviz_arrays import ess as arviz_ess
 
-    ess = float(az.ess(m, method="mean"))
+    ess = arviz_ess(m, method="mean")
     if not np.isfinite(ess) or ess <= 0:
         return 1.0 / S
     return float(min(ess / S, 1.0))
@@ -57,15 +57,14 @@ def relative_efficiency(log_m: np.ndarray, chains: int) -> float:
 
 def integrated_loo(log_m: np.ndarray, chains: int = 1) -> LooEstimate:
     """Per-leaf elpd, Pareto k-hat and MCSE from log m (S draws, G leaves), draws chain after chain."""
-    import arviz as az
+    from ..arviz_arrays import psislw
 
     log_m = np.asarray(log_m, float)
     S, G = log_m.shape
     r_eff = np.array([relative_efficiency(log_m[:, g], chains) for g in range(G)])
     lw_all, khat = np.empty((G, S)), np.empty(G)
     for g in range(G):   # psislw takes one r_eff per call
-        lw, k = az.psislw(-log_m[:, g], reff=float(r_eff[g]))
-        lw_all[g], khat[g] = np.asarray(lw), float(k)
+        lw_all[g], khat[g] = psislw(-log_m[:, g], r_eff=float(r_eff[g]))
     elpd = logsumexp(lw_all + log_m.T, axis=1)          # lw are normalised
     # sum_s w_s^2 (m_s / E - 1)^2, written in logs: w_s m_s / E = exp(lw + log m - elpd)
     a = lw_all + log_m.T - elpd[:, None]

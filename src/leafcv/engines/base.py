@@ -1,6 +1,10 @@
 """The engine interface: fit(program, data, settings, seed, inits) -> draws plus sampler diagnostics."""
 from __future__ import annotations
 
+import contextlib
+import os
+import sys
+import time
 from dataclasses import dataclass, field
 from typing import Any, Callable, Protocol
 
@@ -61,3 +65,41 @@ class Engine(Protocol):
         progress: Callable[[int, int], None] | None = None,
     ) -> Draws:
         """Sample; raise EngineError with the engine's messages on failure."""
+
+
+@contextlib.contextmanager
+def compile_lock(path):
+    """Hold an exclusive lock on the file ``path`` while the block runs (released when the file closes,
+    or the process dies): processes starting cold on one machine compile a program once."""
+    import fcntl
+
+    with open(path, "a") as lock:
+        fcntl.flock(lock, fcntl.LOCK_EX)
+        try:
+            yield
+        finally:
+            fcntl.flock(lock, fcntl.LOCK_UN)
+
+
+@contextlib.contextmanager
+def output_to(path: str):
+    """Send this process's standard output and error, at the file-descriptor level (child processes
+    included), to the end of ``path`` while the block runs."""
+    sys.stdout.flush()
+    sys.stderr.flush()
+    saved = os.dup(1), os.dup(2)
+    with open(path, "a") as fh:
+        fh.write(f"--- {time.strftime('%Y-%m-%d %H:%M:%S')}: compiling the Stan program\n")
+        fh.flush()
+        try:
+            os.dup2(fh.fileno(), 1)
+            os.dup2(fh.fileno(), 2)
+            with contextlib.redirect_stdout(fh), contextlib.redirect_stderr(fh):
+                yield
+        finally:
+            sys.stdout.flush()
+            sys.stderr.flush()
+            os.dup2(saved[0], 1)
+            os.dup2(saved[1], 2)
+            os.close(saved[0])
+            os.close(saved[1])

@@ -22,7 +22,7 @@ import numpy as np
 
 from ..errors import EngineError
 from ..spec import SamplerSpec
-from .base import SAMPLER_FIELDS, Draws
+from .base import SAMPLER_FIELDS, Draws, compile_lock, output_to
 
 _ITER = re.compile(r"Iteration:\s+(\d+)\s+/\s+(\d+)")
 
@@ -88,30 +88,24 @@ class PyStanEngine:
         folder, so that processes starting cold on one machine compile it once (the others wait, then
         find it cached), with the compiler's output (C++ notes and warnings, printed by child processes
         straight to the terminal's file descriptors) sent to the compile log."""
-        import fcntl
-
         import stan
         from httpstan.cache import cache_directory
 
         folder = cache_directory()
         folder.mkdir(parents=True, exist_ok=True)
         log_path = self.compile_log or str(folder / "leafcv-compile.log")
-        with open(folder / "leafcv-compile.lock", "a") as lock:
-            fcntl.flock(lock, fcntl.LOCK_EX)         # released when the file closes, or the process dies
-            try:
-                if self.is_compiled(program):
-                    return
-                self.log(f"compiling the Stan program (once per program version on this machine; 1-2 minutes; "
-                         f"compiler output in {log_path})...")
-                with _output_to(log_path):
-                    try:
-                        outside_event_loop(stan.build, program, data={})
-                    except Exception as exc:    # no data: the program compiled, then wanted data; or it failed
-                        if not self.is_compiled(program):
-                            raise EngineError(f"PyStan could not compile the program: {exc} (compiler output in "
-                                              f"{log_path})", str(exc)) from exc
-            finally:
-                fcntl.flock(lock, fcntl.LOCK_UN)
+        with compile_lock(folder / "leafcv-compile.lock"):
+            if self.is_compiled(program):
+                return
+            self.log(f"compiling the Stan program (once per program version on this machine; 1-2 minutes; "
+                     f"compiler output in {log_path})...")
+            with output_to(log_path):
+                try:
+                    outside_event_loop(stan.build, program, data={})
+                except Exception as exc:    # no data: the program compiled, then wanted data; or it failed
+                    if not self.is_compiled(program):
+                        raise EngineError(f"PyStan could not compile the program: {exc} (compiler output in "
+                                          f"{log_path})", str(exc)) from exc
 
     def fit(
         self,
@@ -162,32 +156,6 @@ def _run_coroutine(coro):
         return result
     finally:                        # interrupted: the loop and its pending tasks are abandoned
         loop.close()
-
-
-@contextlib.contextmanager
-def _output_to(path: str):
-    """Send this process's standard output and error, at the file-descriptor level (child processes
-    included), to the end of ``path`` while the block runs."""
-    import os
-
-    sys.stdout.flush()
-    sys.stderr.flush()
-    saved = os.dup(1), os.dup(2)
-    with open(path, "a") as fh:
-        fh.write(f"--- {time.strftime('%Y-%m-%d %H:%M:%S')}: compiling the Stan program\n")
-        fh.flush()
-        try:
-            os.dup2(fh.fileno(), 1)
-            os.dup2(fh.fileno(), 2)
-            with contextlib.redirect_stdout(fh), contextlib.redirect_stderr(fh):
-                yield
-        finally:
-            sys.stdout.flush()
-            sys.stderr.flush()
-            os.dup2(saved[0], 1)
-            os.dup2(saved[1], 2)
-            os.close(saved[0])
-            os.close(saved[1])
 
 
 def outside_event_loop(func: Callable[..., Any], *args: Any, **kwargs: Any) -> Any:

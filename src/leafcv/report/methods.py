@@ -118,8 +118,7 @@ def methods_html(run: RunFolder) -> str:
           f"tables/priors.csv). Model options: {esc(shared)}."
           + (" Options that differ: " + esc("; ".join(per)) + "." if per else "")
           + " Priors were weakly informative and are stated on the scale of each parameter. Each structure "
-          f"was fitted in Stan through PyStan {esc(versions.get('pystan', '?'))} (httpstan "
-          f"{esc(versions.get('httpstan', '?'))}) with {sampler.get('chains', '?')} chains of "
+          f"was fitted in Stan through {_engine_words(m, versions)} with {sampler.get('chains', '?')} chains of "
           f"{sampler.get('warmup', '?')} warm-up and {sampler.get('draws', '?')} draws (adapt_delta "
           f"{sampler.get('adapt_delta', '?')}, maximum tree depth {sampler.get('max_treedepth', '?')}); fits "
           "short of the convergence thresholds were rerun with settings aimed at the cause (more draws, a "
@@ -170,6 +169,14 @@ def methods_html(run: RunFolder) -> str:
             + "".join(f"<li>{esc(REFERENCES[k])}</li>" for k in refs) + "</ol>")
 
 
+def _engine_words(manifest: dict, versions: dict) -> str:
+    """The engine that sampled, in words (runs written before engines could be chosen used PyStan)."""
+    engine = manifest.get("engine") or {}
+    if engine.get("name") == "cmdstan":
+        return f"{esc(engine.get('version') or 'CmdStan')} (cmdstanpy {esc(versions.get('cmdstanpy', '?'))})"
+    return f"PyStan {esc(versions.get('pystan', '?'))} (httpstan {esc(versions.get('httpstan', '?'))})"
+
+
 def reproduction_html(run: RunFolder, tables: Tables) -> str:
     """Versions, inputs and their hashes, seeds, settings and the command, and hashes of the run's files."""
     m = run.manifest
@@ -177,6 +184,9 @@ def reproduction_html(run: RunFolder, tables: Tables) -> str:
             ("finished", m.get("finished", "not finished")),
             ("comparison file", m.get("comparison", "")), ("comparison SHA-256", m.get("comparison_sha256", "")),
             ("data file", m.get("data", "")), ("data SHA-256", m.get("data_sha256", ""))]
+    engine = m.get("engine") or {}
+    if engine:
+        rows.append(("engine", f"{engine.get('name', '')} ({engine.get('version', '')})"))
     rows += [(f"version: {k}", v) for k, v in m.get("versions", {}).items()]
     rows += [(f"seed: {k}", v) for k, v in m.get("seeds", {}).items()]
     settings = dict(m.get("settings", {}))
@@ -192,7 +202,8 @@ def reproduction_html(run: RunFolder, tables: Tables) -> str:
             rows.append((f"SHA-256 of {name}", file_hash(run.path / name)))
     table = pd.DataFrame(rows, columns=["item", "value"]).astype(str)
     comparison = Path(m.get("comparison", "comparison.toml"))
-    again = (f"leafcv compare {comparison} --out {run.path} --method {settings.get('method', 'auto')}")
+    again = (f"leafcv compare {comparison} --out {run.path} --method {settings.get('method', 'auto')}"
+             + (f" --engine {engine['name']}" if engine.get("name", "pystan") != "pystan" else ""))
     return ("<p>The same inputs, versions and seeds give the same numbers. The run was started by the command "
             f"below (as recorded); from the command line the equivalent is <code>{esc(again)}</code>, which "
             "reuses every finished result whose inputs match.</p>"

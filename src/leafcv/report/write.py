@@ -103,9 +103,9 @@ def _estimates_html(run: RunFolder, tables: Tables, structure: str | None) -> tu
     why = "chosen with --structure" if structure else "the best ranked structure"
     if not path.exists():
         return title, f"<p>{esc(chosen)} ({why}) has no saved fit (fits/{esc(chosen)}.nc).</p>"
-    import arviz as az
+    from ..cv.arviz_bridge import open_fit
 
-    idata = az.from_netcdf(path, engine="h5netcdf")
+    idata = open_fit(path)
     ok, reason = labelled(idata)
     if not ok:
         return title, (f"<p>{esc(chosen)} ({why}): no estimates are shown because its saved fit "

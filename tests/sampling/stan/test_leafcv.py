@@ -165,7 +165,7 @@ def _fit_both(ref, comparison, dataset):
 
 
 def _z_scores(ref, g, r):
-    import arviz as az
+    from leafcv import arviz_arrays as az
 
     pg = population(ref, g.draws.params, g.design)
     pr = population(ref, r.params)
