@@ -258,6 +258,26 @@ def sentence(row) -> str:
 # ------------------------------------------------------------------------------------------------------
 # from a run folder
 
+def mismatches(design, draws: dict[str, np.ndarray], n_leaves: int) -> list[str]:
+    """What in ``draws`` (name -> (S, ...)) does not have the shape ``design`` needs, in words."""
+    d = design.stan_data
+    need = {"b0": (len(design.params),), "beta": (d["K"],), "tau": (d["R"],), "tau_leaf": (d["Rl"],),
+            "sigma": (d["S"],), "leaf_value": (n_leaves, len(design.params))}
+    if d["student_t"]:
+        need["nu"] = (1,)
+    if d["leaf_corr"]:
+        need["leaf_chol"] = (1, d["Rl"], d["Rl"])
+    out = []
+    for name, shape in need.items():
+        if int(np.prod(shape)) == 0:
+            continue
+        if name not in draws:
+            out.append(f"no {name}")
+        elif tuple(np.shape(draws[name])[1:]) != shape:
+            out.append(f"{name} has shape {tuple(np.shape(draws[name])[1:])}, expected {shape}")
+    return out
+
+
 def run_sensitivity(run_dir: str | Path, structure: str, delta: float = DELTA) -> pd.DataFrame:
     """The sensitivity table of ``structure``'s saved full-data fit (``fits/<structure>.nc``). Reads the
     comparison and data files the manifest names (the data only when its hash matches); no sampler."""
@@ -285,9 +305,10 @@ def run_sensitivity(run_dir: str | Path, structure: str, delta: float = DELTA) -
     design = build_design(comparison.structure(structure), dataset, comparison.data)
     post = az.from_netcdf(path, engine="h5netcdf").posterior
     draws = {k: post[k].values.reshape((-1,) + post[k].shape[2:]) for k in post.data_vars}
-    if "leaf_value" not in draws or draws["b0"].shape[1] != len(design.params):
-        raise UserInputError(str(path), ["the saved fit does not hold the per-leaf values and intercepts of this "
-                                         "structure as the comparison file now describes it; run `leafcv compare` again"])
+    wrong = mismatches(design, draws, len(dataset.leaves))
+    if wrong:
+        raise UserInputError(str(path), [f"the saved fit does not match structure {structure!r} as the comparison "
+                                         f"file describes it ({'; '.join(wrong)}); run `leafcv compare` again"])
     table = fit_sensitivity(design, draws, delta)
     table.insert(0, "structure", structure)
     log.info("prior sensitivity of %s: %d of %d quantities flagged", structure,

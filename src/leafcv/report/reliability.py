@@ -121,7 +121,9 @@ def sensitivity_html(run: RunFolder, tables: Tables, chosen: str | None, why: st
              "Each number is how fast that quantity's posterior moves (cumulative Jensen–Shannon distance per unit "
              f"of log<sub>2</sub> of the power); {THRESHOLD:g} or more is flagged (the paper's threshold). The "
              "distributions of the leaf and level effects given their SDs are part of the model, not of the "
-             "prior, and were not scaled.</p>"]
+             "prior, and were not scaled. Sensitivity to the likelihood alone is what data-informed estimates "
+             "should show; it matters together with sensitivity to the prior: both at once suggest the prior "
+             "and the data disagree, the prior alone that the data say little.</p>"]
     parts.append(tables.render("prior_sensitivity", table, [
         Column("quantity", "quantity"), Column("prior", "prior", ".3f"), Column("likelihood", "likelihood", ".3f"),
         Column("diagnosis", "diagnosis"), Column("prior_khat", "k̂ (prior)", ".2f"),
@@ -129,8 +131,8 @@ def sensitivity_html(run: RunFolder, tables: Tables, chosen: str | None, why: st
         "Power-scaling sensitivity of each population quantity to the prior and to the likelihood."))
     flagged = table[table["diagnosis"] != NONE]
     if flagged.empty:
-        parts.append(f"<p class=box>No population quantity of {esc(chosen)} is sensitive to its prior: the "
-                     "estimates are the data's.</p>")
+        parts.append(f"<p class=box>No population quantity of {esc(chosen)} is sensitive to its prior by this "
+                     "check: none of its estimates is driven by the prior rather than the data.</p>")
     else:
         kinds = {CONFLICT: "possible prior–data conflict", WEAK: "the prior dominates"}
         parts.append("<div class=warn><p>" + f"{len(flagged)} of {len(table)} quantities are sensitive to the prior ("
@@ -194,11 +196,19 @@ def selection_html(run: RunFolder) -> str:
     return "\n".join(parts)
 
 
+#: References of this section (keys of report.methods.REFERENCES).
+SECTION_REFERENCES = ("kallioinen2023", "nguyen2015", "vehtari2024", "talts2018", "modrak2023", "sailynoja2022")
+
+
 def reliability_html(run: RunFolder, tables: Tables, structure: str | None) -> str:
+    from .methods import REFERENCES
+
     chosen = structure or run.best
     why = "chosen with --structure" if structure else "the best ranked structure"
     return "\n".join([
         "<h3>Prior sensitivity of the chosen structure</h3>", sensitivity_html(run, tables, chosen, why),
         "<h3>Calibration of the program (simulation-based calibration)</h3>", sbc_html(run, read_validation()),
         "<h3>Selection reliability</h3>", selection_html(run),
+        "<p class=files>References of this section:</p><ol class=files>"
+        + "".join(f"<li>{esc(REFERENCES[k])}</li>" for k in SECTION_REFERENCES) + "</ol>",
     ])
