@@ -57,3 +57,25 @@ def test_log_prior_and_likelihood_add_up_to_stans_log_density(quick_demo, name):
         priors.append(log_prior(design, draws)[0])
     assert np.ptp(priors) > 0.1          # the points differ in their prior, so the check can fail
     assert np.ptp(diffs) < 1e-6 * max(1.0, abs(np.mean(diffs))), diffs
+
+
+def test_run_prior_sensitivity_and_the_report_table(demo_run):
+    # the session's quick-demo run: Run.prior_sensitivity() of the best structure, and the report's
+    # tables/prior_sensitivity.csv written by `leafcv report` from the run folder alone, agree
+    import pandas as pd
+
+    from leafcv.api import open_run
+    from leafcv.report import write_report
+    from leafcv.sensitivity import CONFLICT, NONE, WEAK
+
+    _, _, out, table = demo_run
+    run = open_run(out)
+    best = str(run.ranking.dropna(subset=["rank"]).sort_values("rank").iloc[0]["structure"])
+    sens = run.prior_sensitivity()
+    assert set(sens["structure"]) == {best}
+    assert {"vcmax25 intercept (log scale)", "residual SD (all points)"} <= set(sens["quantity"])
+    assert sens["diagnosis"].isin([NONE, WEAK, CONFLICT]).all()
+    assert (sens[["prior", "likelihood"]] >= 0).all().all()
+    write_report(out)
+    csv = pd.read_csv(out / "tables" / "prior_sensitivity.csv")
+    pd.testing.assert_frame_equal(csv, sens, check_exact=False, rtol=1e-9)
