@@ -361,7 +361,10 @@ def write_doc(folder: Path, structures, replicates: int, settings: str, doc: Pat
             div = sum(rec["diagnostics"]["divergences"] > 0 for rec in ok)
             rh = max(rec["diagnostics"]["max_rhat"] for rec in ok)
             neg = np.mean([rec["data"]["share_negative"] for rec in ok])
-            lines.append(f"{s}: {div} of {len(ok)} fits had divergent transitions; largest R-hat {rh:.3f}; on "
+            grades = {g: sum(rec["diagnostics"]["grade"] == g for rec in ok) for g in ("converged", "marginal", "failed")}
+            lines.append(f"{s}: by leafcv's own convergence grades (strict for such short chains) "
+                         + ", ".join(f"{n} {g}" for g, n in grades.items())
+                         + f"; all are ranked. {div} of {len(ok)} fits had divergent transitions; largest R-hat {rh:.3f}; on "
                          f"average {neg:.0%} of the simulated points had A < 0 (prior draws give some implausible "
                          f"curves; they were fitted like any other). Plot: validation/sbc-{s}.png")
             lines.append("")
