@@ -143,3 +143,27 @@ def test_flagged_rows_get_a_sentence_naming_the_quantity():
                      "diagnosis": sens.WEAK})
     text = sens.sentence(row)
     assert text.startswith("SD of leaf effects on alpha") and "0.12" in text and "prior largely decides" in text
+
+
+def test_log_likelihood_matches_the_fvcb_model_point_by_point_in_any_block_size(quick_demo, monkeypatch):
+    # leafcv.fvcb.net_assimilation is itself checked against the worked example of REFERENCES.md
+    # (tests/test_fvcb.py); the normal log density from scipy.stats
+    from leafcv import fvcb
+    from leafcv.design import build_design
+
+    comparison, dataset, _ = quick_demo
+    design = build_design(comparison.structure("leaf-vcmax-alpha"), dataset, comparison.data)
+    rng = np.random.default_rng(6)
+    S, L = 7, dataset.n_leaves
+    values = np.stack([rng.uniform(30, 90, (S, L)), rng.uniform(60, 160, (S, L)), rng.uniform(0.2, 0.4, (S, L)),
+                       rng.uniform(0.5, 0.9, (S, L)), rng.uniform(0.5, 1.5, (S, L))], axis=-1)
+    sigma = rng.uniform(0.3, 2.0, (S, 1))
+    obs = dataset.obs.iloc[design.obs_index]
+    li = obs["leaf_index"].to_numpy()
+    expected = [stats.norm.logpdf(obs["a_net"].to_numpy(), fvcb.net_assimilation(
+        obs["ci"].to_numpy(), obs["ppfd"].to_numpy(), obs["t_leaf"].to_numpy(), *(values[s][li, i] for i in range(5)),
+        o2=obs["o2"].to_numpy()), sigma[s, 0]).sum() for s in range(S)]
+    whole = sens.log_likelihood(design, values, sigma)
+    monkeypatch.setattr(sens, "CHUNK_CELLS", 2 * len(obs))        # blocks of two draws
+    blocks = sens.log_likelihood(design, values, sigma)
+    assert np.allclose(whole, expected, rtol=1e-10) and np.allclose(blocks, expected, rtol=1e-10)

@@ -43,6 +43,9 @@ THRESHOLD = 0.05
 #: a few thousand draws, from memory).
 KHAT_LIMIT = 0.7
 
+#: (draw, point) cells of the likelihood computed at once (about 16 MB per array).
+CHUNK_CELLS = 2_000_000
+
 CONFLICT = "possible prior–data conflict"
 WEAK = "weak likelihood (the prior dominates)"
 NONE = "no concern"
@@ -186,14 +189,23 @@ def log_likelihood(design, leaf_values: np.ndarray, sigma: np.ndarray, nu: np.nd
     factors = fvcb.PointFactors.at(pts.ci, pts.q, pts.t_leaf, pts.o2, electron=opts.electron,
                                    vcmax_response=r["vcmax"], jmax_response=r["jmax"], rd_response=r["rd"],
                                    tpu_response=r["tpu"])
-    v = np.asarray(leaf_values, float)[:, pts.leaf, :]                 # (S, N, P)
-    col = {name: v[..., i] for i, name in enumerate(design.params)}
-    a_hat = factors.net_assimilation(col["vcmax25"], col["jmax25"], col["alpha"], col["theta"], col["rd25"],
-                                     col.get("tpu25"), opts.transition, opts.smooth_curvature)
-    sd = np.asarray(sigma, float).reshape(len(v), -1)[:, pts.sigma_group]
-    if nu is None:
-        return stats.norm.logpdf(pts.a_net, a_hat, sd).sum(axis=1)
-    return stats.t.logpdf(pts.a_net, np.asarray(nu, float).reshape(-1, 1), a_hat, sd).sum(axis=1)
+    leaf_values = np.asarray(leaf_values, float)
+    S, N = len(leaf_values), len(pts.leaf)
+    sd_all = np.asarray(sigma, float).reshape(S, -1)[:, pts.sigma_group]
+    out = np.empty(S)
+    step = max(1, CHUNK_CELLS // max(N, 1))          # draws per block: bounded memory for large studies
+    for lo in range(0, S, step):
+        v = leaf_values[lo:lo + step][:, pts.leaf, :]                  # (draws, N, P)
+        col = {name: v[..., i] for i, name in enumerate(design.params)}
+        a_hat = factors.net_assimilation(col["vcmax25"], col["jmax25"], col["alpha"], col["theta"], col["rd25"],
+                                         col.get("tpu25"), opts.transition, opts.smooth_curvature)
+        sd = sd_all[lo:lo + step]
+        if nu is None:
+            out[lo:lo + step] = stats.norm.logpdf(pts.a_net, a_hat, sd).sum(axis=1)
+        else:
+            df = np.asarray(nu, float).reshape(-1, 1)[lo:lo + step]
+            out[lo:lo + step] = stats.t.logpdf(pts.a_net, df, a_hat, sd).sum(axis=1)
+    return out
 
 
 @dataclass(frozen=True)
