@@ -6,7 +6,6 @@ import json
 from types import SimpleNamespace
 
 import numpy as np
-import pytest
 
 from leafcv.report.reliability import read_validation, replicate_cost, sbc_html, selection_html
 
