@@ -55,7 +55,7 @@ def test_validation_doc_written_by_the_sbc_script_is_read_back(tmp_path):
         ranks = {"uniform quantity": int(rng.integers(0, 101)), "stuck quantity": 100}   # always the top rank
         path.write_text(json.dumps({"status": "ok", "ranks": ranks, "n_draws": 100, "structure": "s1",
                                     "replicate": r, "data": {"share_negative": 0.0},
-                                    "diagnostics": {"divergences": 0, "max_rhat": 1.0}}))
+                                    "diagnostics": {"divergences": 0, "max_rhat": 1.0, "grade": "converged"}}))
     sbc.rep_path(folder, "s1", 30).write_text(json.dumps({"status": "failed", "reason": "RuntimeError: no init",
                                                           "structure": "s1", "replicate": 30}))
     doc = tmp_path / "docs" / "validation.md"
