@@ -323,7 +323,7 @@ def git_commit() -> str:
         return "unknown"
 
 
-def write_doc(folder: Path, structures, replicates: int, settings: str, doc: Path) -> list[dict]:
+def write_doc(folder: Path, structures, replicates: int, settings: str, doc: Path, notes: str = "") -> list[dict]:
     import leafcv
     from leafcv.report.reliability import VALIDATION_HEADER
 
@@ -370,6 +370,8 @@ def write_doc(folder: Path, structures, replicates: int, settings: str, doc: Pat
             lines.append("")
             lines.append(f"![{s}](validation/sbc-{s}.png)")
             lines.append("")
+    if notes.strip():
+        lines += ["## Reading of this run", "", notes.strip(), ""]
     doc.parent.mkdir(parents=True, exist_ok=True)
     doc.write_text("\n".join(lines) + "\n")
     return rows
@@ -386,6 +388,7 @@ def main(argv=None) -> int:
     ap.add_argument("--draws", type=int, default=300)
     ap.add_argument("--doc", type=Path, default=ROOT / "docs" / "validation.md")
     ap.add_argument("--write-only", action="store_true", help="write the doc from the replicates finished")
+    ap.add_argument("--notes", type=Path, help="a Markdown file of findings, added to the doc as its last section")
     args = ap.parse_args(argv)
     structures = tuple(args.structure or STRUCTURES)
     args.folder.mkdir(parents=True, exist_ok=True)
@@ -393,7 +396,8 @@ def main(argv=None) -> int:
         run(args.folder, structures, args.replicates, args.workers, args.chains, args.warmup, args.draws)
     settings = (f"{args.chains} chains x ({args.warmup} warm-up + {args.draws} draws), adapt_delta 0.95, "
                 f"thinned to about {THIN_TO} draws; quick-demo design; structures {', '.join(structures)}")
-    rows = write_doc(args.folder, structures, args.replicates, settings, args.doc)
+    notes = args.notes.read_text() if args.notes else ""
+    rows = write_doc(args.folder, structures, args.replicates, settings, args.doc, notes)
     for r in rows:
         print(f"{r['structure']:22s} {r['quantity']:45s} {r['replicates']:4d} {r['result']}")
     return 0
