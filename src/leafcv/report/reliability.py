@@ -164,7 +164,10 @@ def sbc_html(run: RunFolder, validation: Validation | None) -> str:
                         f"{esc(run_version)}.")
     verdict = (f"<p class=box>All {len(validation.rows)} checked quantities passed." if not failed else
                f"<p class=warn>{len(failed)} of {len(validation.rows)} checked quantities FAILED: "
-               + ", ".join(f"{esc(r['quantity'])} ({esc(r['structure'])})" for r in failed) + ".")
+               + ", ".join(f"{esc(r['quantity'])} ({esc(r['structure'])})" for r in failed) + ". Each check "
+               f"alone fails 1 % of the time for a correct program: among {len(validation.rows)} checks at least "
+               f"one such false failure has probability {1 - 0.99 ** len(validation.rows):.0%}; see "
+               "docs/validation.md for what was found.")
     rows = "".join(f"<tr><td>{esc(r['structure'])}</td><td>{esc(r['quantity'])}</td>"
                    f"<td class=n>{esc(r['replicates'])}</td><td>{esc(r['inside'])}</td><td>{esc(r['result'])}</td></tr>"
                    for r in validation.rows)
