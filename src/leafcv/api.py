@@ -329,6 +329,21 @@ class Run:
         tables["folder"] = folder
         return tables
 
+    def prior_sensitivity(self, structure: str | None = None) -> pd.DataFrame:
+        """Power-scaling prior and likelihood sensitivity (Kallioinen et al. 2023) of each population
+        quantity of ``structure`` (default: the best ranked), from its saved full-data fit: columns
+        structure, quantity, prior, likelihood (derivatives of the CJS distance w.r.t. log2 alpha; 0.05
+        flags), diagnosis (in words), prior_khat, likelihood_khat. No sampler runs."""
+        from .sensitivity import run_sensitivity
+
+        if structure is None:
+            ranked = self.ranking.dropna(subset=["rank"]).sort_values("rank")
+            if ranked.empty:
+                raise UserInputError(str(self.folder), ["no structure is ranked yet; name one: "
+                                                        f"{', '.join(self.manifest.get('structures', {}))}"])
+            structure = str(ranked.iloc[0]["structure"])
+        return run_sensitivity(self.folder, structure)
+
     def _path(self, *parts: str) -> Path:
         path = self.folder.joinpath(*parts)
         if not path.exists():

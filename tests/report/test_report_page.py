@@ -22,7 +22,7 @@ from .fake_run import QUESTION
 
 pytestmark = pytest.mark.filterwarnings("ignore:The inplace keyword")
 
-SECTIONS = ["decision", "ranking", "leaves", "predictions", "estimates", "diagnostics", "priors", "methods", "reproduction"]
+SECTIONS = ["decision", "ranking", "leaves", "predictions", "estimates", "reliability", "diagnostics", "priors", "methods", "reproduction"]
 
 
 def shown_equals(cell: str, value: float) -> bool:

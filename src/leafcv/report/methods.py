@@ -31,6 +31,18 @@ REFERENCES = {
                "distributions (with discussion). Bayesian Analysis 13:917–1007.",
     "sivula2020": "Sivula T, Magnusson M, Matamoros AA, Vehtari A (2020) Uncertainty in Bayesian leave-one-out "
                   "cross-validation based model comparison. arXiv:2008.10296.",
+    "kallioinen2023": "Kallioinen N, Paananen T, Bürkner P-C, Vehtari A (2023) Detecting and diagnosing prior and "
+                      "likelihood sensitivity with power-scaling. Statistics and Computing 34:57.",
+    "nguyen2015": "Nguyen HV, Vreeken J (2015) Non-parametric Jensen-Shannon divergence. In: Machine Learning and "
+                  "Knowledge Discovery in Databases (ECML PKDD 2015), 173–189.",
+    "talts2018": "Talts S, Betancourt M, Simpson D, Vehtari A, Gelman A (2018) Validating Bayesian inference "
+                 "algorithms with simulation-based calibration. arXiv:1804.06788.",
+    "modrak2023": "Modrák M, Moon AH, Kim S, Bürkner P-C, Huurre N, Faltejsková K, Gelman A, Vehtari A (2023) "
+                  "Simulation-based calibration checking for Bayesian computation: the choice of test quantities "
+                  "shapes sensitivity. Bayesian Analysis.",
+    "sailynoja2022": "Säilynoja T, Bürkner P-C, Vehtari A (2022) Graphical test for discrete uniformity and its "
+                     "applications in goodness-of-fit evaluation and multiple sample comparison. Statistics and "
+                     "Computing 32:32.",
     "okabe2008": "Okabe M, Ito K (2008) Color Universal Design (CUD): how to make figures and presentations that are "
                  "friendly to colorblind people. J*FLY, https://jfly.uni-koeln.de/color/ (palette of the figures).",
 }

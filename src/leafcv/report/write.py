@@ -1,7 +1,8 @@
 """write_report: the run folder's report.html, figures/ and tables/.
 
 Sections, in order: the decision in words; the ranking figure and table; which leaves decide it;
-held-out predictions; what the chosen structure estimates; diagnostics; priors and model options; methods text and
+held-out predictions; what the chosen structure estimates; how reliable the choice is (prior sensitivity,
+calibration of the program, selection reliability); diagnostics; priors and model options; methods text and
 references; reproduction. Reads only the run folder (and the comparison and data files its manifest
 names); runs no sampler.
 """
@@ -23,6 +24,7 @@ from .files import write_text
 from .html import Column, Tables, esc, figure, number, page
 from .methods import methods_html, priors_html, reproduction_html
 from .predictions import predictions_html
+from .reliability import reliability_html
 from .run import RunFolder, leaf_groups, load_run
 from .terms import structure_terms
 
@@ -197,6 +199,7 @@ def write_report(rundir: str | Path, structure: str | None = None, group: str | 
         ("leaves", "Which leaves decide it", _leaves_html(run, tables, group)),
         ("predictions", "Held-out predictions", predictions_html(run, tables)),
         ("estimates", title, estimates),
+        ("reliability", "How reliable is this choice?", reliability_html(run, tables, structure)),
         ("diagnostics", "Diagnostics", _diagnostics_section(run, tables)),
         ("priors", "Priors and model options", priors_html(run, tables)),
         ("methods", "Methods text", methods_html(run)),
