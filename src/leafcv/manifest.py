@@ -29,3 +29,31 @@ def file_hash(path: str | Path) -> str:
 def json_float(value: object) -> float:
     """One number of a run's JSON files read back: null as NaN, "inf"/"-inf" as infinities."""
     return float("nan") if value is None else float(value)
+
+
+def run_inputs(run_dir: str | Path, structure: str | None, purpose: str):
+    """(manifest, comparison, dataset, fit path) of a finished run, for a step that reads one structure's
+    saved fit with the data it was made on (``purpose``: what needs them, in words, e.g. "predictions").
+
+    Raises a `UserInputError` naming the folder or file when there is no manifest, no fit of
+    ``structure`` (None: no fit is needed; the path returned is then None), or when the data file has
+    changed since the run (its SHA-256 differs from the manifest's)."""
+    from .comparison import load_comparison
+    from .data import load_dataset
+
+    run_dir = Path(run_dir)
+    manifest = read_manifest(run_dir)
+    fit_path = None
+    if structure is not None:
+        fit_path = run_dir / "fits" / f"{structure}.nc"
+        if not fit_path.exists():
+            have = sorted(p.stem for p in (run_dir / "fits").glob("*.nc"))
+            raise UserInputError(str(run_dir), [
+                f"no fit of structure {structure!r} in {run_dir / 'fits'}; fits there: "
+                f"{', '.join(have) or 'none (the run has not finished a structure)'}"])
+    comparison = load_comparison(Path(manifest["comparison"]))
+    if file_hash(comparison.data.file) != manifest.get("data_sha256"):
+        raise UserInputError(str(comparison.data.file), [
+            f"the data file has changed since the run (its SHA-256 differs from the manifest's); {purpose} "
+            "need the data the fit was made on: restore it, or run `leafcv compare` again"])
+    return manifest, comparison, load_dataset(comparison.data), fit_path

@@ -43,25 +43,16 @@ class Prediction:
 def predict(run_dir: str | Path, structure: str, leaves: str | Path | pd.DataFrame,
             conditions: str | Path | pd.DataFrame | None = None) -> Prediction:
     """Predict the FvCB parameters (and optionally A) of new leaves under ``structure`` of a run."""
-    from .api import load
+    from .comparison import check_against_data
     from .cv.arviz_bridge import open_fit
-    from .manifest import file_hash
     from .design import build_design, natural_values
+    from .errors import SpecError
+    from .manifest import run_inputs
 
-    from .manifest import read_manifest
-
-    run_dir = Path(run_dir)
-    manifest = read_manifest(run_dir)
-    fit_path = run_dir / "fits" / f"{structure}.nc"
-    if not fit_path.exists():
-        have = sorted(p.stem for p in (run_dir / "fits").glob("*.nc"))
-        raise UserInputError(str(run_dir), [f"no fit of structure {structure!r} in {run_dir / 'fits'}; fits there: "
-                                            f"{', '.join(have) or 'none (the run has not finished a structure)'}"])
-    comparison, dataset = load(manifest["comparison"])
-    if file_hash(comparison.data.file) != manifest.get("data_sha256"):
-        raise UserInputError(str(comparison.data.file), [
-            "the data file has changed since the run (its SHA-256 differs from the manifest's); predictions need "
-            "the data the fit was made on: restore it, or run `leafcv compare` again"])
+    manifest, comparison, dataset, fit_path = run_inputs(run_dir, structure, "predictions")
+    problems = check_against_data(comparison, dataset)
+    if problems:
+        raise SpecError(str(comparison.path), problems)
     st = comparison.structure(structure)
     design = build_design(st, dataset, comparison.data)
     post = open_fit(fit_path)["posterior"].to_dataset()

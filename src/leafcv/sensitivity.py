@@ -293,26 +293,12 @@ def mismatches(design, draws: dict[str, np.ndarray], n_leaves: int) -> list[str]
 def run_sensitivity(run_dir: str | Path, structure: str, delta: float = DELTA) -> pd.DataFrame:
     """The sensitivity table of ``structure``'s saved full-data fit (``fits/<structure>.nc``). Reads the
     comparison and data files the manifest names (the data only when its hash matches); no sampler."""
-    from .comparison import load_comparison
     from .cv.arviz_bridge import open_fit
-    from .data import load_dataset
     from .design import build_design
     from .errors import UserInputError
-    from .manifest import file_hash, read_manifest
+    from .manifest import run_inputs
 
-    run_dir = Path(run_dir)
-    manifest = read_manifest(run_dir)
-    path = run_dir / "fits" / f"{structure}.nc"
-    if not path.exists():
-        have = sorted(p.stem for p in (run_dir / "fits").glob("*.nc"))
-        raise UserInputError(str(run_dir), [f"no fit of structure {structure!r} in {run_dir / 'fits'}; fits there: "
-                                            f"{', '.join(have) or 'none (the run has not finished a structure)'}"])
-    comparison = load_comparison(Path(manifest["comparison"]))
-    if file_hash(comparison.data.file) != manifest.get("data_sha256"):
-        raise UserInputError(str(comparison.data.file), [
-            "the data file has changed since the run (its SHA-256 differs from the manifest's); the prior "
-            "sensitivity needs the data the fit was made on: restore it, or run `leafcv compare` again"])
-    dataset = load_dataset(comparison.data)
+    manifest, comparison, dataset, path = run_inputs(run_dir, structure, "prior sensitivities")
     design = build_design(comparison.structure(structure), dataset, comparison.data)
     post = open_fit(path)["posterior"].to_dataset()
     draws = {k: post[k].values.reshape((-1,) + post[k].shape[2:]) for k in post.data_vars}

@@ -203,17 +203,11 @@ def simulate_run(run_dir: str | Path, structure: str | None = None, *, replicate
     from .comparison.writing import comparison_text
     from .compare import run_comparison
     from .data import load_dataset
-    from .manifest import file_hash, read_manifest
+    from .manifest import run_inputs
     from .simulation_summary import summarise
 
     run_dir = Path(run_dir)
-    manifest = read_manifest(run_dir)
-    comparison = load_comparison(Path(manifest["comparison"]))
-    dataset = load_dataset(comparison.data)
-    if file_hash(comparison.data.file) != manifest.get("data_sha256"):
-        raise UserInputError(str(comparison.data.file), [
-            "the data file has changed since the run (its SHA-256 differs from the manifest's); a simulation "
-            "draws from the run's fit, which needs the data it was made on: restore it, or run `leafcv compare` again"])
+    manifest, comparison, dataset, _ = run_inputs(run_dir, None, "replicate studies drawn from the run's fit")
     ranking_path = run_dir / "ranking.csv"
     if structure is None:
         if not ranking_path.exists():
