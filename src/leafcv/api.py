@@ -309,7 +309,7 @@ class Run:
     def simulate(self, structure: str | None = None, *, replicates: int = 20, leaves_per_level: int | None = None,
                  level_of: str | None = None, out: str | Path | None = None, chains: int | None = None,
                  warmup: int | None = None, draws: int | None = None, workers: int | None = None,
-                 scheduler: str | None = None, progress: str | None = None) -> dict[str, Any]:
+                 scheduler: str | None = None, progress: str | None = None, engine=None) -> dict[str, Any]:
         """How reliable is the choice on a study like this one: ``replicates`` studies drawn from
         ``structure``'s posterior (default: the best ranked) on this run's design (or with
         ``leaves_per_level`` leaves in every level of grouping ``level_of``, default the first grouping),
@@ -318,13 +318,14 @@ class Run:
         ``RUNDIR/simulation``; the report shows that one) and returns its tables: ``candidates`` (how
         often each candidate ranked first or was not told apart from the first, and Δelpd of the
         generating structure minus each), ``coverage`` (of the generating structure's 90 % intervals),
-        ``replicates`` (one row per replicate and candidate) and ``folder``."""
+        ``replicates`` (one row per replicate and candidate) and ``folder``. ``engine``: "pystan" or
+        "cmdstan" (default: the run's own)."""
         from .simulate import simulate_run
         from .simulation_summary import summarise
 
         folder = simulate_run(self.folder, structure, replicates=replicates, leaves_per_level=leaves_per_level,
                               level_of=level_of, out=out, chains=chains, warmup=warmup, draws=draws,
-                              workers=workers, scheduler=scheduler, progress=progress)
+                              workers=workers, scheduler=scheduler, progress=progress, engine=engine)
         tables = summarise(folder)
         tables["folder"] = folder
         return tables

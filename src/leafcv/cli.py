@@ -89,6 +89,7 @@ def _parser() -> argparse.ArgumentParser:
     s.add_argument("--workers", type=int, metavar="N", help="as for compare")
     s.add_argument("--scheduler", metavar="ADDRESS", help="as for compare")
     s.add_argument("--progress", choices=("bar", "plain", "quiet"), help="as for compare")
+    s.add_argument("--engine", choices=ENGINE_NAMES, help="the Stan engine of the replicates (default: the run's)")
     return p
 
 
@@ -98,7 +99,7 @@ def cmd_simulate(args) -> int:
     run = open_run(args.rundir)
     t = run.simulate(args.structure, replicates=args.replicates, leaves_per_level=args.leaves_per_level,
                      level_of=args.level_of, out=args.out, chains=args.chains, warmup=args.warmup, draws=args.draws,
-                     workers=args.workers, scheduler=args.scheduler, progress=args.progress)
+                     workers=args.workers, scheduler=args.scheduler, progress=args.progress, engine=args.engine)
     cands = t["candidates"]
     gen = cands.loc[cands["generating"], "structure"]
     print(f"\n{t['n_replicates']} replicate studies drawn from {gen.iloc[0] if len(gen) else '?'}:")

@@ -243,6 +243,11 @@ def simulate_run(run_dir: str | Path, structure: str | None = None, *, replicate
             problems.append(f"{flag} must be at least 1, got {value}")
     if problems:
         raise UserInputError("leafcv simulate", problems)
+    if engine is None:                     # the replicates sample with the run's own engine
+        from .engines.choice import ENGINE_NAMES
+
+        used = (manifest.get("engine") or {}).get("name")
+        engine = used if used in ENGINE_NAMES else None
     settings = SimulationSettings(structure, replicates, leaves_per_level, level_of if leaves_per_level else None,
                                   chains or base.chains, warmup or base.warmup, draws or base.draws,
                                   int(base.seed), str(run_dir.resolve()))
