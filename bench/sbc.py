@@ -127,7 +127,7 @@ def _engine():
     return _CACHE["engine"]
 
 
-def replicate(folder: str, structure: str, r: int, chains: int, warmup: int, draws: int) -> dict:
+def replicate(folder: str, structure: str, r: int, chains: int, warmup: int, draws: int, seed: int = SEED) -> dict:
     """Prior draw -> data -> fit -> ranks. Returns the record saved as rep-NNNN.json."""
     from leafcv.design import build_design, leaf_link_values, natural_values
     from leafcv.fitting import fit_structure
@@ -138,11 +138,11 @@ def replicate(folder: str, structure: str, r: int, chains: int, warmup: int, dra
     comparison, dataset = _setup(Path(folder))
     st = comparison.structure(structure)
     k = STRUCTURES.index(structure) if structure in STRUCTURES else len(STRUCTURES) + sum(map(ord, structure))
-    rng = np.random.default_rng([SEED, k, r])
+    rng = np.random.default_rng([seed, k, r])
     design = build_design(st, dataset, comparison.data)
     truth = prior_draw(design, rng)
     sim, a = simulate(design, dataset, truth, rng)
-    record = {"structure": structure, "replicate": r, "seed": [SEED, k, r],
+    record = {"structure": structure, "replicate": r, "seed": [seed, k, r],
               "truth": {n: np.asarray(v).ravel().tolist() for n, v in truth.items() if n != "leaf_value"},
               "data": {"a_min": float(a.min()), "a_max": float(a.max()), "share_negative": float(np.mean(a < 0))}}
     sampler = SamplerSpec(chains=chains, warmup=warmup, draws=draws, seed=int(rng.integers(1, 2**31 - 1)),
@@ -178,9 +178,9 @@ def replicate(folder: str, structure: str, r: int, chains: int, warmup: int, dra
 
 
 def _run_one(args) -> tuple[str, int, dict]:
-    folder, structure, r, chains, warmup, draws = args
+    folder, structure, r, chains, warmup, draws, seed = args
     try:
-        rec = replicate(folder, structure, r, chains, warmup, draws)
+        rec = replicate(folder, structure, r, chains, warmup, draws, seed)
     except Exception:                 # an error of this script, not of the fit: shown, not saved as done
         rec = {"structure": structure, "replicate": r, "status": "error", "traceback": traceback.format_exc()}
     return structure, r, rec
@@ -190,12 +190,13 @@ def rep_path(folder: Path, structure: str, r: int) -> Path:
     return folder / structure / f"rep-{r:04d}.json"
 
 
-def run(folder: Path, structures, replicates: int, workers: int, chains: int, warmup: int, draws: int) -> None:
+def run(folder: Path, structures, replicates: int, workers: int, chains: int, warmup: int, draws: int,
+        seed: int = SEED) -> None:
     from concurrent.futures import ProcessPoolExecutor, as_completed
     import multiprocessing as mp
 
     _setup(folder)
-    todo = [(str(folder), s, r, chains, warmup, draws) for r in range(replicates) for s in structures
+    todo = [(str(folder), s, r, chains, warmup, draws, seed) for r in range(replicates) for s in structures
             if not rep_path(folder, s, r).exists()]     # structures interleaved: a cut-short run has both
     print(f"{len(todo)} replicates to run ({replicates} per structure; the others are done)", flush=True)
     t0 = time.perf_counter()
@@ -386,6 +387,8 @@ def main(argv=None) -> int:
     ap.add_argument("--chains", type=int, default=2)
     ap.add_argument("--warmup", type=int, default=300)
     ap.add_argument("--draws", type=int, default=300)
+    ap.add_argument("--seed", type=int, default=SEED,
+                    help=f"base seed of the prior draws and fits (default {SEED}); another seed, another folder")
     ap.add_argument("--doc", type=Path, default=ROOT / "docs" / "validation.md")
     ap.add_argument("--write-only", action="store_true", help="write the doc from the replicates finished")
     ap.add_argument("--notes", type=Path, help="a Markdown file of findings, added to the doc as its last section")
@@ -393,9 +396,10 @@ def main(argv=None) -> int:
     structures = tuple(args.structure or STRUCTURES)
     args.folder.mkdir(parents=True, exist_ok=True)
     if not args.write_only:
-        run(args.folder, structures, args.replicates, args.workers, args.chains, args.warmup, args.draws)
+        run(args.folder, structures, args.replicates, args.workers, args.chains, args.warmup, args.draws, args.seed)
     settings = (f"{args.chains} chains x ({args.warmup} warm-up + {args.draws} draws), adapt_delta 0.95, "
-                f"thinned to about {THIN_TO} draws; quick-demo design; structures {', '.join(structures)}")
+                f"thinned to about {THIN_TO} draws; quick-demo design; structures {', '.join(structures)}; "
+                f"base seed {args.seed}")
     notes = args.notes.read_text() if args.notes else ""
     rows = write_doc(args.folder, structures, args.replicates, settings, args.doc, notes)
     for r in rows:
