@@ -72,3 +72,49 @@ def test_a_program_that_does_not_compile_names_the_log(monkeypatch, tmp_path):
     with pytest.raises(EngineError) as err:
         PyStanEngine(log=lambda m: None, compile_log=str(log)).precompile("broken program")
     assert str(log) in str(err.value) and "expected ';'" in log.read_text()
+
+
+def _flaky_build(monkeypatch, tmp_path, first_error):
+    """stan.build failing once with ``first_error``, then compiling (as httpstan does after a stanc
+    timeout on a busy machine)."""
+    import httpstan.cache
+    import stan
+
+    from leafcv.engines.pystan_engine import PyStanEngine
+
+    compiled: set[str] = set()
+    builds: list[str] = []
+
+    def build(program, data=None, random_seed=None):
+        builds.append(program)
+        if len(builds) == 1:
+            raise first_error
+        compiled.add(program)
+        raise RuntimeError("the program needs data")
+
+    monkeypatch.setattr(stan, "build", build)
+    monkeypatch.setattr(httpstan.cache, "cache_directory", lambda: tmp_path / "cache")
+    monkeypatch.setattr(PyStanEngine, "is_compiled", lambda self, program: program in compiled)
+    return builds
+
+
+def test_a_quick_compiler_failure_is_tried_again(monkeypatch, tmp_path):
+    # httpstan 4.13 gives stanc 1 s (httpstan/compile.py: subprocess.run(..., timeout=1)); the timeout
+    # reaches stan.build as a RuntimeError
+    from leafcv.engines.pystan_engine import PyStanEngine
+
+    builds = _flaky_build(monkeypatch, tmp_path, RuntimeError("Command '['stanc']' timed out after 1 seconds"))
+    messages: list[str] = []
+    PyStanEngine(log=messages.append, compile_log=str(tmp_path / "c.log")).precompile("program text")
+    assert builds == ["program text", "program text"]
+    assert any("trying again (2 of 3)" in m and "timed out" in m for m in messages)
+
+
+def test_a_syntax_error_is_not_tried_again(monkeypatch, tmp_path):
+    from leafcv.engines.pystan_engine import PyStanEngine
+    from leafcv.errors import EngineError
+
+    builds = _flaky_build(monkeypatch, tmp_path, ValueError("Syntax error"))
+    with pytest.raises(EngineError, match="Syntax error"):
+        PyStanEngine(log=lambda m: None, compile_log=str(tmp_path / "c.log")).precompile("program text")
+    assert builds == ["program text"]

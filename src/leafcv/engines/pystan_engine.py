@@ -25,6 +25,11 @@ from ..spec import SamplerSpec
 from .base import SAMPLER_FIELDS, Draws, compile_lock, output_to
 
 _ITER = re.compile(r"Iteration:\s+(\d+)\s+/\s+(\d+)")
+#: httpstan 4.13 runs stanc with a 1 s timeout (httpstan/compile.py), which a busy machine can exceed: a
+#: compile that fails within QUICK_FAILURE seconds, other than by a syntax or semantic error (ValueError),
+#: is tried again, at most COMPILE_ATTEMPTS times in all. A C++ failure comes after minutes and is not.
+COMPILE_ATTEMPTS = 3
+QUICK_FAILURE = 20.0
 
 
 def _jsonable(obj: Any) -> Any:
@@ -99,13 +104,22 @@ class PyStanEngine:
                 return
             self.log(f"compiling the Stan program (once per program version on this machine; 1-2 minutes; "
                      f"compiler output in {log_path})...")
-            with output_to(log_path):
-                try:
-                    outside_event_loop(stan.build, program, data={})
-                except Exception as exc:    # no data: the program compiled, then wanted data; or it failed
-                    if not self.is_compiled(program):
+            for attempt in range(1, COMPILE_ATTEMPTS + 1):
+                start = time.perf_counter()
+                with output_to(log_path):
+                    try:
+                        outside_event_loop(stan.build, program, data={})
+                    except Exception as exc:    # no data: the program compiled, then wanted data; or it failed
+                        if self.is_compiled(program):
+                            return
+                        quick = time.perf_counter() - start < QUICK_FAILURE
+                        if attempt < COMPILE_ATTEMPTS and quick and not isinstance(exc, ValueError):
+                            self.log(f"the Stan compiler failed after {time.perf_counter() - start:.1f} s "
+                                     f"({str(exc)[:100]}); trying again ({attempt + 1} of {COMPILE_ATTEMPTS})")
+                            continue
                         raise EngineError(f"PyStan could not compile the program: {exc} (compiler output in "
                                           f"{log_path})", str(exc)) from exc
+                return
 
     def fit(
         self,
