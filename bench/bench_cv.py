@@ -19,7 +19,7 @@ from pathlib import Path
 import numpy as np
 
 from leafcv.api import load
-from leafcv.cv.methods import cross_validate
+from leafcv.cv.plan import cross_validate
 from leafcv.demo import write_demo
 from leafcv.inits import fit_leaves
 from leafcv.spec import SamplerSpec

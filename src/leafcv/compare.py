@@ -341,7 +341,7 @@ def _run_locked(comparison, dataset, out, *, method, engine, log, spot_checks, s
     from .batch.runner import Runner
     from .batch.store import TaskStore
     from .batch.worker import machine_cores
-    from .cv.methods import kept_outputs
+    from .cv.plan import kept_outputs
     from .cv.plan import Context, plan
 
     method = method or comparison.cv.method

@@ -30,15 +30,11 @@ import pandas as pd
 from .data.dataset import LEAF_TERM, Dataset
 from .design import Design, build_design, leaf_cov_chol
 from .errors import UserInputError
+from .simulation_summary import FOLDER, posterior_draws
 from .spec import SamplerSpec
 
 #: Seed stream of the replicates (apart from every other stream of a run's seed).
 SIMULATION_STREAM = 7_301
-#: The folder of a simulation inside the run folder, by default.
-FOLDER = "simulation"
-#: Population quantities whose intervals are checked for coverage, in the fit file's names.
-POPULATION = ("b0", "beta", "tau", "tau_leaf", "sigma", "nu")
-INTERVAL = 0.90
 
 logger = logging.getLogger("leafcv")
 
@@ -62,22 +58,6 @@ class SimulationSettings:
         d = asdict(self)
         d.pop("replicates")
         return d
-
-
-def posterior_draws(fit_path: Path) -> tuple[dict[str, np.ndarray], dict[str, list[str]]]:
-    """Draws of a saved fit flattened over chains (name -> (S, ...)) and, for each population
-    quantity, the labels of its entries (from the file's coordinates)."""
-    import xarray as xr
-
-    with xr.open_dataset(fit_path, group="posterior", engine="h5netcdf") as post:
-        draws = {k: post[k].values.reshape((-1,) + post[k].shape[2:]) for k in post.data_vars}
-        labels = {}
-        for name in POPULATION:
-            if name in post.data_vars:
-                dims = [d for d in post[name].dims if d not in ("chain", "draw")]
-                labels[name] = ([f"{name}[{v}]" for v in post[name][dims[0]].values.astype(str)] if dims
-                                else [name])
-    return draws, labels
 
 
 def _with_empty_blocks(draws: dict[str, np.ndarray]) -> dict[str, np.ndarray]:

@@ -1,5 +1,8 @@
 """What a simulation (`leafcv.simulate`) says: its replicates' rankings and fits summed up, as CSV.
 
+This module reads a simulation (its folder, the fits' population draws) and never imports `leafcv.simulate`,
+which writes one; the report reads simulations through it.
+
 Written into the simulation's folder:
 - ``replicates.csv``: one row per (replicate, candidate): rank, elpd, Δelpd to the replicate's first
   structure and whether leafcv's rule tells them apart (`leafcv.ranking.pair_verdict`), and Δelpd of
@@ -23,6 +26,29 @@ from .ranking import pair_verdict
 REPLICATES_FILE = "replicates.csv"
 CANDIDATES_FILE = "candidates.csv"
 COVERAGE_FILE = "coverage.csv"
+
+#: The folder of a simulation inside the run folder, by default.
+FOLDER = "simulation"
+#: Population quantities whose intervals are checked for coverage, in the fit file's names.
+POPULATION = ("b0", "beta", "tau", "tau_leaf", "sigma", "nu")
+#: The central posterior interval whose coverage is counted.
+INTERVAL = 0.90
+
+
+def posterior_draws(fit_path: Path) -> tuple[dict[str, np.ndarray], dict[str, list[str]]]:
+    """Draws of a saved fit flattened over chains (name -> (S, ...)) and, for each population
+    quantity, the labels of its entries (from the file's coordinates)."""
+    import xarray as xr
+
+    with xr.open_dataset(fit_path, group="posterior", engine="h5netcdf") as post:
+        draws = {k: post[k].values.reshape((-1,) + post[k].shape[2:]) for k in post.data_vars}
+        labels = {}
+        for name in POPULATION:
+            if name in post.data_vars:
+                dims = [d for d in post[name].dims if d not in ("chain", "draw")]
+                labels[name] = ([f"{name}[{v}]" for v in post[name][dims[0]].values.astype(str)] if dims
+                                else [name])
+    return draws, labels
 
 
 def _replicate_rows(k: int, run: Path, generating: str) -> list[dict]:
@@ -52,8 +78,6 @@ def _replicate_rows(k: int, run: Path, generating: str) -> list[dict]:
 
 
 def _coverage_rows(k: int, run: Path, generating: str, truth: dict[str, float], interval: float) -> list[dict]:
-    from .simulate import posterior_draws
-
     fit = run / "fits" / f"{generating}.nc"
     if not fit.exists():
         return []
@@ -73,8 +97,6 @@ def _coverage_rows(k: int, run: Path, generating: str, truth: dict[str, float], 
 
 def summarise(folder: str | Path) -> dict[str, pd.DataFrame]:
     """Sum up the finished replicates of the simulation in ``folder``; write and return the tables."""
-    from .simulate import INTERVAL
-
     folder = Path(folder)
     settings = json.loads((folder / "settings.json").read_text())
     generating = settings["structure"]

@@ -8,7 +8,8 @@ from dataclasses import replace
 import numpy as np
 import pytest
 
-from leafcv.cv.methods import MAX_ATTEMPTS, cross_validate, folds_for, remedy, spot_tolerance
+from leafcv.cv.methods import MAX_ATTEMPTS, folds_for, remedy, spot_tolerance
+from leafcv.cv.plan import cross_validate
 from leafcv.inits import fit_leaves
 from leafcv.spec import SamplerSpec
 from ..fakes import FakeEngine

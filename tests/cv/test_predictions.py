@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 from scipy import optimize, stats
 
-from leafcv.cv.methods import cross_validate
+from leafcv.cv.plan import cross_validate
 from leafcv.cv.predictions import GRID_POINTS, _mixture_quantile, leaf_grid
 from leafcv.inits import fit_leaves
 from leafcv.spec import SamplerSpec

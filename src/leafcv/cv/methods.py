@@ -11,6 +11,10 @@ Every held-out leaf is scored jointly over its points, with its effects integrat
 
 Only the fits whose draws feed a score decide a structure's grade; a failed fit is retried with a
 remedy aimed at its cause (see `remedy`), up to MAX_ATTEMPTS attempts, each recorded.
+
+`leafcv.cv.plan` turns each method into tasks and runs them (`plan.cross_validate` in this process); this
+module holds the pieces the tasks call and never imports the plan. Tests: tests/cv/test_methods.py,
+tests/sampling/cv/test_methods.py.
 """
 from __future__ import annotations
 
@@ -25,11 +29,10 @@ from ..diagnostics import DIVERGENCE_CODE, MIXING_CODES
 from ..errors import SpecError
 from ..fitting import StructureFit, fit_structure
 from ..inits import LeafFits
-from ..spec import Comparison, ParamSpec, SamplerSpec, Structure
+from ..spec import SamplerSpec, Structure
 from .leafmodel import LeafModel, flatten_draws
 from .predictions import curve_draws
 from .quadrature import LEAF_TOL, QuadratureInfo, leaf_log_marginal
-from .result import CVResult
 
 #: Attempts per fit: the first and up to two targeted retries.
 MAX_ATTEMPTS = 3
@@ -102,7 +105,7 @@ class Scored:
     curves: list = field(default_factory=list)   # per leaf: CurveDraws (predictive curves) or None
 
 
-def _fold_seed_base(sampler: SamplerSpec, method: str) -> int:
+def fold_seed_base(sampler: SamplerSpec, method: str) -> int:
     """Seed of fold 0 of methods exact and kfold; fold i adds i."""
     return sampler.seed + (KFOLD_SEED_OFFSET if method == "kfold" else REFIT_SEED_OFFSET)
 
@@ -195,7 +198,7 @@ def score_level(fit: StructureFit, dataset: Dataset, leaves: np.ndarray, leaf_fi
 # ----------------------------------------------------------------------------------------------
 # fitting with targeted retries
 
-def _noncentred_groups(structure: Structure) -> Structure:
+def noncentred_groups(structure: Structure) -> Structure:
     """The structure with every random term other than the leaf effects non-centred."""
     params = {}
     for p, ps in structure.params.items():
@@ -226,7 +229,7 @@ def remedy(problems: tuple[str, ...], sampler: SamplerSpec, structure: Structure
     causes, new, st = [], sampler, structure
     if divergent:
         new = replace(new, adapt_delta=max(new.adapt_delta, 0.95 if attempt == 1 else 0.99))
-        st = _noncentred_groups(structure)
+        st = noncentred_groups(structure)
         causes.append(f"divergences: adapt_delta {new.adapt_delta:g}, group effects non-centred")
     if mixing or not divergent:
         new = replace(new, warmup=2 * new.warmup, draws=2 * new.draws)
@@ -291,7 +294,7 @@ def fit_with_retries(structure, dataset, comparison, sampler, leaf_fits, train, 
 # cross-validation
 
 @dataclass
-class _Leafwise:
+class Leafwise:
     """Per-leaf values being assembled."""
 
     L: int
@@ -309,7 +312,7 @@ class _Leafwise:
         self.how = [""] * self.L
 
 
-def _check_curve_types(structure: Structure, dataset: Dataset, train: np.ndarray, held: np.ndarray) -> None:
+def check_curve_types(structure: Structure, dataset: Dataset, train: np.ndarray, held: np.ndarray) -> None:
     """With a residual SD per curve type, every held-out leaf's curve types need training points."""
     opts = structure.options
     if not opts.sigma_by_curve:
@@ -327,7 +330,7 @@ def _check_curve_types(structure: Structure, dataset: Dataset, train: np.ndarray
         raise SpecError(structure.name, problems)
 
 
-def _note_quadrature(details: CVDetails, leaf_ids, leaves, quads) -> None:
+def note_quadrature(details: CVDetails, leaf_ids, leaves, quads) -> None:
     for g, q in zip(leaves, quads):
         details.escalated_cells += q.n_escalated
         details.brute_force_cells += q.n_brute
@@ -337,46 +340,14 @@ def _note_quadrature(details: CVDetails, leaf_ids, leaves, quads) -> None:
                                       f"{q.n_cells} draws with rules differing by up to {q.unresolved_gap:.3g} nats)")
 
 
-def cross_validate(structure: Structure, dataset: Dataset, comparison: Comparison, *, method: str = "auto",
-                   by: str = "leaf", folds: int = 10, spot_checks: int = 3, engine=None,
-                   leaf_fits: LeafFits, sampler: SamplerSpec | None = None, options=None, priors=None,
-                   keep: dict | None = None, estimates: bool = False) -> tuple[CVResult, CVDetails]:
-    """Held-out scores of one structure by ``method`` (auto | exact | kfold), every task of its plan
-    (`leafcv.cv.plan`) run in this process, one after another.
-
-    ``keep``: a dict that receives, when the method makes one (or with ``estimates``), the full-data
-    fit (``"fit"``) and each leaf's log marginal likelihood per draw of it (``"log_m"``, draws chain after
-    chain by leaves), and the held-out predictions (``"points"``, ``"curves"``)."""
-    from .plan import Context, plan, run_in_process
-
-    sampler = sampler or comparison.sampler
-    ctx = Context(comparison, dataset, leaf_fits, sampler, engine=engine)
-    steps = plan(structure, dataset, comparison, sampler=sampler, method=method, by=by, folds=folds,
-                 spot_checks=spot_checks, options=options, priors=priors, estimates=estimates)
-    result, details, kept = run_in_process(steps, ctx)
-    if keep is not None:
-        keep.update(kept_outputs(ctx, structure, kept, options, priors))
-    return result, details
-
-
-def kept_outputs(ctx, structure: Structure, kept: dict, options=None, priors=None) -> dict:
-    """A plan's ``keep`` with the full-data fit rebuilt from its task output (``"fit"``)."""
-    from .plan import restore_fit
-
-    out = {k: v for k, v in kept.items() if k != "full_output"}
-    if "full_output" in kept:
-        out["fit"] = restore_fit(ctx, structure, kept["full_output"], options, priors)
-    return out
-
-
-def _set_curve(acc: _Leafwise, g: int, curve) -> None:
+def set_curve(acc: Leafwise, g: int, curve) -> None:
     if curve is not None:
         acc.curves[g] = curve
     else:
         acc.curves.pop(g, None)
 
 
-def _fit_warnings(details: CVDetails, grade: str) -> list[str]:
+def fit_warnings(details: CVDetails, grade: str) -> list[str]:
     """Sentences on the fits that feed the score (spot-check refits that agreed are not among them)."""
     last = {}
     for f in details.fits:
@@ -391,7 +362,7 @@ def _fit_warnings(details: CVDetails, grade: str) -> list[str]:
             f"({worst['role']}: {'; '.join(worst['problems'])})"]
 
 
-def _prediction_scores(dataset: Dataset, preds: dict[int, np.ndarray]) -> tuple[dict, dict]:
+def prediction_scores(dataset: Dataset, preds: dict[int, np.ndarray]) -> tuple[dict, dict]:
     """Held-out RMSE and R^2 = 1 - SSE/SST of predicted against observed A, by curve type and overall."""
     obs = dataset.obs
     pieces = []

@@ -23,7 +23,7 @@ import hashlib
 import json
 import time
 from dataclasses import asdict, dataclass, field
-from typing import Any, Callable, Generator
+from typing import TYPE_CHECKING, Any, Callable, Generator
 
 import numpy as np
 import pandas as pd
@@ -33,6 +33,10 @@ from ..inits import LeafFits
 from ..spec import Comparison, SamplerSpec, Structure
 from .predictions import summarise_curves
 from .psis import integrated_loo, refit_elpd
+
+if TYPE_CHECKING:
+    from .methods import CVDetails
+    from .result import CVResult
 
 #: Version of task payloads and outputs: part of every task key, so a change of what a task computes
 #: never reuses an output stored by an earlier leafcv. 3: quadrature checked by shifted rules and a
@@ -143,10 +147,10 @@ def restore_fit(ctx: Context, structure: Structure, output: TaskOutput, options=
     from ..diagnostics import diagnose
     from ..engines.base import Draws
     from ..fitting import POPULATION, StructureFit
-    from .methods import _noncentred_groups
+    from .methods import noncentred_groups
 
     rec = output.record
-    st = structure if rec["variant"] == "given" else _noncentred_groups(structure)
+    st = structure if rec["variant"] == "given" else noncentred_groups(structure)
     design = build_design(st, ctx.dataset, ctx.comparison.data, options, priors, None, ctx.leaf_fits)
     params = {k[2:]: np.asarray(v) for k, v in output.arrays.items() if k.startswith("p/")}
     sampler = {k[2:]: np.asarray(v) for k, v in output.arrays.items() if k.startswith("s/")}
@@ -167,7 +171,7 @@ def curve_frame(record: dict | None) -> pd.DataFrame | None:
 
 def execute(ctx: Context, task: Task, inputs: dict[str, TaskOutput]) -> TaskOutput:
     """Run one task in this process."""
-    from .methods import (CVDetails, _check_curve_types, fit_with_retries, score_leaves, score_level)
+    from .methods import (CVDetails, check_curve_types, fit_with_retries, score_leaves, score_level)
     p = task.payload
     st = task.structure
     dataset, engine = ctx.dataset, None
@@ -202,7 +206,7 @@ def execute(ctx: Context, task: Task, inputs: dict[str, TaskOutput]) -> TaskOutp
     held = np.asarray(p["held"], int)
     train = np.ones(L, bool)
     train[held] = False
-    _check_curve_types(st, dataset, train, held)
+    check_curve_types(st, dataset, train, held)
     warm = restore_fit(ctx, st, inputs[task.inputs[0]], p.get("options"), p.get("priors")) if task.inputs else None
     details = CVDetails()
     t = time.perf_counter()
@@ -248,9 +252,9 @@ def plan(structure: Structure, dataset: Dataset, comparison: Comparison, *, samp
     """The tasks of one structure's cross-validation, as described in the module docstring; returns
     ``(CVResult, CVDetails, keep)`` where ``keep`` holds ``fit`` (the full-data StructureFit, when one
     was made), ``log_m``, ``points`` and ``curves``."""
-    from .methods import (REFIT_SEED_OFFSET, _fold_seed_base, SPOT_DISAGREE_REFIT_ALL, SPOT_MCSE_MULTIPLE,
-                          SPOT_MIN_NATS, SPOT_STREAM, CVDetails, _fit_warnings, _Leafwise, _note_quadrature,
-                          _prediction_scores, _set_curve, folds_for, spot_tolerance)
+    from .methods import (REFIT_SEED_OFFSET, fold_seed_base, SPOT_DISAGREE_REFIT_ALL, SPOT_MCSE_MULTIPLE,
+                          SPOT_MIN_NATS, SPOT_STREAM, CVDetails, fit_warnings, Leafwise, note_quadrature,
+                          prediction_scores, set_curve, folds_for, spot_tolerance)
     from ..diagnostics import worst_grade
     from .predictions import curves_table, points_table
     from .psis import khat_threshold
@@ -281,7 +285,7 @@ def plan(structure: Structure, dataset: Dataset, comparison: Comparison, *, samp
     def held_role(prefix: str, held) -> str:
         return f"{prefix} without {', '.join(leaf_ids[g] for g in held)}"
 
-    acc = _Leafwise(L)
+    acc = Leafwise(L)
     grades: list[str] = []
     n_refits = 0
     n_draws = sampler.chains * sampler.draws
@@ -308,7 +312,7 @@ def plan(structure: Structure, dataset: Dataset, comparison: Comparison, *, samp
             log_m[:, r["leaves"]] = s.arrays["log_m"]
             details.quadrature_seconds += r["seconds"]
         keep.update(full_output=out, log_m=log_m)
-        _note_quadrature(details, leaf_ids, range(L), quads)
+        note_quadrature(details, leaf_ids, range(L), quads)
         details.psis_khat = [float(k) for k in acc.khat]
         acc.how = ["psis"] * L
         thr = khat_threshold(n_draws)
@@ -337,7 +341,7 @@ def plan(structure: Structure, dataset: Dataset, comparison: Comparison, *, samp
 
         ex = yield from refits(todo, frozenset(spots))
         n_refits = len(todo)
-        _note_quadrature(details, leaf_ids, todo, [ex[g][4] for g in todo])
+        note_quadrature(details, leaf_ids, todo, [ex[g][4] for g in todo])
         replace_leaves = list(flagged)
         disagree = []
         for g in spots:
@@ -360,7 +364,7 @@ def plan(structure: Structure, dataset: Dataset, comparison: Comparison, *, samp
             more = yield from refits(rest, frozenset())
             ex.update(more)
             n_refits += len(rest)
-            _note_quadrature(details, leaf_ids, rest, [more[g][4] for g in rest])
+            note_quadrature(details, leaf_ids, rest, [more[g][4] for g in rest])
             replace_leaves += rest
             details.notes.append(f"{len(disagree)} spot checks disagreed: every leaf was refitted exactly")
         used_roles = {held_role("refit", [g]) for g in replace_leaves}
@@ -371,7 +375,7 @@ def plan(structure: Structure, dataset: Dataset, comparison: Comparison, *, samp
             e, m, b, pred, _, grade, curve = ex[g]
             acc.elpd[g], acc.mcse[g], acc.bound[g], acc.khat[g], acc.how[g] = e, m, b, np.nan, "refit"
             acc.preds[g] = pred
-            _set_curve(acc, g, curve)
+            set_curve(acc, g, curve)
             grades.append(grade)
             details.refit_leaves.append(leaf_ids[g])
         if flagged:
@@ -381,7 +385,7 @@ def plan(structure: Structure, dataset: Dataset, comparison: Comparison, *, samp
                         [g for g in replace_leaves if ex[g][4].bound > LEAF_TOL]
     else:
         fold_sets = folds_for(dataset, by, method, folds, sampler.seed)
-        seed0 = _fold_seed_base(sampler, method)
+        seed0 = fold_seed_base(sampler, method)
         prefix = "refit" if method == "exact" else "fold"
         tasks = []
         for i, held in enumerate(fold_sets):
@@ -410,16 +414,16 @@ def plan(structure: Structure, dataset: Dataset, comparison: Comparison, *, samp
             for g, lf in zip(o.record["held"], o.record["leaves"]):
                 acc.elpd[g], acc.mcse[g], acc.bound[g], acc.how[g] = lf["elpd"], lf["mcse"], lf["bound"], method
                 acc.preds[g] = np.asarray(lf["pred"], float)
-                _set_curve(acc, g, curve_frame(lf["curve"]))
+                set_curve(acc, g, curve_frame(lf["curve"]))
                 quads[g] = QuadratureInfo(**lf["quad"])
-        _note_quadrature(details, leaf_ids, list(quads), list(quads.values()))
+        note_quadrature(details, leaf_ids, list(quads), list(quads.values()))
         unresolved_in = [g for g, q in quads.items() if q.bound > LEAF_TOL]
         if estimates:
             yield from _estimates(keep, full_and_scores, L)
-    rmse, r2 = _prediction_scores(dataset, acc.preds)
+    rmse, r2 = prediction_scores(dataset, acc.preds)
     keep["points"], keep["curves"] = points_table(dataset, acc.preds), curves_table(dataset, acc.curves)
     grade = worst_grade(grades)
-    warnings = _fit_warnings(details, grade) + details.notes
+    warnings = fit_warnings(details, grade) + details.notes
     unscored = ""
     if unresolved_in:
         unscored = ("the held-out quadrature did not settle for " + ", ".join(leaf_ids[g] for g in unresolved_in)
@@ -438,11 +442,11 @@ def _kept_draws(outs: list[TaskOutput]) -> int:
 
 def _check_planned(structure: Structure, dataset: Dataset, held) -> None:
     """Refuse, before any task runs, a fold whose held-out curve types no training leaf has."""
-    from .methods import _check_curve_types
+    from .methods import check_curve_types
 
     train = np.ones(dataset.n_leaves, bool)
     train[np.asarray(held, int)] = False
-    _check_curve_types(structure, dataset, train, np.asarray(held, int))
+    check_curve_types(structure, dataset, train, np.asarray(held, int))
 
 
 def _estimates(keep: dict, full_and_scores, L: int):
@@ -457,7 +461,7 @@ def _estimates(keep: dict, full_and_scores, L: int):
 def _assemble_levels(structure, dataset, by, method, n_draws, details, outs, grades, keep, estimates,
                      full_and_scores):
     """Leave-one-level-out (or K folds of levels): each level scored jointly; SEs over levels."""
-    from .methods import _fit_warnings, _prediction_scores
+    from .methods import fit_warnings, prediction_scores
     from ..diagnostics import worst_grade
     from .predictions import curves_table, points_table
     from .quadrature import LEAF_TOL
@@ -480,10 +484,10 @@ def _assemble_levels(structure, dataset, by, method, n_draws, details, outs, gra
                 unresolved.append(f"{by} {name} (bound {v['bound']:.3g} nats; {v['bad']} draws unsettled)")
     if estimates:
         yield from _estimates(keep, full_and_scores, L)
-    rmse, r2 = _prediction_scores(dataset, preds)
+    rmse, r2 = prediction_scores(dataset, preds)
     keep["points"], keep["curves"] = points_table(dataset, preds), curves_table(dataset, curves)
     grade = worst_grade(grades)
-    warnings = _fit_warnings(details, grade) + details.notes
+    warnings = fit_warnings(details, grade) + details.notes
     unscored = ("the held-out quadrature did not settle for " + ", ".join(unresolved)) if unresolved else ""
     result = CVResult(structure.name, method, tuple(levels), elpd, n_draws,
                       n_refits=len(outs), grade=grade, warnings=tuple(warnings), rmse=rmse, r2=r2, mcse_i=mcse,
@@ -510,3 +514,31 @@ def run_in_process(steps: Plan, ctx: Context, on_output: Callable[[Task, TaskOut
                 outputs.append(done[t.key])
     except StopIteration as stop:
         return stop.value
+
+
+def cross_validate(structure: Structure, dataset: Dataset, comparison: Comparison, *, method: str = "auto",
+                   by: str = "leaf", folds: int = 10, spot_checks: int = 3, engine=None,
+                   leaf_fits: LeafFits, sampler: SamplerSpec | None = None, options=None, priors=None,
+                   keep: dict | None = None, estimates: bool = False) -> tuple[CVResult, CVDetails]:
+    """Held-out scores of one structure by ``method`` (auto | exact | kfold), every task of its plan
+    (`leafcv.cv.plan`) run in this process, one after another.
+
+    ``keep``: a dict that receives, when the method makes one (or with ``estimates``), the full-data
+    fit (``"fit"``) and each leaf's log marginal likelihood per draw of it (``"log_m"``, draws chain after
+    chain by leaves), and the held-out predictions (``"points"``, ``"curves"``)."""
+    sampler = sampler or comparison.sampler
+    ctx = Context(comparison, dataset, leaf_fits, sampler, engine=engine)
+    steps = plan(structure, dataset, comparison, sampler=sampler, method=method, by=by, folds=folds,
+                 spot_checks=spot_checks, options=options, priors=priors, estimates=estimates)
+    result, details, kept = run_in_process(steps, ctx)
+    if keep is not None:
+        keep.update(kept_outputs(ctx, structure, kept, options, priors))
+    return result, details
+
+
+def kept_outputs(ctx, structure: Structure, kept: dict, options=None, priors=None) -> dict:
+    """A plan's ``keep`` with the full-data fit rebuilt from its task output (``"fit"``)."""
+    out = {k: v for k, v in kept.items() if k != "full_output"}
+    if "full_output" in kept:
+        out["fit"] = restore_fit(ctx, structure, kept["full_output"], options, priors)
+    return out

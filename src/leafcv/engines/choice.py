@@ -6,17 +6,12 @@ engine from it. An engine object (tests' fakes) may be passed in place of a name
 """
 from __future__ import annotations
 
-import os
 from typing import Any
 
-from ..errors import EngineError
+from .cmdstan_install import EngineUnavailable, cmdstan_folder, cmdstan_label  # noqa: F401 (re-exported)
 
 ENGINE_NAMES: tuple[str, ...] = ("pystan", "cmdstan")
 DEFAULT_ENGINE = "pystan"
-
-
-class EngineUnavailable(EngineError):
-    """The chosen engine is not installed here; the message says how to install it."""
 
 
 def engine_name(engine: Any) -> str:
@@ -28,26 +23,6 @@ def engine_name(engine: Any) -> str:
             raise ValueError(f"unknown engine {engine!r}: use one of {', '.join(ENGINE_NAMES)}")
         return engine
     return str(getattr(engine, "name", type(engine).__name__))
-
-
-def cmdstan_folder() -> str:
-    """The CmdStan folder cmdstanpy will use (env CMDSTAN, else cmdstanpy's own installs), or
-    EngineUnavailable saying how to get one."""
-    try:
-        import cmdstanpy
-    except ImportError:
-        raise EngineUnavailable(
-            "the cmdstan engine needs cmdstanpy, which is not installed: pip install \"leafcv[cmdstan]\", then "
-            "install CmdStan with `python -m cmdstanpy.install_cmdstan` (or set CMDSTAN=/path/to/cmdstan), "
-            "or leave out --engine cmdstan to use PyStan") from None
-    try:
-        return str(cmdstanpy.cmdstan_path())
-    except (ValueError, RuntimeError) as exc:
-        where = (f"CMDSTAN={os.environ['CMDSTAN']} is not a usable CmdStan folder ({exc}); "
-                 if os.environ.get("CMDSTAN") else "no CmdStan installation was found; ")
-        raise EngineUnavailable(
-            "the cmdstan engine needs CmdStan: " + where + "install it with `python -m cmdstanpy.install_cmdstan`, "
-            "or set CMDSTAN=/path/to/cmdstan, or leave out --engine cmdstan to use PyStan") from None
 
 
 def check_engine(engine: Any) -> str:
@@ -82,8 +57,7 @@ def engine_version(engine: Any) -> str:
         stan = _stan_version(Path(httpstan.__file__).parent / "include" / "stan" / "version.hpp")
         return f"Stan {stan} (pystan {version('pystan')}, httpstan {version('httpstan')})"
     if name == "cmdstan":
-        cmdstan_folder()
-        return f"CmdStan {_cmdstan_version()}"
+        return cmdstan_label()
     return str(getattr(engine, "version", ""))
 
 
@@ -93,24 +67,6 @@ def _stan_version(header) -> str:
 
     found = dict(re.findall(r"#define STAN_(MAJOR|MINOR|PATCH) (\d+)", header.read_text()))
     return ".".join(found.get(k, "?") for k in ("MAJOR", "MINOR", "PATCH"))
-
-
-def _cmdstan_version() -> str:
-    """MAJOR.MINOR.PATCH from the CmdStan folder's makefile (cmdstanpy's own reading keeps MAJOR.MINOR)."""
-    import re
-    from pathlib import Path
-
-    import cmdstanpy
-
-    try:
-        text = (Path(cmdstan_folder()) / "makefile").read_text()
-        found = re.search(r"(?m)^CMDSTAN_VERSION := (\S+)", text)
-        if found:
-            return found.group(1)
-    except OSError:
-        pass
-    version = cmdstanpy.cmdstan_version()
-    return ".".join(map(str, version)) if version else "unknown"
 
 
 def make_engine(engine: Any, *, chains_at_once: int | None = None, compile_log: str | None = None, log=None):

@@ -25,7 +25,7 @@ import numpy as np
 from ..errors import EngineError
 from ..spec import SamplerSpec
 from .base import SAMPLER_FIELDS, Draws, compile_lock, output_to
-from .choice import cmdstan_folder
+from .cmdstan_install import cmdstan_folder, cmdstan_label
 
 #: Compiler flags of leafcv's executables (part of the cache key). Chains run one process each.
 CPP_OPTIONS: dict[str, Any] = {}
@@ -89,16 +89,12 @@ class CmdStanEngine:
 
     @property
     def version(self) -> str:
-        from .choice import engine_version
-
-        return engine_version("cmdstan")
+        return cmdstan_label()
 
     def folder_for(self, program: str) -> Path:
         """The cache folder of ``program``'s executable: a hash of program text, CmdStan version and folder
         (an executable links to its CmdStan's libraries) and flags."""
-        from .choice import engine_version
-
-        key = "\n".join([program, engine_version("cmdstan"), cmdstan_folder(), repr(sorted(CPP_OPTIONS.items()))])
+        key = "\n".join([program, cmdstan_label(), cmdstan_folder(), repr(sorted(CPP_OPTIONS.items()))])
         return cache_root() / hashlib.sha256(key.encode()).hexdigest()[:20]
 
     def is_compiled(self, program: str) -> bool:

@@ -11,8 +11,7 @@ import pandas as pd
 from matplotlib import rc_context
 from matplotlib.figure import Figure
 
-from ..simulate import FOLDER, INTERVAL
-from ..simulation_summary import CANDIDATES_FILE, COVERAGE_FILE, REPLICATES_FILE
+from ..simulation_summary import CANDIDATES_FILE, COVERAGE_FILE, FOLDER, INTERVAL, REPLICATES_FILE
 from .figures import GREY, PALETTE, STYLE, WIDTH_IN, save
 from .html import Column, Tables, esc, figure, number
 

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from leafcv.cv.methods import cross_validate
+from leafcv.cv.plan import cross_validate
 from leafcv.inits import fit_leaves
 from leafcv.spec import SamplerSpec
 
