@@ -2,6 +2,8 @@
 
 Diagnostics take (chain, draw) arrays; PSIS takes one leaf's draws. The functions are the ones ArviZ's
 own ``rhat``, ``ess`` and ``loo`` call, so leafcv's numbers and ArviZ's agree.
+
+Tests: tests/cv/test_psis.py, tests/sampling/stan/test_leafcv.py, tests/sampling/test_api.py.
 """
 from __future__ import annotations
 

@@ -1,4 +1,7 @@
-"""Files written so that a reader (or a run killed half-way) sees the old file or the new one, never a part."""
+"""Files written so that a reader (or a run killed half-way) sees the old file or the new one, never a part.
+
+Tests: tests/test_compare.py, tests/batch/test_store.py.
+"""
 from __future__ import annotations
 
 import contextlib

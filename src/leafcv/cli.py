@@ -3,6 +3,9 @@
 Exit codes: 0 success (non-converged fits are flagged in the output), 1 a problem with the user's
 data or files, 2 usage, 3 an engine or internal failure, or structures left unfinished by tasks that
 failed twice (message plus where the details were saved), 130 stopped by Ctrl-C or SIGTERM.
+
+Tests: tests/engines/test_choice.py, tests/report/test_report_page.py, tests/sampling/test_batch.py,
+tests/sampling/test_no_warnings.py.
 """
 from __future__ import annotations
 

@@ -13,6 +13,9 @@ the demo comparison file, i.e. the one the baseline program also encodes):
 Traits are centred at fixed values stated in the comparison file (N_CENTRE, CHL_CENTRE, SLA_CENTRE)
 so that the generating intercepts are the reference values the fit estimates.
 Magnitudes follow REFERENCES.md (Wullschleger 1993; Walker et al. 2014; Long & Bernacchi 2003).
+
+Tests: tests/test_comparisons_folder.py, tests/test_simulate.py, tests/test_design.py,
+tests/sampling/test_fitting.py.
 """
 from __future__ import annotations
 

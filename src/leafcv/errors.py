@@ -1,4 +1,8 @@
-"""Error types. User-facing problems carry every problem found, so one run reports them all."""
+"""Error types. User-facing problems carry every problem found, so one run reports them all.
+
+Tests: tests/comparison/test_checker.py, tests/test_data_reading.py, tests/test_api.py,
+tests/engines/test_pystan_engine.py.
+"""
 from __future__ import annotations
 
 

@@ -4,6 +4,9 @@ From Stan's random inits a hierarchical FvCB model can spend minutes in its firs
 (DESIGN.md); from values near the data it samples normally. Each leaf's curves are fitted with
 theta held at 0.7 (Ogren & Evans 1993, typical value), then the structure's intercepts, slopes,
 group effects and SDs are set from those per-leaf values by least squares.
+
+Tests: tests/test_fitting.py, tests/test_design.py, tests/sampling/test_fitting.py,
+tests/sampling/stan/test_leafcv.py.
 """
 from __future__ import annotations
 

@@ -1,5 +1,8 @@
 """Reading a run folder: its manifest.json (written first by `leafcv compare`, the one check that a folder
-is a run), the numbers of its JSON files, and the SHA-256 of its inputs and outputs."""
+is a run), the numbers of its JSON files, and the SHA-256 of its inputs and outputs.
+
+Tests: tests/report/test_report_page.py, tests/test_predict.py, tests/sampling/test_compare.py.
+"""
 from __future__ import annotations
 
 import hashlib

@@ -4,6 +4,8 @@ Each prior is a normal on the link scale (lognormal or logit-normal on the natur
 stated otherwise; theta's intercept has a beta prior on the natural scale. These are weakly
 informative choices from the typical magnitudes in REFERENCES.md (Wullschleger 1993; Medlyn et al.
 2002; Collatz et al. 1991; Ogren & Evans 1993), common practice, no formal source.
+
+Tests: tests/test_format2.py, tests/test_terms.py.
 """
 from __future__ import annotations
 

@@ -2,6 +2,9 @@
 
 These objects know nothing of Stan; `leafcv.design` turns a structure plus data into Stan data.
 Parsing and validation of the TOML file live in `leafcv.comparison`.
+
+Tests: tests/comparison/test_sections.py, tests/comparison/test_structures.py, tests/test_parameters.py,
+tests/data/test_mapping.py.
 """
 from __future__ import annotations
 

@@ -1,5 +1,8 @@
 """Stacking weights of predictive distributions, independent of ArviZ: the ranking's cross-check of the
-weights ArviZ's ``compare`` gives (:mod:`leafcv.cv.arviz_bridge`); re-exported by :mod:`leafcv.ranking`."""
+weights ArviZ's ``compare`` gives (:mod:`leafcv.cv.arviz_bridge`); re-exported by :mod:`leafcv.ranking`.
+
+Tests: tests/test_ranking.py.
+"""
 from __future__ import annotations
 
 import numpy as np

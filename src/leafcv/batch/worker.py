@@ -6,6 +6,8 @@ that machine), so the chains running on a machine never outnumber its cores. htt
 (a fork-based process pool of one process per core, per worker process) is replaced by one of that size
 before the first fit, so that many workers do not fork many idle pools. ``[sampler] chains`` is never
 changed; a chain's draws depend on the seed and chain number, not on when it ran.
+
+Tests: tests/batch/test_runner.py, tests/sampling/test_batch.py.
 """
 from __future__ import annotations
 

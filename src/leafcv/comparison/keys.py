@@ -1,5 +1,9 @@
 """The vocabulary of a comparison file: its format versions, the keys of each table and the limits on
-values. Every module of `leafcv.comparison` reads them from here."""
+values. Every module of `leafcv.comparison` reads them from here.
+
+Tests: tests/comparison/test_load.py, tests/comparison/test_sections.py, tests/comparison/test_structures.py,
+tests/comparison/test_grid.py.
+"""
 from __future__ import annotations
 
 import re

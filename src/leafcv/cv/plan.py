@@ -16,6 +16,9 @@ not contributing to the score) and score every leaf under it for the fit file's 
 Outputs are ``TaskOutput(record, arrays)``: a JSON record and named float arrays (draws, per-draw log
 marginals). Every driver passes outputs through `roundtrip`, the form a store returns, so that an
 output read back from disk and one just computed are the same values.
+
+Tests: tests/cv/test_methods.py, tests/batch/test_runner.py, tests/batch/test_store.py,
+tests/sampling/cv/test_methods.py.
 """
 from __future__ import annotations
 

@@ -1,4 +1,7 @@
-"""The validated data a comparison works on."""
+"""The validated data a comparison works on.
+
+Tests: tests/test_data_reading.py, tests/comparison/test_checks.py, tests/data/test_frame.py.
+"""
 from __future__ import annotations
 
 from dataclasses import dataclass

@@ -1,4 +1,7 @@
-"""Pieces of the data layer's messages: columns, rows and values as users see them."""
+"""Pieces of the data layer's messages: columns, rows and values as users see them.
+
+Tests: tests/test_data_reading.py, tests/data/test_frame.py, tests/data/test_mapping.py.
+"""
 from __future__ import annotations
 
 from collections.abc import Sequence

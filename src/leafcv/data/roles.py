@@ -3,6 +3,8 @@
 Users see and write data roles (``net_assimilation = "their column"``); inside leafcv the same
 quantities are the observation variables of `DataSpec.columns` and the columns of `Dataset.obs`
 (``a_net``, ``ci``, ...). This module is the one translation between the two.
+
+Tests: tests/test_api.py, tests/data/test_mapping.py, tests/comparison/test_sections.py.
 """
 from __future__ import annotations
 

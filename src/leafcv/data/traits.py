@@ -9,6 +9,8 @@ median absolute deviation from the median (MAD), an estimate of the SD for norma
 (1.4826 = 1 / the standard normal distribution's 75 % quantile). When more than half the leaves
 share one value the MAD is 0; the robust SD is then 1.2533 x the mean absolute deviation from the
 median (1.2533 = sqrt(pi / 2), likewise an estimate of the SD for normal data).
+
+Tests: tests/data/test_trait_warnings.py.
 """
 from __future__ import annotations
 

@@ -6,6 +6,8 @@ mistake (leaf temperature in kelvin, intercellular CO2 in Pa, ...) gets one prob
 likely unit and the conversion, in place of a list of every value outside the plausible range.
 Oxygen that may be in percent is ambiguous (a low-oxygen experiment gives the same numbers), so it
 gets a warning, not a problem.
+
+Tests: tests/data/test_unit_mistakes.py, tests/test_data_reading.py.
 """
 from __future__ import annotations
 

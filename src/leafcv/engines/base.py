@@ -1,4 +1,7 @@
-"""The engine interface: fit(program, data, settings, seed, inits) -> draws plus sampler diagnostics."""
+"""The engine interface: fit(program, data, settings, seed, inits) -> draws plus sampler diagnostics.
+
+Tests: tests/engines/test_pystan_engine.py, tests/sampling/engines/test_cmdstan_engine.py.
+"""
 from __future__ import annotations
 
 import contextlib

@@ -2,6 +2,8 @@
 
 PyStan 3 takes program text without include paths, so `#include NAME` lines are replaced by the
 file NAME from the same folder. cmdstanpy can include the files itself.
+
+Tests: tests/sampling/stan/test_leafcv.py, tests/sampling/stan/test_fvcb_functions.py.
 """
 from __future__ import annotations
 

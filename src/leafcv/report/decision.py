@@ -9,6 +9,8 @@ fewer than 10 units, a difference that one unit's removal undoes, is not a prefe
 between any two ranked structures are paired over the per-unit elpd of pointwise.csv with the SE
 ``sqrt(G · var(d_g, ddof=1))`` (Vehtari, Gelman & Gabry 2017); each structure's MCSE and summed
 quadrature bound are read from ranking.csv.
+
+Tests: tests/report/test_report_decision.py, tests/report/test_report_page.py.
 """
 from __future__ import annotations
 

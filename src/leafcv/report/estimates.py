@@ -18,6 +18,8 @@ multiplicative change of the parameter (exp β) per the trait's scale (the "per 
 comparison file), on a logit link as an odds ratio (also exp β); within/between splits also as
 between − within, exp(β_between − β_within), 1 meaning the same slope; SDs on the link scale;
 residual SDs in µmol m⁻² s⁻¹.
+
+Tests: tests/report/test_report_estimates.py.
 """
 from __future__ import annotations
 

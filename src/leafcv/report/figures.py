@@ -4,6 +4,8 @@ figure shows is exactly its CSV.
 Figures are drawn on :class:`matplotlib.figure.Figure` objects (the Agg canvas; pyplot and its global
 backend are never touched, so a notebook's own plotting is left alone), sized for the text width of
 an A4 page (6.7 in), in the colour-blind-safe palette of Okabe & Ito (2008, "Color Universal Design").
+
+Tests: tests/report/test_report_figures.py, tests/report/test_report_predictions.py.
 """
 from __future__ import annotations
 

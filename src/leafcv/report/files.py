@@ -1,4 +1,7 @@
-"""Atomic writes of the report's files: a reader sees the old file or the new one, never a part."""
+"""Atomic writes of the report's files: a reader sees the old file or the new one, never a part.
+
+Tests: tests/report/test_report_page.py, tests/report/test_report_figures.py.
+"""
 from __future__ import annotations
 
 import os

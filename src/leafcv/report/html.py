@@ -1,6 +1,9 @@
 """HTML of the report: one self-contained page (styles inline, figures as base64 PNG, no script, no
 external resource), tables whose every number cell names its CSV column (``data-col``) and whose
-table names its CSV file (``data-csv``), so a reader or a test can trace each number."""
+table names its CSV file (``data-csv``), so a reader or a test can trace each number.
+
+Tests: tests/report/test_report_page.py, tests/report/test_report_browser.py, tests/report/test_report_decision.py.
+"""
 from __future__ import annotations
 
 import html

@@ -5,6 +5,9 @@ What is read (all written by ``leafcv compare``): ``manifest.json``, ``ranking.c
 ``pointwise.csv``, ``results/<structure>.json``, ``structures.txt``; besides the run folder only the
 comparison file named in the manifest (for the question and the data mapping) and the data file it
 names (for each leaf's group values, used only when its SHA-256 equals the manifest's).
+
+Tests: tests/report/test_report_decision.py, tests/report/test_structure_terms.py,
+tests/report/test_report_page.py.
 """
 from __future__ import annotations
 

@@ -1,6 +1,9 @@
 """The simulation part of "How reliable is this choice?": what `leafcv simulate` found (read from
 ``RUNDIR/simulation``, written by `leafcv.simulation_summary`), as words, a figure with its data and two
-tables. No sampler runs. Tested in tests/report/test_reliability.py."""
+tables. No sampler runs.
+
+Tests: tests/report/test_reliability.py.
+"""
 from __future__ import annotations
 
 import json

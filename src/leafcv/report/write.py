@@ -5,6 +5,9 @@ held-out predictions; what the chosen structure estimates; how reliable the choi
 calibration of the program, selection reliability); diagnostics; priors and model options; methods text and
 references; reproduction. Reads only the run folder (and the comparison and data files its manifest
 names); runs no sampler.
+
+Tests: tests/report/test_report_page.py, tests/report/test_compare_writes_report.py,
+tests/report/test_report_estimates.py, tests/sampling/test_report.py.
 """
 from __future__ import annotations
 
