@@ -8,7 +8,8 @@ from dataclasses import replace
 import numpy as np
 import pytest
 
-from leafcv.cv.methods import MAX_ATTEMPTS, folds_for, remedy, spot_tolerance
+from leafcv.cv.methods import (MAX_ATTEMPTS, centring_of, folds_for, noncentred_weak_leaves, remedy, spot_tolerance,
+                               with_centring)
 from leafcv.cv.plan import cross_validate
 from leafcv.inits import fit_leaves
 from leafcv.spec import SamplerSpec
@@ -63,6 +64,51 @@ def test_divergences_raise_adapt_delta_and_switch_group_effects_to_noncentred(qu
     smp3, _, cause3 = remedy((Problem("R-hat 1.030 > 1.01 (worst: b0[1])", "rhat", "b0[1]"),),
                              SamplerSpec(warmup=300, draws=400), st, 1)
     assert (smp3.warmup, smp3.draws) == (600, 800) and "mixing" in cause3
+
+
+def _fit_with_leaf_sds(design, taus):
+    """A stand-in for a fit: its design and draws of the SDs of leaf effects (2 chains x 50 draws)."""
+    from types import SimpleNamespace
+    tau = np.broadcast_to(np.asarray(taus, float), (2, 50, len(taus))).copy()
+    return SimpleNamespace(design=design, draws=SimpleNamespace(params={"tau_leaf": tau}))
+
+
+def test_divergences_from_leaves_the_pilot_centred_too_eagerly_make_those_leaf_effects_noncentred(quick_demo):
+    # A funnel (Betancourt & Girolami 2015, "Hamiltonian Monte Carlo for hierarchical models", sec. 4):
+    # centred effects whose data are weak relative to their SD diverge as the SD shrinks. The automatic
+    # rule centres a leaf when its least-squares SE < CENTRED_SE_FRACTION x the between-leaf SD; with the
+    # fit's SD far below the pilot's, the same rule centres fewer leaves, so those effects go non-centred.
+    from leafcv.design import build_design
+    from leafcv.errors import Problem
+    from leafcv.terms import CENTRED_SE_FRACTION
+    comparison, dataset, _ = quick_demo
+    st = comparison.structure("traits-month-fixed")
+    leaf_fits = fit_leaves(dataset)
+    design = build_design(st, dataset, comparison.data, leaf_fits=leaf_fits)
+    assert [lt.param for lt in design.leaf_terms] == ["vcmax25", "alpha"]
+    centred = design.leaf_terms[0].centred
+    assert centred.any()                                 # the pilot centres leaves' Vcmax25 effects
+    se = leaf_fits.link_se("vcmax25", False)[centred]
+    wide = 10 * np.nanmax(se) / CENTRED_SE_FRACTION      # every centred leaf stays centred under the rule
+    narrow = 0.5 * np.nanmin(se) / CENTRED_SE_FRACTION   # none does
+    new, notes = noncentred_weak_leaves(st, _fit_with_leaf_sds(design, [narrow, 0.2]), leaf_fits)
+    assert new.params["vcmax25"].centring["leaf"] == "noncentred"
+    assert "leaf" not in new.params["alpha"].centring                 # alpha: no leaf was centred
+    assert len(notes) == 1 and notes[0].startswith("leaf effects on vcmax25 non-centred")
+    same, none = noncentred_weak_leaves(st, _fit_with_leaf_sds(design, [wide, 0.2]), leaf_fits)
+    assert same == st and none == []
+    # a user's own choice is left alone
+    chosen = with_centring(st, {"vcmax25": {"leaf": "centred"}})
+    kept, _ = noncentred_weak_leaves(chosen, _fit_with_leaf_sds(design, [narrow, 0.2]), leaf_fits)
+    assert kept.params["vcmax25"].centring["leaf"] == "centred"
+    # remedy applies it on divergences only, and the task record gives the structure back
+    _, after, cause = remedy((Problem("5 divergent transition(s)", "divergences"),), SamplerSpec(), st, 1,
+                             _fit_with_leaf_sds(design, [narrow, 0.2]), leaf_fits)
+    assert after.params["vcmax25"].centring["leaf"] == "noncentred" and "leaf effects on vcmax25" in cause
+    _, untouched, _ = remedy((Problem("R-hat 1.030 > 1.01 (worst: b0[1])", "rhat", "b0[1]"),), SamplerSpec(), st, 1,
+                             _fit_with_leaf_sds(design, [narrow, 0.2]), leaf_fits)
+    assert untouched == st
+    assert with_centring(st, centring_of(after)) == after
 
 
 def test_a_fit_that_keeps_failing_is_graded_failed_after_the_stated_attempts(quick_demo):

@@ -29,6 +29,7 @@ from ..diagnostics import DIVERGENCE_CODE, MIXING_CODES
 from ..errors import SpecError
 from ..fitting import StructureFit, fit_structure
 from ..inits import LeafFits
+from ..terms import CENTRED_SE_FRACTION
 from ..spec import SamplerSpec, Structure
 from .leafmodel import LeafModel, flatten_draws
 from .predictions import curve_draws
@@ -198,6 +199,47 @@ def score_level(fit: StructureFit, dataset: Dataset, leaves: np.ndarray, leaf_fi
 # ----------------------------------------------------------------------------------------------
 # fitting with targeted retries
 
+def with_centring(structure: Structure, centring: dict[str, dict[str, str]]) -> Structure:
+    """``structure`` with each parameter's centring choices replaced by ``centring[param]`` (the record a
+    fit task keeps of the parameterisation it ended with)."""
+    params = {p: ps if ps is None or p not in centring else replace(ps, centring=dict(centring[p]))
+              for p, ps in structure.params.items()}
+    return replace(structure, params=params)
+
+
+def centring_of(structure: Structure) -> dict[str, dict[str, str]]:
+    """Every parameter's centring choices, as `with_centring` reads them back."""
+    return {p: dict(ps.centring) for p, ps in structure.params.items() if ps is not None}
+
+
+def noncentred_weak_leaves(structure: Structure, fit: StructureFit, leaf_fits: LeafFits | None
+                           ) -> tuple[Structure, list[str]]:
+    """Leaf effects that the pilot centred where the fit says it should not have, made non-centred.
+
+    The automatic rule (`leafcv.terms.informed_leaves`) centres a leaf's effect when its least-squares SE
+    is below CENTRED_SE_FRACTION x the between-leaf SD, estimated by the per-leaf pilot fits. When the
+    fit's posterior median SD of those leaf effects is much smaller than the pilot's estimate, the rule
+    applied with it centres fewer leaves: the centred ones then sit in a funnel (divergences that a higher
+    adapt_delta does not remove; Betancourt & Girolami 2015). Such a parameter's leaf effects, chosen
+    "auto", become non-centred. Returns the structure and one line per change.
+    """
+    if leaf_fits is None or not fit.design.leaf_terms or "tau_leaf" not in fit.draws.params:
+        return structure, []
+    tau = np.median(np.asarray(fit.draws.params["tau_leaf"], float).reshape(-1, len(fit.design.leaf_terms)), axis=0)
+    params, notes = dict(structure.params), []
+    for r, lt in enumerate(fit.design.leaf_terms):
+        ps = params.get(lt.param)
+        if ps is None or ps.centring.get(LEAF_TERM, "auto") != "auto" or lt.centred is None or not lt.centred.any():
+            continue
+        se = leaf_fits.link_se(lt.param, ps.ratio_to == "vcmax25")
+        kept = lt.centred & np.isfinite(se) & (se < CENTRED_SE_FRACTION * tau[r])
+        if kept.sum() < lt.centred.sum():
+            params[lt.param] = replace(ps, centring={**ps.centring, LEAF_TERM: "noncentred"})
+            notes.append(f"leaf effects on {lt.param} non-centred (the fit's SD of leaf effects {tau[r]:.3g} "
+                         f"centres {int(kept.sum())} of the {int(lt.centred.sum())} leaves the pilot centred)")
+    return replace(structure, params=params), notes
+
+
 def noncentred_groups(structure: Structure) -> Structure:
     """The structure with every random term other than the leaf effects non-centred."""
     params = {}
@@ -215,12 +257,15 @@ def noncentred_groups(structure: Structure) -> Structure:
     return replace(structure, params=params)
 
 
-def remedy(problems: tuple[str, ...], sampler: SamplerSpec, structure: Structure, attempt: int
+def remedy(problems: tuple[str, ...], sampler: SamplerSpec, structure: Structure, attempt: int,
+           fit: StructureFit | None = None, leaf_fits: LeafFits | None = None
            ) -> tuple[SamplerSpec, Structure, str]:
     """Sampler settings and structure for the next attempt, aimed at the cause of the last failure.
 
-    Divergences: a higher adapt_delta (0.95, then 0.99) and, for random terms other than the leaf
-    effects, the non-centred form (few, weakly informed levels sample better so; DESIGN.md).
+    Divergences: a higher adapt_delta (0.95, then 0.99); for random terms other than the leaf
+    effects, the non-centred form (few, weakly informed levels sample better so; DESIGN.md); and, given
+    the failed ``fit`` and the pilot ``leaf_fits``, non-centred leaf effects where the fit's SD of leaf
+    effects undoes the pilot's centring choice (`noncentred_weak_leaves`).
     R-hat, ESS, E-BFMI or tree depth: twice the warm-up and twice the draws.
     """
     codes = {getattr(p, "code", "") for p in problems}
@@ -231,6 +276,9 @@ def remedy(problems: tuple[str, ...], sampler: SamplerSpec, structure: Structure
         new = replace(new, adapt_delta=max(new.adapt_delta, 0.95 if attempt == 1 else 0.99))
         st = noncentred_groups(structure)
         causes.append(f"divergences: adapt_delta {new.adapt_delta:g}, group effects non-centred")
+        if fit is not None:
+            st, notes = noncentred_weak_leaves(st, fit, leaf_fits)
+            causes += notes
     if mixing or not divergent:
         new = replace(new, warmup=2 * new.warmup, draws=2 * new.draws)
         causes.append(f"mixing: warm-up {new.warmup}, draws {new.draws} per chain")
@@ -284,7 +332,7 @@ def fit_with_retries(structure, dataset, comparison, sampler, leaf_fits, train, 
         done = dg.grade == "converged" or (dg.grade == "marginal" and not retry_marginal)
         if done or attempt == MAX_ATTEMPTS - 1:
             break
-        smp, st, cause = remedy(dg.problems, smp, st, attempt + 1)
+        smp, st, cause = remedy(dg.problems, smp, st, attempt + 1, fit, leaf_fits)
         cause = f"attempt {attempt + 1} {dg.grade} ({'; '.join(dg.problems)}); {cause}"
     best_entry["kept"] = True
     return best

@@ -133,11 +133,12 @@ def task_key(base: str, kind: str, structure: Structure, payload: dict, inputs: 
 # running one task
 
 def _fit_output(structure: Structure, fit, details, seconds: float) -> TaskOutput:
+    from .methods import centring_of
     d = fit.draws
     arrays = {f"p/{k}": np.asarray(v) for k, v in d.params.items()}
     arrays.update({f"s/{k}": np.asarray(v) for k, v in d.sampler.items()})
     record = {"fits": details.fits, "seconds": seconds, "grade": fit.diagnostics.grade,
-              "variant": "given" if fit.design.structure == structure else "noncentred",
+              "centring": centring_of(fit.design.structure),
               "settings": asdict(d.settings), "seed": d.seed, "sampling_seconds": d.sampling_seconds,
               "engine": d.engine, "messages": list(d.messages), "init_note": fit.init_note}
     return TaskOutput(record, arrays)
@@ -150,10 +151,13 @@ def restore_fit(ctx: Context, structure: Structure, output: TaskOutput, options=
     from ..diagnostics import diagnose
     from ..engines.base import Draws
     from ..fitting import POPULATION, StructureFit
-    from .methods import noncentred_groups
+    from .methods import noncentred_groups, with_centring
 
     rec = output.record
-    st = structure if rec["variant"] == "given" else noncentred_groups(structure)
+    if "centring" in rec:           # the parameterisation the fit ended with, after any retries
+        st = with_centring(structure, rec["centring"])
+    else:                           # a store written before the centring was recorded
+        st = structure if rec["variant"] == "given" else noncentred_groups(structure)
     design = build_design(st, ctx.dataset, ctx.comparison.data, options, priors, None, ctx.leaf_fits)
     params = {k[2:]: np.asarray(v) for k, v in output.arrays.items() if k.startswith("p/")}
     sampler = {k[2:]: np.asarray(v) for k, v in output.arrays.items() if k.startswith("s/")}
@@ -211,6 +215,8 @@ def execute(ctx: Context, task: Task, inputs: dict[str, TaskOutput]) -> TaskOutp
     train[held] = False
     check_curve_types(st, dataset, train, held)
     warm = restore_fit(ctx, st, inputs[task.inputs[0]], p.get("options"), p.get("priors")) if task.inputs else None
+    if warm is not None:        # a refit starts in the parameterisation the full-data fit ended with
+        st = warm.design.structure
     details = CVDetails()
     t = time.perf_counter()
     fit = fit_with_retries(st, dataset, ctx.comparison, ctx.sampler, ctx.leaf_fits, train, p["seed"], engine,
