@@ -9,7 +9,7 @@ import pandas as pd
 import pytest
 import xarray as xr
 
-from leafcv.simulation_summary import summarise
+from leafcv.simulation_summary import summarise, why_not_ranked
 
 
 def _replicate(folder, k, elpd: dict[str, list[float]], truth: dict[str, float], post_b0: np.ndarray):
@@ -60,3 +60,33 @@ def test_summary_counts_wins_rule_and_coverage(tmp_path):
     assert cov["b0[vcmax25]"] == 1.0 and cov["b0[alpha]"] == 0.5
     for name in ("replicates.csv", "candidates.csv", "coverage.csv"):
         assert (tmp_path / name).exists()
+
+
+def test_an_unranked_generating_structure_counts_as_a_loss_and_keeps_its_reason(tmp_path):
+    (tmp_path / "settings.json").write_text(json.dumps({"structure": "gen"}))
+    post = np.column_stack([np.linspace(0, 1, 100), np.linspace(10, 11, 100)])
+    _replicate(tmp_path, 1, {"gen": [1.0] * 10, "rival": [0.0] * 10}, {"b0[vcmax25]": 0.5}, post)
+    ranking = tmp_path / "replicate-001" / "run" / "ranking.csv"
+    table = pd.read_csv(ranking)
+    table["warnings"] = ""
+    gen = table["structure"] == "gen"
+    table.loc[gen, "rank"] = np.nan
+    table.loc[gen, "warnings"] = "not ranked: fits did not converge; fits did not converge: 1 of 1 fits ..."
+    table.loc[~gen, "rank"] = 1
+    table.to_csv(ranking, index=False)
+    t = summarise(tmp_path)
+    c = t["candidates"].set_index("structure")
+    assert c.loc["gen", "share_unranked"] == 1.0 and c.loc["gen", "share_first"] == 0.0
+    assert c.loc["rival", "share_first"] == 1.0
+    r = t["replicates"].set_index("structure")
+    assert r.loc["gen", "why_not_ranked"] == "fits did not converge"
+    assert pd.isna(r.loc["rival", "why_not_ranked"]) or r.loc["rival", "why_not_ranked"] == ""
+
+
+@pytest.mark.parametrize("warnings,reason", [
+    ("not ranked: fits did not converge; fits did not converge: 2 of 2 fits", "fits did not converge"),
+    ("k-hat above 0.7; not ranked: a leaf's score is flagged", "a leaf's score is flagged"),
+    ("", "not stated"), (float("nan"), "not stated")])
+def test_the_reason_is_the_clause_after_not_ranked(warnings, reason):
+    assert why_not_ranked(warnings) == reason
+

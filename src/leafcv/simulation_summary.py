@@ -4,7 +4,7 @@ This module reads a simulation (its folder, the fits' population draws) and neve
 which writes one; the report reads simulations through it.
 
 Written into the simulation's folder:
-- ``replicates.csv``: one row per (replicate, candidate): rank, elpd, Δelpd to the replicate's first
+- ``replicates.csv``: one row per (replicate, candidate): rank (why not, when unranked), elpd, Δelpd to the replicate's first
   structure and whether leafcv's rule tells them apart (`leafcv.ranking.pair_verdict`), and Δelpd of
   the generating structure minus the candidate with its paired SE;
 - ``candidates.csv``: per candidate, how often it ranked first, how often it was not told apart from
@@ -51,6 +51,15 @@ def posterior_draws(fit_path: Path) -> tuple[dict[str, np.ndarray], dict[str, li
     return draws, labels
 
 
+def why_not_ranked(warnings) -> str:
+    """The reason a ranking row gives for leaving a structure unranked: the clause after "not ranked: " in
+    its warnings (e.g. "fits did not converge"), or "not stated"."""
+    text = str(warnings) if isinstance(warnings, str) else ""
+    if "not ranked: " not in text:
+        return "not stated"
+    return text.split("not ranked: ", 1)[1].split(";", 1)[0].strip() or "not stated"
+
+
 def _replicate_rows(k: int, run: Path, generating: str) -> list[dict]:
     table = pd.read_csv(run / "ranking.csv")
     pointwise = pd.read_csv(run / "pointwise.csv") if (run / "pointwise.csv").exists() else None
@@ -60,7 +69,8 @@ def _replicate_rows(k: int, run: Path, generating: str) -> list[dict]:
     for _, row in table.iterrows():
         name = str(row["structure"])
         out = {"replicate": k, "structure": name, "rank": row["rank"], "elpd": float(row["elpd"]),
-               "first": first == name, "ranked": bool(pd.notna(row["rank"]))}
+               "first": first == name, "ranked": bool(pd.notna(row["rank"])),
+               "why_not_ranked": "" if pd.notna(row["rank"]) else why_not_ranked(row.get("warnings"))}
         if first is not None and name != first:
             diff, se, verdict = pair_verdict(table, name, first, pointwise)
             out.update({"diff_to_first": diff, "se_to_first": se, "told_apart_from_first": verdict.told_apart})
@@ -111,7 +121,7 @@ def summarise(folder: str | Path) -> dict[str, pd.DataFrame]:
         reps += _replicate_rows(k, run, generating)
         cover += _coverage_rows(k, run, generating, truth, INTERVAL)
     replicates = pd.DataFrame(reps, columns=["replicate", "structure", "rank", "elpd", "first", "ranked",
-                                             "diff_to_first", "se_to_first", "told_apart_from_first",
+                                             "why_not_ranked", "diff_to_first", "se_to_first", "told_apart_from_first",
                                              "delta_generating", "se_delta_generating"])
     n = replicates["replicate"].nunique()
     cands = []

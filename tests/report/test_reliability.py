@@ -100,3 +100,28 @@ def test_a_simulation_is_shown_in_place_of_its_cost(tmp_path):
     assert "not been estimated" not in text
     assert (tmp_path / "figures" / "simulation.png").exists() and (tmp_path / "tables" / "simulation_candidates.csv").exists()
     assert "b0[vcmax25]" in text
+
+
+def test_replicates_in_which_the_generating_structure_was_not_ranked_are_said(tmp_path):
+    import pandas as pd
+
+    sim = tmp_path / "simulation"
+    sim.mkdir()
+    (sim / "settings.json").write_text(json.dumps({"structure": "gen", "chains": 2, "warmup": 100, "draws": 100,
+                                                   "leaves_per_level": None, "level_of": None}))
+    # 4 replicates: gen first in 2, unranked (fits did not converge) in 1, ranked second in 1
+    reps = pd.DataFrame({"replicate": [1, 1, 2, 2, 3, 3, 4, 4], "structure": ["gen", "rival"] * 4,
+                         "ranked": [True, True, True, True, False, True, True, True],
+                         "first": [True, False, True, False, False, True, False, True],
+                         "why_not_ranked": ["", "", "", "", "fits did not converge", "", "", ""],
+                         "delta_generating": [0, 6.0, 0, 5.0, 0, 1.0, 0, -1.0]})
+    reps.to_csv(sim / "replicates.csv", index=False)
+    pd.DataFrame({"structure": ["gen", "rival"], "generating": [True, False], "replicates": [4, 4],
+                  "share_first": [0.5, 0.5], "share_not_told_apart_from_first": [0.75, 0.5], "share_unranked": [0.25, 0.0],
+                  "delta_q05": [0.0, -0.7], "delta_median": [0.0, 2.5], "delta_q95": [0.0, 5.6]}).to_csv(
+        sim / "candidates.csv", index=False)
+    pd.DataFrame({"quantity": ["b0[vcmax25]"], "coverage": [0.5], "replicates": [4]}).to_csv(sim / "coverage.csv", index=False)
+    text = selection_html(SimpleNamespace(path=tmp_path, manifest={}), Tables(tmp_path / "tables"))
+    assert ("It was not ranked in 1 of 4 replicates (fits did not converge: 1); each counts as a replicate it did "
+            "not win. Among the 3 in which it was ranked, it ranked first in 2.") in text
+

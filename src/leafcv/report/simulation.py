@@ -85,7 +85,7 @@ def simulation_html(rundir: Path, tables: Tables, figdir: Path) -> str | None:
                      f"studies and was not told apart from the first (leafcv's rule) in "
                      f"{100 * row['share_not_told_apart_from_first']:.0f} %. "
                      + (f"With {k} replicates a share is known to about ±{100 * np.sqrt(0.25 / k):.0f} percentage "
-                        "points (one binomial SE at 50 %)." if k else "") + "</div>")
+                        "points (one binomial SE at 50 %)." if k else "") + _unranked_words(reps, gen, k) + "</div>")
     data = reps.merge(cands[["structure", "share_first", "share_not_told_apart_from_first"]], on="structure")
     data = data.rename(columns={"share_not_told_apart_from_first": "share_not_told_apart"})
     plotted = data[["structure", "replicate", "share_first", "share_not_told_apart", "delta_generating"]]
@@ -114,3 +114,20 @@ def simulation_html(rundir: Path, tables: Tables, figdir: Path) -> str | None:
             Column("quantity", "quantity"), Column("coverage", "coverage", lambda v: number(100 * v, ".0f") + " %"),
             Column("replicates", "replicates", ".0f")], f"Coverage of {esc(gen)}'s {INTERVAL:.0%} intervals."))
     return "\n".join(parts)
+
+
+def _unranked_words(reps: pd.DataFrame, gen: str, k: int) -> str:
+    """Words on the replicates in which the generating structure was not ranked (each counts as a loss)."""
+    if "ranked" not in reps:
+        return ""
+    own = reps[reps["structure"] == gen]
+    missing = own[~own["ranked"].astype(bool)]
+    if missing.empty:
+        return ""
+    why = (missing["why_not_ranked"].fillna("not stated").replace("", "not stated") if "why_not_ranked" in missing
+           else pd.Series(["not stated"] * len(missing)))
+    reasons = "; ".join(f"{esc(r)}: {n}" for r, n in why.value_counts().items())
+    ranked = own[own["ranked"].astype(bool)]
+    return (f" It was not ranked in {len(missing)} of {k} replicates ({reasons}); each counts as a replicate it did "
+            f"not win. Among the {len(ranked)} in which it was ranked, it ranked first in {int(ranked['first'].sum())}.")
+
