@@ -75,7 +75,7 @@ def test_validation_doc_written_by_the_sbc_script_is_read_back(tmp_path):
 def test_the_report_has_the_section(written):
     _, _, html = written
     assert '<section id="reliability"><h2>How reliable is this choice?</h2>' in html
-    assert "Prior sensitivity of the chosen structure" in html and "Selection reliability" in html
+    assert "Prior sensitivity of the chosen structure" in html and "How reliable is this choice on a study like this one?" in html
 
 
 def test_a_simulation_is_shown_in_place_of_its_cost(tmp_path):

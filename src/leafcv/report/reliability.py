@@ -219,9 +219,9 @@ def reliability_html(run: RunFolder, tables: Tables, structure: str | None) -> s
     chosen = structure or run.best
     why = "chosen with --structure" if structure else "the best ranked structure"
     return "\n".join([
-        "<h3>Prior sensitivity of the chosen structure</h3>", sensitivity_html(run, tables, chosen, why),
+        "<h3>How reliable is this choice on a study like this one?</h3>", selection_html(run, tables),
         "<h3>Calibration of the program (simulation-based calibration)</h3>", sbc_html(run, read_validation()),
-        "<h3>Selection reliability</h3>", selection_html(run, tables),
+        "<h3>Prior sensitivity of the chosen structure</h3>", sensitivity_html(run, tables, chosen, why),
         "<p class=files>References of this section:</p><ol class=files>"
         + "".join(f"<li>{esc(REFERENCES[k])}</li>" for k in SECTION_REFERENCES) + "</ol>",
     ])
