@@ -39,7 +39,8 @@ from .errors import EngineError
 from .data.dataset import Dataset
 from .inits import fit_leaves
 from .atomic import replacing, write_atomic
-from .manifest import file_hash, json_float
+from .jsonio import json_float, json_floats, plain
+from .manifest import file_hash
 from .ranking import format_ranking, rank, summary_notes
 from .spec import Comparison, Structure
 
@@ -119,36 +120,17 @@ def structures_text(comparison: Comparison, records: dict[str, dict]) -> str:
     return "\n".join(lines)
 
 
-def _json_safe(value: object) -> object:
-    """``value`` as strict JSON allows: NaN as None (null), infinities as the strings ``"inf"`` and
-    ``"-inf"``, NumPy values as Python ones."""
-    if isinstance(value, dict):
-        return {str(k): _json_safe(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple, np.ndarray)):
-        return [_json_safe(v) for v in value]
-    if isinstance(value, np.generic):
-        value = value.item()
-    if isinstance(value, float) and not np.isfinite(value):
-        return None if np.isnan(value) else ("inf" if value > 0 else "-inf")
-    return value
-
-
-def _floats(values: list | None) -> np.ndarray | None:
-    """An array written by :func:`_json_safe` read back as floats; None stays None."""
-    return None if values is None else np.array([json_float(v) for v in values], dtype=float)
-
-
 def _result_to_json(result: CVResult, details: CVDetails | dict, key: str) -> str:
     """The result file of one structure (format :data:`RESULT_VERSION`; NaN written as null, infinities
     as "inf" and "-inf")."""
-    return json.dumps(_json_safe({
+    return json.dumps(plain({
         "version": RESULT_VERSION, "key": key, "structure": result.structure, "method": result.method,
         "unit": result.unit, "leaves": list(result.leaves), "elpd_i": result.elpd_i, "n_draws": result.n_draws,
         "method_i": list(result.method_i), "pareto_k": result.pareto_k, "mcse_i": result.mcse_i,
         "quad_bound_i": result.quad_bound_i, "n_refits": result.n_refits, "grade": result.grade,
         "unscored": result.unscored, "warnings": list(result.warnings), "rmse": result.rmse, "r2": result.r2,
         "details": details if isinstance(details, dict) else asdict(details),
-    }), indent=1, allow_nan=False)
+    }, strict=True), indent=1, allow_nan=False)
 
 
 def _result_from_json(text: str) -> tuple[str, CVResult, dict]:
@@ -157,11 +139,11 @@ def _result_from_json(text: str) -> tuple[str, CVResult, dict]:
     d = json.loads(text)
     grade = d["grade"] if "grade" in d else ("converged" if d["converged"] else "failed")
     metrics = {name: {k: json_float(v) for k, v in d[name].items()} for name in ("rmse", "r2")}
-    res = CVResult(d["structure"], d["method"], tuple(d["leaves"]), _floats(d["elpd_i"]), d["n_draws"],
-                   pareto_k=_floats(d["pareto_k"]), n_refits=d["n_refits"], grade=grade,
+    res = CVResult(d["structure"], d["method"], tuple(d["leaves"]), json_floats(d["elpd_i"]), d["n_draws"],
+                   pareto_k=json_floats(d["pareto_k"]), n_refits=d["n_refits"], grade=grade,
                    warnings=tuple(d["warnings"]), rmse=metrics["rmse"], r2=metrics["r2"],
-                   method_i=tuple(d.get("method_i", ())), mcse_i=_floats(d.get("mcse_i")),
-                   quad_bound_i=_floats(d.get("quad_bound_i")), unscored=d.get("unscored", ""),
+                   method_i=tuple(d.get("method_i", ())), mcse_i=json_floats(d.get("mcse_i")),
+                   quad_bound_i=json_floats(d.get("quad_bound_i")), unscored=d.get("unscored", ""),
                    unit=d.get("unit", "leaf"))
     return d["key"], res, d["details"]
 

@@ -29,11 +29,6 @@ def file_hash(path: str | Path) -> str:
     return h.hexdigest()
 
 
-def json_float(value: object) -> float:
-    """One number of a run's JSON files read back: null as NaN, "inf"/"-inf" as infinities."""
-    return float("nan") if value is None else float(value)
-
-
 def run_inputs(run_dir: str | Path, structure: str | None, purpose: str):
     """(manifest, comparison, dataset, fit path) of a finished run, for a step that reads one structure's
     saved fit with the data it was made on (``purpose``: what needs them, in words, e.g. "predictions").

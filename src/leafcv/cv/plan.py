@@ -33,6 +33,7 @@ import pandas as pd
 
 from ..data.dataset import LEAF_TERM, Dataset
 from ..inits import LeafFits
+from ..jsonio import plain
 from ..spec import Comparison, SamplerSpec, Structure
 from .predictions import summarise_curves
 from .psis import integrated_loo, refit_elpd
@@ -98,23 +99,9 @@ class Context:
         return self.engine
 
 
-def _jsonable(value: Any) -> Any:
-    if isinstance(value, dict):
-        return {str(k): _jsonable(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_jsonable(v) for v in value]
-    if isinstance(value, np.ndarray):
-        return _jsonable(value.tolist())
-    if isinstance(value, np.generic):
-        return value.item()
-    if isinstance(value, str):
-        return str(value)          # a Problem (str subclass) becomes its words
-    return value
-
-
 def record_text(record: dict) -> str:
     """A record as JSON text (NaN and infinities as JSON's common extension; floats exact)."""
-    return json.dumps(_jsonable(record), allow_nan=True, sort_keys=True)
+    return json.dumps(plain(record), allow_nan=True, sort_keys=True)
 
 
 def roundtrip(output: TaskOutput) -> TaskOutput:

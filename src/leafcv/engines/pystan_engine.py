@@ -13,7 +13,6 @@ import logging
 import contextlib
 import io
 import json
-import sys
 import re
 import time
 from typing import Any, Callable
@@ -21,6 +20,7 @@ from typing import Any, Callable
 import numpy as np
 
 from ..errors import EngineError
+from ..jsonio import plain
 from ..spec import SamplerSpec
 from .base import SAMPLER_FIELDS, Draws, compile_lock, output_to
 
@@ -30,18 +30,6 @@ _ITER = re.compile(r"Iteration:\s+(\d+)\s+/\s+(\d+)")
 #: is tried again, at most COMPILE_ATTEMPTS times in all. A C++ failure comes after minutes and is not.
 COMPILE_ATTEMPTS = 3
 QUICK_FAILURE = 20.0
-
-
-def _jsonable(obj: Any) -> Any:
-    if isinstance(obj, dict):
-        return {k: _jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_jsonable(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return obj.tolist()
-    if isinstance(obj, np.generic):
-        return obj.item()
-    return obj
 
 
 class PyStanEngine:
@@ -80,7 +68,7 @@ class PyStanEngine:
             if not self.is_compiled(program):
                 self.precompile(program)
             with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
-                model = outside_event_loop(stan.build, program, data=_jsonable(data or {}), random_seed=seed)
+                model = outside_event_loop(stan.build, program, data=plain(data or {}), random_seed=seed)
         except EngineError:
             raise
         except Exception as exc:  # httpstan reports compile and data errors as plain exceptions
@@ -139,7 +127,7 @@ class PyStanEngine:
                 "function": "stan::services::sample::hmc_nuts_diag_e_adapt",
                 "chain": chain,
                 "data": model.data,
-                "init": _jsonable(inits[chain - 1]),
+                "init": plain(inits[chain - 1]),
                 "random_seed": int(seed),
                 "num_warmup": int(settings.warmup),
                 "num_samples": int(settings.draws),

@@ -8,7 +8,8 @@ import pandas as pd
 
 from ..cv.result import khat_threshold
 from .html import Column, Tables, esc
-from .run import RunFolder, json_float, json_floats
+from ..jsonio import json_float, json_floats
+from .run import RunFolder
 
 FIT_COLUMNS = ["structure", "role", "attempt", "seed", "used", "chains", "warmup", "draws", "adapt_delta",
                "max_rhat", "min_ess_bulk", "min_ess_tail", "divergences", "treedepth_hits", "min_ebfmi",

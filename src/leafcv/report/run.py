@@ -17,11 +17,9 @@ import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
-import numpy as np
 import pandas as pd
 
-from ..errors import UserInputError
-from ..manifest import file_hash, json_float  # noqa: F401  (json_float re-exported for the report's modules)
+from ..manifest import file_hash
 
 
 @dataclass
@@ -58,11 +56,6 @@ class RunFolder:
     def best(self) -> str | None:
         ranked = self.ranked
         return None if ranked.empty else str(ranked.iloc[0]["structure"])
-
-
-def json_floats(values: list | None, n: int) -> np.ndarray:
-    """A per-unit array of a result file; None (not computed) gives n NaN."""
-    return np.full(n, np.nan) if values is None else np.array([json_float(v) for v in values], dtype=float)
 
 
 def read_ranking(path: Path) -> pd.DataFrame:
