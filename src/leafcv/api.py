@@ -26,6 +26,7 @@ import pandas as pd
 
 from .data.dataset import Dataset
 from .errors import SpecError, UserInputError
+from .runfolder import PREDICTION_PARTS, RunPaths, read_pointwise, read_ranking
 from .spec import Comparison
 
 if TYPE_CHECKING:
@@ -268,12 +269,12 @@ class Run:
     def ranking(self) -> pd.DataFrame:
         """ranking.csv: one row per structure (columns as in DESIGN.md, plus ``mcse`` and ``quad_bound``,
         the summed per-unit quadrature bound)."""
-        return self._table("ranking.csv")
+        return read_ranking(self._existing(self.paths.ranking))
 
     @property
     def pointwise(self) -> pd.DataFrame:
         """pointwise.csv: per held-out leaf (or level) and structure, elpd, method, MCSE, bound, k-hat."""
-        return self._table("pointwise.csv")
+        return read_pointwise(self._existing(self.paths.pointwise))
 
     @property
     def finished(self) -> bool:
@@ -281,20 +282,19 @@ class Run:
 
     def result(self, structure: str) -> dict[str, Any]:
         """The stored result of one structure (scores, diagnostics of every fit, seeds, notes)."""
-        return json.loads(self._path("results", f"{structure}.json").read_text())
+        return json.loads(self._existing(self.paths.result(structure)).read_text())
 
     def fit(self, structure: str) -> "xr.DataTree":
         """The structure's full-data fit as an ArviZ data tree (groups posterior, sample_stats,
         observed_data, log_likelihood)."""
         from .cv.arviz_bridge import open_fit
 
-        return open_fit(self._path("fits", f"{structure}.nc"))
+        return open_fit(self._existing(self.paths.fit(structure)))
 
     def predictions(self, structure: str) -> tuple[pd.DataFrame, pd.DataFrame]:
         """Held-out predictions of one structure: every point's observed and predicted A, and each
         leaf's predictive curves (mean and 5-95 % interval of a new observation on a Ci or PPFD grid)."""
-        return (pd.read_csv(self._path("predictions", f"{structure}-points.csv")),
-                pd.read_csv(self._path("predictions", f"{structure}-curves.csv")))
+        return tuple(pd.read_csv(self._existing(self.paths.prediction(structure, part))) for part in PREDICTION_PARTS)
 
     def predict(self, structure: str, leaves: "str | Path | pd.DataFrame",
                 conditions: "str | Path | pd.DataFrame | None" = None):
@@ -345,16 +345,17 @@ class Run:
             structure = str(ranked.iloc[0]["structure"])
         return run_sensitivity(self.folder, structure)
 
-    def _path(self, *parts: str) -> Path:
-        path = self.folder.joinpath(*parts)
+    @property
+    def paths(self) -> RunPaths:
+        """Where each file of the run folder lives (`leafcv.runfolder`)."""
+        return RunPaths(self.folder)
+
+    def _existing(self, path: Path) -> Path:
         if not path.exists():
             known = ", ".join(self.manifest.get("structures", {})) or "none"
-            raise UserInputError(str(self.folder), [f"no {'/'.join(parts)} in this run folder (structures of the run: "
-                                                    f"{known}); run `leafcv compare` to finish it"])
+            raise UserInputError(str(self.folder), [f"no {path.relative_to(self.folder).as_posix()} in this run folder "
+                                                    f"(structures of the run: {known}); run `leafcv compare` to finish it"])
         return path
-
-    def _table(self, name: str) -> pd.DataFrame:
-        return pd.read_csv(self._path(name))
 
 
 def open_run(folder: str | Path) -> Run:

@@ -207,8 +207,9 @@ def cmd_report(args) -> int:
 
     from .compare import rewrite_report
     from .report import write_report
+    from .runfolder import RunPaths
 
-    manifest = args.rundir / "manifest.json"
+    manifest = RunPaths(args.rundir).manifest
     if manifest.exists() and "finished" not in json.loads(manifest.read_text()):
         print(f"{args.rundir}: the run has not finished; its ranking is not rewritten")
     else:

@@ -42,6 +42,7 @@ from .atomic import replacing, write_atomic
 from .jsonio import json_float, json_floats, plain
 from .manifest import file_hash
 from .ranking import format_ranking, rank, summary_notes
+from .runfolder import PREDICTION_PARTS, RunPaths
 from .spec import Comparison, Structure
 
 if TYPE_CHECKING:
@@ -210,12 +211,13 @@ def write_ranking(out: Path, results: list[CVResult], all_details: dict[str, dic
     """
     table = rank(results)
     pointwise = pointwise_table(results)
-    write_atomic(out / "ranking.csv", table.to_csv(index=False))
+    paths = RunPaths(out)
+    write_atomic(paths.ranking, table.to_csv(index=False))
     notes = summary_notes(table, n_leaves, results[0].unit, pointwise)
     spot = [spot_check_line(name, s) for name, d in all_details.items() for s in d.get("spot_checks", [])]
     text = format_ranking(table) + "\n\n" + "\n".join(notes + spot) + "\n"
-    write_atomic(out / "ranking.txt", text)
-    write_atomic(out / "pointwise.csv", pointwise.to_csv(index=False))
+    write_atomic(paths.ranking_text, text)
+    write_atomic(paths.pointwise, pointwise.to_csv(index=False))
     return text, table
 
 
@@ -236,8 +238,8 @@ def rewrite_report(run_dir: Path) -> str:
     run_dir = Path(run_dir)
     manifest = read_manifest(run_dir)
     results, details = [], {}
-    for name, filename in manifest.get("results", {}).items():
-        path = run_dir / "results" / filename
+    for name in manifest.get("results", {}):
+        path = RunPaths(run_dir).result(name)
         if not path.exists():
             raise UserInputError(str(run_dir), [f"result file {path} of structure {name!r} is missing; re-run `leafcv compare`"])
         _, res, det = _result_from_json(path.read_text())
@@ -358,22 +360,22 @@ def _run_locked(comparison, dataset, out, *, method, engine, log, spot_checks, s
                                               f"{khat_threshold(sampler.chains * sampler.draws):.2f} at "
                                               f"{sampler.chains * sampler.draws} draws"}
     manifest["structures"] = {st.name: structure_record(st, dataset, comparison) for st in comparison.structures}
-    write_atomic(out / "leaves.csv", dataset.leaves.to_csv(index=False))
-    write_atomic(out / "manifest.json", json.dumps(manifest, indent=1))
-    write_atomic(out / "structures.txt", structures_text(comparison, manifest["structures"]))
-    files = {s.name: f"{s.name}.json" for s in comparison.structures}
+    paths = RunPaths(out)
+    write_atomic(paths.leaves, dataset.leaves.to_csv(index=False))
+    write_atomic(paths.manifest, json.dumps(manifest, indent=1))
+    write_atomic(paths.structures_text, structures_text(comparison, manifest["structures"]))
+    files = {s.name: paths.result(s.name).name for s in comparison.structures}
     finished: dict[str, tuple[CVResult, dict]] = {}
     todo = []
     for s in comparison.structures:
         key = structure_key(s, comparison, data_hash, settings)
-        path = out / "results" / files[s.name]
+        path = paths.result(s.name)
         if path.exists():
             try:
                 old_key, res, det = _result_from_json(path.read_text())
             except (ValueError, KeyError, TypeError):
                 old_key = None
-            kept = [out / "fits" / f"{s.name}.nc"] + [out / "predictions" / f"{s.name}-{part}.csv"
-                                                      for part in ("points", "curves")]
+            kept = [paths.fit(s.name)] + [paths.prediction(s.name, part) for part in PREDICTION_PARTS]
             if old_key == key and all(f.exists() for f in kept):
                 log(f"{s.name}: reusing the finished result in {path}")
                 finished[s.name] = (res, det)
@@ -385,8 +387,8 @@ def _run_locked(comparison, dataset, out, *, method, engine, log, spot_checks, s
     failures = {}
     if todo:
         leaf_fits = fit_leaves(dataset)
-        (out / "logs").mkdir(parents=True, exist_ok=True)
-        compile_log = str(out / "logs" / "compile.log")
+        paths.logs.mkdir(parents=True, exist_ok=True)
+        compile_log = str(paths.compile_log)
         local = scheduler is None or scheduler == "local"
         ctx = Context(comparison, dataset, leaf_fits, sampler, engine=engine,
                       chains_at_once=chains_at_once(cores, n_workers) if n_workers > 1 else None,
@@ -424,10 +426,10 @@ def _run_locked(comparison, dataset, out, *, method, engine, log, spot_checks, s
         def write_structure(name: str, value: tuple) -> None:
             res, det, kept = value
             kept = kept_outputs(ctx, structures[name], kept)
-            write_fit(out / "fits" / f"{name}.nc", kept["fit"], dataset, kept["log_m"])
-            for part in ("points", "curves"):
-                write_atomic(out / "predictions" / f"{name}-{part}.csv", kept[part].to_csv(index=False))
-            write_atomic(out / "results" / files[name], _result_to_json(res, det, keys[name]))
+            write_fit(paths.fit(name), kept["fit"], dataset, kept["log_m"])
+            for part in PREDICTION_PARTS:
+                write_atomic(paths.prediction(name, part), kept[part].to_csv(index=False))
+            write_atomic(paths.result(name), _result_to_json(res, det, keys[name]))
             finished[name] = (res, asdict(det))
             grade = {"converged": "", "marginal": " - MARGINAL CONVERGENCE", "failed": " - NOT CONVERGED"}[res.grade]
             mcse = f", MCSE {res.mcse:.2f}" if np.isfinite(res.mcse) else ""
@@ -465,7 +467,7 @@ def _run_locked(comparison, dataset, out, *, method, engine, log, spot_checks, s
     if failures:
         manifest["failed"] = {n: f"{f.task.label}: {f.message}" for n, f in failures.items()}
     manifest["finished"] = time.strftime("%Y-%m-%dT%H:%M:%S%z")
-    write_atomic(out / "manifest.json", json.dumps(manifest, indent=1))
+    write_atomic(paths.manifest, json.dumps(manifest, indent=1))
     log(text)
     if report:
         from .report import write_report    # here: the report needs matplotlib, the scores do not

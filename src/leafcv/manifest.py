@@ -10,11 +10,12 @@ import json
 from pathlib import Path
 
 from .errors import UserInputError
+from .runfolder import RunPaths
 
 
 def read_manifest(run_dir: str | Path) -> dict:
     """The manifest of a run folder; a `UserInputError` naming the folder when it has none."""
-    path = Path(run_dir) / "manifest.json"
+    path = RunPaths(run_dir).manifest
     if not path.exists():
         raise UserInputError(str(run_dir), ["no manifest.json here: give the run folder written by `leafcv compare`"])
     return json.loads(path.read_text())
@@ -43,11 +44,11 @@ def run_inputs(run_dir: str | Path, structure: str | None, purpose: str):
     manifest = read_manifest(run_dir)
     fit_path = None
     if structure is not None:
-        fit_path = run_dir / "fits" / f"{structure}.nc"
+        fit_path = RunPaths(run_dir).fit(structure)
         if not fit_path.exists():
-            have = sorted(p.stem for p in (run_dir / "fits").glob("*.nc"))
+            have = sorted(p.stem for p in fit_path.parent.glob("*.nc"))
             raise UserInputError(str(run_dir), [
-                f"no fit of structure {structure!r} in {run_dir / 'fits'}; fits there: "
+                f"no fit of structure {structure!r} in {fit_path.parent}; fits there: "
                 f"{', '.join(have) or 'none (the run has not finished a structure)'}"])
     comparison = load_comparison(Path(manifest["comparison"]))
     if file_hash(comparison.data.file) != manifest.get("data_sha256"):

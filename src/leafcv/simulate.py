@@ -30,6 +30,7 @@ import pandas as pd
 from .data.dataset import LEAF_TERM, Dataset
 from .design import Design, build_design, leaf_cov_chol
 from .errors import UserInputError
+from .runfolder import RunPaths, read_ranking
 from .simulation_summary import FOLDER, posterior_draws
 from .spec import SamplerSpec
 
@@ -165,8 +166,9 @@ def _ordered(raw: dict) -> dict:
 
 
 def _finished(run_dir: Path) -> bool:
-    path = run_dir / "manifest.json"
-    if not (run_dir / "ranking.csv").exists() or not path.exists():
+    paths = RunPaths(run_dir)
+    path = paths.manifest
+    if not paths.ranking.exists() or not path.exists():
         return False
     return bool(json.loads(path.read_text()).get("finished"))
 
@@ -188,12 +190,12 @@ def simulate_run(run_dir: str | Path, structure: str | None = None, *, replicate
 
     run_dir = Path(run_dir)
     manifest, comparison, dataset, _ = run_inputs(run_dir, None, "replicate studies drawn from the run's fit")
-    ranking_path = run_dir / "ranking.csv"
+    ranking_path = RunPaths(run_dir).ranking
     if structure is None:
         if not ranking_path.exists():
             raise UserInputError(str(run_dir), ["the run has no ranking.csv yet: finish it with `leafcv compare`, "
                                                 "or name the generating structure with --structure"])
-        ranked = pd.read_csv(ranking_path)
+        ranked = read_ranking(ranking_path)
         ranked = ranked[ranked["rank"].notna()]
         if ranked.empty:
             raise UserInputError(str(run_dir), ["no structure of this run is ranked; name the generating structure "
@@ -202,9 +204,9 @@ def simulate_run(run_dir: str | Path, structure: str | None = None, *, replicate
     names = [s.name for s in comparison.structures if s.name in manifest.get("structures", {s.name: 0})]
     if structure not in names:
         raise UserInputError(str(run_dir), [f"no structure {structure!r} in this run; its structures: {', '.join(names)}"])
-    fit_path = run_dir / "fits" / f"{structure}.nc"
+    fit_path = RunPaths(run_dir).fit(structure)
     if not fit_path.exists():
-        raise UserInputError(str(run_dir), [f"no fit of {structure!r} in {run_dir / 'fits'}: run `leafcv compare` "
+        raise UserInputError(str(run_dir), [f"no fit of {structure!r} in {fit_path.parent}: run `leafcv compare` "
                                             "again to finish it"])
     problems = []
     if replicates < 1:

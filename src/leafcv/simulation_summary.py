@@ -22,6 +22,7 @@ import numpy as np
 import pandas as pd
 
 from .ranking import pair_verdict
+from .runfolder import RunPaths, read_pointwise, read_ranking
 
 REPLICATES_FILE = "replicates.csv"
 CANDIDATES_FILE = "candidates.csv"
@@ -61,8 +62,9 @@ def why_not_ranked(warnings) -> str:
 
 
 def _replicate_rows(k: int, run: Path, generating: str) -> list[dict]:
-    table = pd.read_csv(run / "ranking.csv")
-    pointwise = pd.read_csv(run / "pointwise.csv") if (run / "pointwise.csv").exists() else None
+    paths = RunPaths(run)
+    table = read_ranking(paths.ranking)
+    pointwise = read_pointwise(paths.pointwise) if paths.pointwise.exists() else None
     ranked = table[table["rank"].notna()]
     first = str(ranked.iloc[0]["structure"]) if not ranked.empty else None
     rows = []
@@ -88,7 +90,7 @@ def _replicate_rows(k: int, run: Path, generating: str) -> list[dict]:
 
 
 def _coverage_rows(k: int, run: Path, generating: str, truth: dict[str, float], interval: float) -> list[dict]:
-    fit = run / "fits" / f"{generating}.nc"
+    fit = RunPaths(run).fit(generating)
     if not fit.exists():
         return []
     draws, labels = posterior_draws(fit)
@@ -113,8 +115,8 @@ def summarise(folder: str | Path) -> dict[str, pd.DataFrame]:
     reps, cover = [], []
     for rep in sorted(folder.glob("replicate-*")):
         run = rep / "run"
-        manifest = run / "manifest.json"
-        if not (run / "ranking.csv").exists() or not manifest.exists() or not json.loads(manifest.read_text()).get("finished"):
+        manifest = RunPaths(run).manifest
+        if not RunPaths(run).ranking.exists() or not manifest.exists() or not json.loads(manifest.read_text()).get("finished"):
             continue
         k = int(rep.name.split("-")[1])
         truth = json.loads((rep / "truth.json").read_text())["values"]

@@ -21,7 +21,8 @@ from leafcv.compare import write_ranking
 from leafcv.cv.result import CVResult
 from leafcv.report.decision import decision_html
 from leafcv.report.html import Tables
-from leafcv.report.run import RunFolder, read_ranking
+from leafcv.report.run import RunFolder
+from leafcv.runfolder import read_ranking
 
 pytestmark = pytest.mark.filterwarnings("ignore:The inplace keyword")
 

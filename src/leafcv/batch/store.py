@@ -27,6 +27,7 @@ import numpy as np
 from ..atomic import write_atomic
 from ..cv.plan import Task, TaskOutput, record_text
 from ..errors import UserInputError
+from ..runfolder import RunPaths
 
 LOCK_NAME = ".leafcv-run.lock"
 
@@ -35,7 +36,7 @@ class TaskStore:
     """Finished task outputs of one run folder, keyed by task key."""
 
     def __init__(self, run_dir: Path):
-        self.folder = Path(run_dir) / "tasks"
+        self.folder = RunPaths(run_dir).tasks
         self.folder.mkdir(parents=True, exist_ok=True)
         self.journal_path = self.folder / "journal.jsonl"
 

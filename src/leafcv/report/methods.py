@@ -9,6 +9,7 @@ import pandas as pd
 
 from ..manifest import file_hash
 from ..ranking import FEW_LEAVES, RULE_WORDS, units_word
+from ..runfolder import RunPaths
 from .html import Column, Tables, esc
 from .run import RunFolder
 from .terms import OPTION_WORDS
@@ -205,13 +206,14 @@ def reproduction_html(run: RunFolder, tables: Tables) -> str:
     sampler = settings.pop("sampler", {})
     rows += [(f"setting: {k}", v) for k, v in settings.items()]
     rows += [(f"sampler: {k}", v) for k, v in sampler.items()]
-    for sub in ("results", "fits"):
-        for path in sorted((run.path / sub).glob("*")) if (run.path / sub).is_dir() else []:
+    paths = RunPaths(run.path)
+    for folder in (paths.results, paths.fits):
+        for path in sorted(folder.glob("*")) if folder.is_dir() else []:
             if path.is_file() and not path.name.startswith("."):
-                rows.append((f"SHA-256 of {sub}/{path.name}", file_hash(path)))
-    for name in ("ranking.csv", "pointwise.csv", "structures.txt"):
-        if (run.path / name).exists():
-            rows.append((f"SHA-256 of {name}", file_hash(run.path / name)))
+                rows.append((f"SHA-256 of {folder.name}/{path.name}", file_hash(path)))
+    for path in (paths.ranking, paths.pointwise, paths.structures_text):
+        if path.exists():
+            rows.append((f"SHA-256 of {path.name}", file_hash(path)))
     table = pd.DataFrame(rows, columns=["item", "value"]).astype(str)
     comparison = Path(m.get("comparison", "comparison.toml"))
     again = (f"leafcv compare {comparison} --out {run.path} --method {settings.get('method', 'auto')}"

@@ -13,6 +13,7 @@ from pathlib import Path
 import pandas as pd
 
 from ..errors import UserInputError
+from ..runfolder import RunPaths
 from .html import Column, Tables, esc
 from .run import RunFolder
 
@@ -61,7 +62,7 @@ def replicate_cost(rundir: Path) -> dict | None:
     """Seconds summed over the run's finished tasks (the last finish of each task, its own timing), how
     many tasks, the wall time from the first start to the last finish and the workers of the last run;
     None without a journal."""
-    path = rundir / "tasks" / "journal.jsonl"
+    path = RunPaths(rundir).journal
     if not path.is_file():
         return None
     events = []
@@ -107,7 +108,7 @@ def sensitivity_html(run: RunFolder, tables: Tables, chosen: str | None, why: st
 
     if chosen is None:
         return "<p>No structure is ranked and none was chosen: no prior sensitivity.</p>"
-    if not (run.path / "fits" / f"{chosen}.nc").exists():
+    if not RunPaths(run.path).fit(chosen).exists():
         return f"<p>{esc(chosen)} ({why}) has no saved fit (fits/{esc(chosen)}.nc): no prior sensitivity.</p>"
     try:
         table = run_sensitivity(run.path, chosen)
@@ -183,7 +184,7 @@ def sbc_html(run: RunFolder, validation: Validation | None) -> str:
 def selection_html(run: RunFolder, tables: Tables) -> str:
     from .simulation import simulation_html
 
-    found = simulation_html(run.path, tables, run.path / "figures")
+    found = simulation_html(run.path, tables, RunPaths(run.path).figures)
     if found is not None:
         return found
     parts = ["<p>How often this comparison would pick the same structure in a new study of the same design has "

@@ -20,6 +20,7 @@ from pathlib import Path
 import pandas as pd
 
 from ..manifest import file_hash
+from ..runfolder import RunPaths, read_pointwise, read_ranking
 
 
 @dataclass
@@ -56,14 +57,6 @@ class RunFolder:
     def best(self) -> str | None:
         ranked = self.ranked
         return None if ranked.empty else str(ranked.iloc[0]["structure"])
-
-
-def read_ranking(path: Path) -> pd.DataFrame:
-    """ranking.csv with ``rank`` as a nullable integer and empty warnings as ""."""
-    table = pd.read_csv(path, dtype={"warnings": object, "structure": str})
-    table["rank"] = table["rank"].astype("Int64")
-    table["warnings"] = table["warnings"].fillna("").astype(str)
-    return table
 
 
 def question_of(comparison_text: str) -> str | None:
@@ -108,16 +101,16 @@ def load_run(rundir: Path) -> RunFolder:
     manifest = read_manifest(rundir)
     notes: list[str] = []
     structures = list(manifest.get("structures", {}))
-    files = manifest.get("results") or {name: f"{name}.json" for name in structures}
+    paths = RunPaths(rundir)
     results, missing = {}, []
     for name in structures:
-        path = rundir / "results" / files.get(name, f"{name}.json")
+        path = paths.result(name)
         if path.exists():
             results[name] = json.loads(path.read_text())
         else:
             missing.append(name)
-    ranking = read_ranking(rundir / "ranking.csv") if (rundir / "ranking.csv").exists() else None
-    pointwise = pd.read_csv(rundir / "pointwise.csv") if (rundir / "pointwise.csv").exists() else None
+    ranking = read_ranking(paths.ranking) if paths.ranking.exists() else None
+    pointwise = read_pointwise(paths.pointwise) if paths.pointwise.exists() else None
     finished = "finished" in manifest
     if ranking is not None:
         listed = set(ranking["structure"])
@@ -136,7 +129,7 @@ def load_run(rundir: Path) -> RunFolder:
         question = question_of(comparison.read_text(encoding="utf-8-sig"))
     elif manifest.get("comparison"):
         notes.append(f"the comparison file {comparison} named in the manifest is not there: the question is not shown")
-    text = (rundir / "structures.txt").read_text() if (rundir / "structures.txt").exists() else ""
+    text = paths.structures_text.read_text() if paths.structures_text.exists() else ""
     return RunFolder(rundir, manifest, ranking, pointwise, results, structures, missing, finished, unit,
                      question, text, notes)
 
