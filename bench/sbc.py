@@ -217,9 +217,14 @@ def run(folder: Path, structures, replicates: int, workers: int, chains: int, wa
         for job in todo:
             save(*_run_one(job))
         return
-    with ProcessPoolExecutor(workers, mp_context=mp.get_context("spawn")) as pool:
+    from leafcv.batch.executors import stop_pool
+
+    pool = ProcessPoolExecutor(workers, mp_context=mp.get_context("spawn"))
+    try:
         for fut in as_completed([pool.submit(_run_one, job) for job in todo]):
             save(*fut.result())
+    finally:            # not `with`: its shutdown would wait for ever on the workers' chain pools
+        stop_pool(pool)
 
 
 # ------------------------------------------------------------------------------------------------------

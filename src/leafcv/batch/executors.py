@@ -69,6 +69,17 @@ class InProcess:
             _fresh_chain_pool()
 
 
+def stop_pool(pool: cf.ProcessPoolExecutor) -> None:
+    """Stop a process pool's workers and every process below them. A worker that sampled with PyStan keeps
+    httpstan's chain pool, which never exits on its own: a worker left to exit waits on it for ever, and
+    so does ``shutdown(wait=True)`` (or the end of a ``with`` block)."""
+    pids = list(getattr(pool, "_processes", {}) or {})
+    pool.shutdown(wait=False, cancel_futures=True)
+    for pid in pids:
+        kill_descendants(pid)
+        _kill(pid)
+
+
 def _kill(pid: int) -> None:
     import psutil
 
@@ -147,13 +158,8 @@ class LocalProcesses:
         self._pool = self._start()
 
     def close(self, kill: bool = False) -> None:
-        """Stop the workers and their chain processes (a worker's chain pool never exits on its own: a
-        worker left to exit waits on it for ever)."""
-        pids = list(getattr(self._pool, "_processes", {}) or {})
-        self._pool.shutdown(wait=False, cancel_futures=True)
-        for pid in pids:
-            kill_descendants(pid)
-            _kill(pid)
+        """Stop the workers and their chain processes (`stop_pool`)."""
+        stop_pool(self._pool)
         if kill:
             kill_descendants()
 
