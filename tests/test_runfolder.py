@@ -8,7 +8,7 @@ from dataclasses import replace
 import pandas as pd
 import pytest
 
-from leafcv.runfolder import PREDICTION_PARTS, RunPaths, read_pointwise, read_ranking
+from leafcv.runfolder import PREDICTION_PARTS, RunPaths, is_finished, read_pointwise, read_ranking
 
 from .fakes import FakeEngine
 
@@ -42,6 +42,7 @@ def test_every_file_the_schema_names_is_where_compare_wrote_it(written):
                               paths.pointwise, paths.results, paths.fits, paths.predictions, paths.tasks, paths.logs,
                               paths.report, paths.tables, paths.figures)}
     assert {p.name for p in out.iterdir() if not p.name.startswith(".")} <= named
+    assert is_finished(out) and not is_finished(out / "results")     # a folder without a ranking or manifest
     with pytest.raises(ValueError, match="part must be one of"):
         paths.prediction(names[0], "draws")
 

@@ -18,6 +18,7 @@ Tests: tests/test_runfolder.py.
 """
 from __future__ import annotations
 
+import json
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -115,6 +116,14 @@ class RunPaths:
         if part not in PREDICTION_PARTS:
             raise ValueError(f"part must be one of {PREDICTION_PARTS}, not {part!r}")
         return self.predictions / f"{structure}-{part}.csv"
+
+
+def is_finished(folder: str | Path) -> bool:
+    """Whether the run in ``folder`` has finished: its ranking is written and its manifest says so."""
+    paths = RunPaths(folder)
+    if not paths.ranking.exists() or not paths.manifest.exists():
+        return False
+    return bool(json.loads(paths.manifest.read_text()).get("finished"))
 
 
 def read_ranking(path: str | Path) -> pd.DataFrame:

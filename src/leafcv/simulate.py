@@ -30,7 +30,7 @@ import pandas as pd
 from .data.dataset import LEAF_TERM, Dataset
 from .design import Design, build_design, leaf_cov_chol
 from .errors import UserInputError
-from .runfolder import RunPaths, read_ranking
+from .runfolder import RunPaths, is_finished, read_ranking
 from .simulation_summary import FOLDER, posterior_draws
 from .spec import SamplerSpec
 
@@ -165,14 +165,6 @@ def _ordered(raw: dict) -> dict:
     return head | {k: v for k, v in raw.items() if k not in head}
 
 
-def _finished(run_dir: Path) -> bool:
-    paths = RunPaths(run_dir)
-    path = paths.manifest
-    if not paths.ranking.exists() or not path.exists():
-        return False
-    return bool(json.loads(path.read_text()).get("finished"))
-
-
 def simulate_run(run_dir: str | Path, structure: str | None = None, *, replicates: int = 20,
                  leaves_per_level: int | None = None, level_of: str | None = None, out: str | Path | None = None,
                  chains: int | None = None, warmup: int | None = None, draws: int | None = None,
@@ -252,7 +244,7 @@ def simulate_run(run_dir: str | Path, structure: str | None = None, *, replicate
     for k in range(replicates):
         rep = folder / f"replicate-{k + 1:03d}"
         rep_run = rep / "run"
-        if _finished(rep_run):
+        if is_finished(rep_run):
             continue
         rng = np.random.default_rng([settings.seed, SIMULATION_STREAM, k])
         s = int(rng.integers(S))

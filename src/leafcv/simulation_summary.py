@@ -21,8 +21,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .ranking import pair_verdict
-from .runfolder import RunPaths, read_pointwise, read_ranking
+from .ranking import NOT_RANKED_PREFIX, pair_verdict
+from .runfolder import RunPaths, is_finished, read_pointwise, read_ranking
 
 REPLICATES_FILE = "replicates.csv"
 CANDIDATES_FILE = "candidates.csv"
@@ -53,12 +53,12 @@ def posterior_draws(fit_path: Path) -> tuple[dict[str, np.ndarray], dict[str, li
 
 
 def why_not_ranked(warnings) -> str:
-    """The reason a ranking row gives for leaving a structure unranked: the clause after "not ranked: " in
-    its warnings (e.g. "fits did not converge"), or "not stated"."""
+    """The reason a ranking row gives for leaving a structure unranked: the clause after
+    `leafcv.ranking.NOT_RANKED_PREFIX` in its warnings (e.g. "fits did not converge"), or "not stated"."""
     text = str(warnings) if isinstance(warnings, str) else ""
-    if "not ranked: " not in text:
+    if NOT_RANKED_PREFIX not in text:
         return "not stated"
-    return text.split("not ranked: ", 1)[1].split(";", 1)[0].strip() or "not stated"
+    return text.split(NOT_RANKED_PREFIX, 1)[1].split(";", 1)[0].strip() or "not stated"
 
 
 def _replicate_rows(k: int, run: Path, generating: str) -> list[dict]:
@@ -115,8 +115,7 @@ def summarise(folder: str | Path) -> dict[str, pd.DataFrame]:
     reps, cover = [], []
     for rep in sorted(folder.glob("replicate-*")):
         run = rep / "run"
-        manifest = RunPaths(run).manifest
-        if not RunPaths(run).ranking.exists() or not manifest.exists() or not json.loads(manifest.read_text()).get("finished"):
+        if not is_finished(run):
             continue
         k = int(rep.name.split("-")[1])
         truth = json.loads((rep / "truth.json").read_text())["values"]

@@ -9,6 +9,25 @@ import numpy as np
 
 from leafcv.report.html import Tables
 from leafcv.report.reliability import read_validation, replicate_cost, sbc_html, selection_html
+from leafcv.runfolder import RunPaths
+
+
+def _run(folder):
+    """The part of a report's RunFolder that the selection part reads."""
+    return SimpleNamespace(path=folder, paths=RunPaths(folder), manifest={})
+
+
+def _simulation(folder, reps, candidates, k: int):
+    """A simulation folder as `leafcv simulate` writes it, from the given tables; coverage of one quantity."""
+    import pandas as pd
+
+    sim = folder / "simulation"
+    sim.mkdir()
+    (sim / "settings.json").write_text(json.dumps({"structure": "gen", "chains": 2, "warmup": 100, "draws": 100,
+                                                   "leaves_per_level": None, "level_of": None}))
+    pd.DataFrame(reps).to_csv(sim / "replicates.csv", index=False)
+    pd.DataFrame(candidates).to_csv(sim / "candidates.csv", index=False)
+    pd.DataFrame({"quantity": ["b0[vcmax25]"], "coverage": [0.5], "replicates": [k]}).to_csv(sim / "coverage.csv", index=False)
 
 
 def _journal(folder, events):
@@ -27,7 +46,7 @@ def test_replicate_cost_sums_each_tasks_last_finish(tmp_path):
     ])
     cost = replicate_cost(tmp_path)
     assert cost == {"seconds": 61.5 + 120.0, "tasks": 2, "wall": 180.0, "workers": 2}
-    run = SimpleNamespace(path=tmp_path, manifest={})
+    run = _run(tmp_path)
     text = selection_html(run, Tables(tmp_path / "tables"))
     assert "3.0 min summed" in text and "3.0 min from the first" in text and "2 worker(s)" in text
     # without a simulation: the command that would run it, and 20 replicates' expected wall time
@@ -36,7 +55,7 @@ def test_replicate_cost_sums_each_tasks_last_finish(tmp_path):
 
 def test_no_journal_says_the_cost_is_unknown(tmp_path):
     assert replicate_cost(tmp_path) is None
-    assert "unknown" in selection_html(SimpleNamespace(path=tmp_path, manifest={}), Tables(tmp_path / "tables"))
+    assert "unknown" in selection_html(_run(tmp_path), Tables(tmp_path / "tables"))
 
 
 def test_sbc_status_not_yet_run_names_the_script(tmp_path):
@@ -80,21 +99,12 @@ def test_the_report_has_the_section(written):
 
 def test_a_simulation_is_shown_in_place_of_its_cost(tmp_path):
     """With RUNDIR/simulation written by `leafcv simulate`, the part shows its shares, figure and tables."""
-    import pandas as pd
-
-    sim = tmp_path / "simulation"
-    sim.mkdir()
-    (sim / "settings.json").write_text(json.dumps({"structure": "gen", "chains": 2, "warmup": 100, "draws": 100,
-                                                   "leaves_per_level": None, "level_of": None}))
-    reps = pd.DataFrame({"replicate": [1, 1, 2, 2], "structure": ["gen", "rival"] * 2, "delta_generating": [0, 6.0, 0, -1.0]})
-    reps.to_csv(sim / "replicates.csv", index=False)
-    pd.DataFrame({"structure": ["gen", "rival"], "generating": [True, False], "replicates": [2, 2],
-                  "share_first": [0.5, 0.5], "share_not_told_apart_from_first": [1.0, 0.5], "share_unranked": [0.0, 0.0],
-                  "delta_q05": [0.0, -0.7], "delta_median": [0.0, 2.5], "delta_q95": [0.0, 5.6]}).to_csv(
-        sim / "candidates.csv", index=False)
-    pd.DataFrame({"quantity": ["b0[vcmax25]"], "coverage": [0.5], "replicates": [2]}).to_csv(sim / "coverage.csv", index=False)
+    _simulation(tmp_path, {"replicate": [1, 1, 2, 2], "structure": ["gen", "rival"] * 2, "delta_generating": [0, 6.0, 0, -1.0]},
+                {"structure": ["gen", "rival"], "generating": [True, False], "replicates": [2, 2],
+                 "share_first": [0.5, 0.5], "share_not_told_apart_from_first": [1.0, 0.5], "share_unranked": [0.0, 0.0],
+                 "delta_q05": [0.0, -0.7], "delta_median": [0.0, 2.5], "delta_q95": [0.0, 5.6]}, 2)
     tables = Tables(tmp_path / "tables")
-    text = selection_html(SimpleNamespace(path=tmp_path, manifest={}), tables)
+    text = selection_html(_run(tmp_path), tables)
     assert "2 replicate studies were drawn from the posterior of <b>gen</b>" in text
     assert "gen ranked first in 50 % of the replicate studies and was not told apart from the first (leafcv's rule) in 100 %" in text
     assert "not been estimated" not in text
@@ -103,25 +113,16 @@ def test_a_simulation_is_shown_in_place_of_its_cost(tmp_path):
 
 
 def test_replicates_in_which_the_generating_structure_was_not_ranked_are_said(tmp_path):
-    import pandas as pd
-
-    sim = tmp_path / "simulation"
-    sim.mkdir()
-    (sim / "settings.json").write_text(json.dumps({"structure": "gen", "chains": 2, "warmup": 100, "draws": 100,
-                                                   "leaves_per_level": None, "level_of": None}))
     # 4 replicates: gen first in 2, unranked (fits did not converge) in 1, ranked second in 1
-    reps = pd.DataFrame({"replicate": [1, 1, 2, 2, 3, 3, 4, 4], "structure": ["gen", "rival"] * 4,
-                         "ranked": [True, True, True, True, False, True, True, True],
-                         "first": [True, False, True, False, False, True, False, True],
-                         "why_not_ranked": ["", "", "", "", "fits did not converge", "", "", ""],
-                         "delta_generating": [0, 6.0, 0, 5.0, 0, 1.0, 0, -1.0]})
-    reps.to_csv(sim / "replicates.csv", index=False)
-    pd.DataFrame({"structure": ["gen", "rival"], "generating": [True, False], "replicates": [4, 4],
-                  "share_first": [0.5, 0.5], "share_not_told_apart_from_first": [0.75, 0.5], "share_unranked": [0.25, 0.0],
-                  "delta_q05": [0.0, -0.7], "delta_median": [0.0, 2.5], "delta_q95": [0.0, 5.6]}).to_csv(
-        sim / "candidates.csv", index=False)
-    pd.DataFrame({"quantity": ["b0[vcmax25]"], "coverage": [0.5], "replicates": [4]}).to_csv(sim / "coverage.csv", index=False)
-    text = selection_html(SimpleNamespace(path=tmp_path, manifest={}), Tables(tmp_path / "tables"))
+    _simulation(tmp_path, {"replicate": [1, 1, 2, 2, 3, 3, 4, 4], "structure": ["gen", "rival"] * 4,
+                           "ranked": [True, True, True, True, False, True, True, True],
+                           "first": [True, False, True, False, False, True, False, True],
+                           "why_not_ranked": ["", "", "", "", "fits did not converge", "", "", ""],
+                           "delta_generating": [0, 6.0, 0, 5.0, 0, 1.0, 0, -1.0]},
+                {"structure": ["gen", "rival"], "generating": [True, False], "replicates": [4, 4],
+                 "share_first": [0.5, 0.5], "share_not_told_apart_from_first": [0.75, 0.5], "share_unranked": [0.25, 0.0],
+                 "delta_q05": [0.0, -0.7], "delta_median": [0.0, 2.5], "delta_q95": [0.0, 5.6]}, 4)
+    text = selection_html(_run(tmp_path), Tables(tmp_path / "tables"))
     assert ("It was not ranked in 1 of 4 replicates (fits did not converge: 1); each counts as a replicate it did "
             "not win. Among the 3 in which it was ranked, it ranked first in 2.") in text
 

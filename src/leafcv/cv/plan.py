@@ -119,7 +119,7 @@ def task_key(base: str, kind: str, structure: Structure, payload: dict, inputs: 
 # ----------------------------------------------------------------------------------------------
 # running one task
 
-def _fit_output(structure: Structure, fit, details, seconds: float) -> TaskOutput:
+def _fit_output(fit, details, seconds: float) -> TaskOutput:
     from .methods import centring_of
     d = fit.draws
     arrays = {f"p/{k}": np.asarray(v) for k, v in d.params.items()}
@@ -179,7 +179,7 @@ def execute(ctx: Context, task: Task, inputs: dict[str, TaskOutput]) -> TaskOutp
                                details, p["role"], p.get("options"), p.get("priors"))
         for f in details.fits:
             f["contributes"] = p["contributes"]
-        return _fit_output(st, fit, details, time.perf_counter() - t)
+        return _fit_output(fit, details, time.perf_counter() - t)
     if task.kind == "score":
         t = time.perf_counter()
         fit = restore_fit(ctx, st, inputs[task.inputs[0]], p.get("options"), p.get("priors"))

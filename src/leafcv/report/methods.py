@@ -9,7 +9,6 @@ import pandas as pd
 
 from ..manifest import file_hash
 from ..ranking import FEW_LEAVES, RULE_WORDS, units_word
-from ..runfolder import RunPaths
 from .html import Column, Tables, esc
 from .run import RunFolder
 from .terms import OPTION_WORDS
@@ -206,7 +205,7 @@ def reproduction_html(run: RunFolder, tables: Tables) -> str:
     sampler = settings.pop("sampler", {})
     rows += [(f"setting: {k}", v) for k, v in settings.items()]
     rows += [(f"sampler: {k}", v) for k, v in sampler.items()]
-    paths = RunPaths(run.path)
+    paths = run.paths
     for folder in (paths.results, paths.fits):
         for path in sorted(folder.glob("*")) if folder.is_dir() else []:
             if path.is_file() and not path.name.startswith("."):

@@ -151,7 +151,7 @@ def predictions_html(run, tables: Tables) -> str:
                 "this version on): run `leafcv compare` again to add them.</p>")
     data = scatter_data(points)
     scores = fit_scores(data)
-    b64 = save(scatter_figure(data, scores), data, "predicted_observed", RunPaths(run.path).figures, tables.figures)
+    b64 = save(scatter_figure(data, scores), data, "predicted_observed", run.paths.figures, tables.figures)
     parts = [f"<p>Each point's net assimilation predicted without its own leaf (the held-out predictive mean) "
              f"against the observed value, for the top {len(top)} ranked structures; dashed: the 1:1 line.</p>",
              figure(b64, "predicted_observed", "Predicted against observed A",
@@ -164,7 +164,7 @@ def predictions_html(run, tables: Tables) -> str:
         leaves = curve_leaves(run, top[0], points[top[0]])
         shown = top[:2]
         cd = curves_data(run, shown, leaves, points[top[0]])
-        b64 = save(curves_figure(cd, leaves, shown), cd, "predictive_curves", RunPaths(run.path).figures, tables.figures)
+        b64 = save(curves_figure(cd, leaves, shown), cd, "predictive_curves", run.paths.figures, tables.figures)
         which = "; ".join(f"{esc(r['leaf'])}, {esc(r['which'])} under {esc(top[0])} "
                           f"({number(r['elpd_per_point'], '.2f')} nats per point)" for _, r in leaves.iterrows())
         parts.append(f"<p>The observed A–Ci and A–Q points of two leaves ({which}) with the held-out predictive "

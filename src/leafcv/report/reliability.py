@@ -108,7 +108,7 @@ def sensitivity_html(run: RunFolder, tables: Tables, chosen: str | None, why: st
 
     if chosen is None:
         return "<p>No structure is ranked and none was chosen: no prior sensitivity.</p>"
-    if not RunPaths(run.path).fit(chosen).exists():
+    if not run.paths.fit(chosen).exists():
         return f"<p>{esc(chosen)} ({why}) has no saved fit (fits/{esc(chosen)}.nc): no prior sensitivity.</p>"
     try:
         table = run_sensitivity(run.path, chosen)
@@ -184,7 +184,7 @@ def sbc_html(run: RunFolder, validation: Validation | None) -> str:
 def selection_html(run: RunFolder, tables: Tables) -> str:
     from .simulation import simulation_html
 
-    found = simulation_html(run.path, tables, RunPaths(run.path).figures)
+    found = simulation_html(run.path, tables, run.paths.figures)
     if found is not None:
         return found
     parts = ["<p>How often this comparison would pick the same structure in a new study of the same design has "

@@ -54,6 +54,11 @@ class RunFolder:
         return self.ranking[self.ranking["rank"].isna()].reset_index(drop=True)
 
     @property
+    def paths(self) -> RunPaths:
+        """Where each file of the run folder lives (`leafcv.runfolder`)."""
+        return RunPaths(self.path)
+
+    @property
     def best(self) -> str | None:
         ranked = self.ranked
         return None if ranked.empty else str(ranked.iloc[0]["structure"])

@@ -19,7 +19,6 @@ import pandas as pd
 
 from ..errors import UserInputError
 from ..ranking import SMALL_DIFF, units_word
-from ..runfolder import RunPaths
 from . import figures
 from .decision import decision_html
 from .diagnostics import diagnostics_html, thresholds
@@ -40,7 +39,7 @@ def _ranking_html(run: RunFolder, tables: Tables) -> str:
         return "<p>No ranking.csv in the run folder yet.</p>"
     data = figures.ranking_data(run.ranking)
     fig = figures.ranking_figure(data, SMALL_DIFF)
-    b64 = figures.save(fig, data, "ranking", RunPaths(run.path).figures, tables.figures)
+    b64 = figures.save(fig, data, "ranking", run.paths.figures, tables.figures)
     caption = ("Δelpd of each structure against the best (nats; 0 = the best), with ±1 SE (thick) and ±2 SE (thin) "
                "of the paired difference; shaded: within 4 nats of the best. Structures not ranked are shown apart "
                "in grey with the reason.")
@@ -78,7 +77,7 @@ def _leaves_html(run: RunFolder, tables: Tables, group: str | None) -> str:
     group = group or (columns[0] if columns and groups is not None else None)
     data = figures.leaves_data(run.pointwise, run.unit, best, others, groups, group)
     fig = figures.leaves_figure(data, run.unit, group)
-    b64 = figures.save(fig, data, "leaves", RunPaths(run.path).figures, tables.figures)
+    b64 = figures.save(fig, data, "leaves", run.paths.figures, tables.figures)
     note = (f"Coloured by {esc(group)} ({esc(where)})." if group else
             (f"Not grouped: {esc(where)}." if where else "Not grouped."))
     parts = [f"<p>Per-unit Δelpd = elpd({esc(best)}) − elpd(other), for the next "
@@ -105,7 +104,7 @@ def _estimates_html(run: RunFolder, tables: Tables, structure: str | None) -> tu
     if chosen is None:
         return "What the chosen structure estimates", "<p>No structure is ranked and none was chosen.</p>"
     title = f"What {chosen} estimates"
-    path = RunPaths(run.path).fit(chosen)
+    path = run.paths.fit(chosen)
     why = "chosen with --structure" if structure else "the best ranked structure"
     if not path.exists():
         return title, f"<p>{esc(chosen)} ({why}) has no saved fit (fits/{esc(chosen)}.nc).</p>"
@@ -151,7 +150,7 @@ def _diagnostics_section(run: RunFolder, tables: Tables) -> str:
     names = [s for s in run.results if f"khat:{s}" in run.pointwise]
     psis = {s: run.results[s].get("details", {}).get("psis_khat") for s in names}
     data = figures.khat_data(run.pointwise, run.unit, names, thresholds(run), {s: k for s, k in psis.items() if k})
-    b64 = figures.save(figures.khat_figure(data, run.unit), data, "khat", RunPaths(run.path).figures, tables.figures)
+    b64 = figures.save(figures.khat_figure(data, run.unit), data, "khat", run.paths.figures, tables.figures)
     html = figure(b64, "khat", "Pareto k-hat per unit and structure",
                   "Pareto k̂ of each unit's PSIS estimate (Vehtari et al. 2024); above the threshold the unit was "
                   "refitted exactly (hollow: the PSIS k̂ of a refitted unit, where the run kept it).")
@@ -194,7 +193,7 @@ def write_report(rundir: str | Path, structure: str | None = None, group: str | 
     run = load_run(Path(rundir))
     if structure is not None and structure not in run.structures:
         raise UserInputError(str(run.path), [f"no structure {structure!r} in this run; valid: {', '.join(run.structures)}"])
-    tables = Tables(RunPaths(run.path).tables)
+    tables = Tables(run.paths.tables)
     terms = structure_terms(run.manifest, run.structures_text)
     title, estimates = _estimates_html(run, tables, structure)
     sections = [
@@ -213,9 +212,9 @@ def write_report(rundir: str | Path, structure: str | None = None, group: str | 
     subtitle = (f"Run folder {esc(run.path)}; comparison {esc(run.manifest.get('comparison', '?'))}; "
                 f"{len(run.results)} of {len(run.structures)} structures scored; {esc(status)}. "
                 "Written by leafcv report from the run folder alone.")
-    _remove_stale(RunPaths(run.path).tables, tables.written)
-    _remove_stale(RunPaths(run.path).figures, tables.figures)
-    path = RunPaths(run.path).report
+    _remove_stale(run.paths.tables, tables.written)
+    _remove_stale(run.paths.figures, tables.figures)
+    path = run.paths.report
     write_text(path, page("leafcv report: which structure predicts new leaves best", subtitle, sections))
     log.info("report written to %s (%.0f kB, %.1f s)", path, path.stat().st_size / 1024, time.perf_counter() - start)
     return path
