@@ -44,7 +44,7 @@ from leafcv.demo import write_demo
 
 STRUCTURE = "traits-month-fixed"
 POLL = 0.2
-SCORE_BLOCK = 16          # leaves per score task (leafcv.cv.plan.SCORE_BLOCK)
+SCORE_BLOCK = 16          # leaves per score task (leafcv.cv.tasks.SCORE_BLOCK)
 SPOT_CHECKS = 3           # refits of unflagged leaves per structure (method auto)
 PROJECT_LEAVES, PROJECT_STRUCTURES, PROJECT_CORES = 200, 17, (2, 16, 64)
 MB = 1024 ** 2

@@ -26,7 +26,7 @@ import os
 import platform
 import sys
 import time
-from dataclasses import asdict
+from dataclasses import asdict, dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Callable
 
@@ -43,7 +43,7 @@ from .jsonio import json_float, json_floats, plain
 from .manifest import file_hash
 from .ranking import format_ranking, rank, summary_notes
 from .runfolder import PREDICTION_PARTS, RunPaths
-from .spec import Comparison, Structure
+from .spec import Comparison, SamplerSpec, Structure
 
 if TYPE_CHECKING:
     from .cv.methods import CVDetails
@@ -277,17 +277,6 @@ def task_base(comparison: Comparison, data_hash: str, sampler, engine: str = "")
     return hashlib.sha256(payload.encode()).hexdigest()
 
 
-def _expected_tasks(comparison: Comparison, dataset: Dataset, method: str, spot_checks: int) -> int:
-    """A first guess of one structure's tasks, for the progress total (refits of flagged leaves unknown)."""
-    from .cv.methods import folds_for
-    from .cv.plan import SCORE_BLOCK
-
-    blocks = -(-dataset.n_leaves // SCORE_BLOCK)
-    if method == "auto" and comparison.cv.by == "leaf":
-        return 1 + blocks + spot_checks
-    return len(folds_for(dataset, comparison.cv.by, method, comparison.cv.folds, comparison.sampler.seed)) + 1 + blocks
-
-
 class BatchIncomplete(EngineError):
     """Some structures failed (a task failed twice, or the plan refused); the others are ranked."""
 
@@ -318,15 +307,60 @@ def run_comparison(comparison: Comparison, dataset: Dataset, out: Path, *, metho
                            progress=progress, report=report)
 
 
+@dataclass(frozen=True)
+class _Run:
+    """What one run of `run_comparison` is, settled before any structure is scored."""
+
+    comparison: Comparison
+    dataset: Dataset
+    out: Path
+    method: str
+    sampler: SamplerSpec
+    spot_checks: int
+    data_hash: str
+    settings: dict              # what results depend on besides the structure (`structure_key`)
+    engine: object
+    engine_label: str
+    identity: str               # the engine's identity in task keys ("" for PyStan)
+    n_workers: int
+    cores: int
+    workers: int | None
+    scheduler: str | None
+    progress: str | None
+    log: Callable[[str], None]
+
+    @property
+    def paths(self) -> RunPaths:
+        return RunPaths(self.out)
+
+    @property
+    def local(self) -> bool:
+        """Workers on this machine (no Dask scheduler elsewhere)."""
+        return self.scheduler is None or self.scheduler == "local"
+
+    def plan_options(self) -> dict:
+        """The arguments of every structure's plan (`leafcv.cv.plan.plan`) besides the structure."""
+        cv = self.comparison.cv
+        return {"sampler": self.sampler, "method": self.method, "by": cv.by, "folds": cv.folds,
+                "spot_checks": self.spot_checks, "estimates": True}
+
+
 def _run_locked(comparison, dataset, out, *, method, engine, log, spot_checks, sampler, workers, scheduler,
                 progress, report=True) -> pd.DataFrame:
-    from .batch.executors import DaskCluster, InProcess, Lazy, LocalProcesses, chains_at_once, default_workers
-    from .batch.progress import Progress, default_mode
-    from .batch.runner import Runner
-    from .batch.store import TaskStore
+    run = _settle(comparison, dataset, out, method=method, engine=engine, log=log, spot_checks=spot_checks,
+                  sampler=sampler, workers=workers, scheduler=scheduler, progress=progress)
+    manifest = _write_inputs(run)
+    finished, todo = _reusable_results(run)
+    failures = _score_structures(run, todo, finished) if todo else {}
+    return _rank_and_finish(run, manifest, finished, failures, report)
+
+
+def _settle(comparison, dataset, out, *, method, engine, log, spot_checks, sampler, workers, scheduler,
+            progress) -> _Run:
+    """The run's method, sampler, settings and workers; a named engine that cannot run here stops it now."""
+    from .batch.executors import default_workers
     from .batch.worker import machine_cores
-    from .cv.plan import kept_outputs
-    from .cv.plan import Context, plan
+    from .engines.choice import check_engine, engine_identity
 
     method = method or comparison.cv.method
     sampler = sampler or comparison.sampler
@@ -334,8 +368,6 @@ def _run_locked(comparison, dataset, out, *, method, engine, log, spot_checks, s
     settings = {"method": method, "by": comparison.cv.by, "folds": comparison.cv.folds,
                 "spot_checks": spot_checks, "sampler": asdict(sampler)}
     cores = machine_cores()
-    from .engines.choice import check_engine, engine_identity, engine_version
-
     engine_label = check_engine(engine)            # a named engine that cannot run here stops the run now
     identity = engine_identity(engine)
     if identity:
@@ -344,31 +376,44 @@ def _run_locked(comparison, dataset, out, *, method, engine, log, spot_checks, s
                             else default_workers())
     if n_workers < 1:
         raise ValueError(f"workers must be at least 1, not {n_workers}")
+    return _Run(comparison, dataset, Path(out), method, sampler, spot_checks, data_hash, settings, engine, engine_label, identity, n_workers, cores, workers, scheduler, progress, log)
+
+
+def _write_inputs(run: _Run) -> dict:
+    """Write the manifest (as the run starts), the leaves and the structures in words; returns the manifest."""
+    from .cv.quadrature import LEAF_TOL
+    from .cv.result import khat_threshold
+    from .engines.choice import engine_version
+
+    comparison, sampler = run.comparison, run.sampler
     manifest = {
         "comparison": str(comparison.path), "comparison_sha256": file_hash(comparison.path),
-        "data": str(comparison.data.file), "data_sha256": data_hash, "settings": settings,
+        "data": str(comparison.data.file), "data_sha256": run.data_hash, "settings": run.settings,
         "seeds": seed_plan(sampler.seed), "grades": grade_definitions(),
-        "versions": _versions(), "engine": {"name": engine_label, "version": engine_version(engine)},
+        "versions": _versions(), "engine": {"name": run.engine_label, "version": engine_version(run.engine)},
         "started": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
         "command": " ".join(sys.argv),
     }
-    from .cv.quadrature import LEAF_TOL
-    from .cv.result import khat_threshold
-
     manifest["accuracy"] = {"quadrature_tolerance_nats": LEAF_TOL,
                             "khat_threshold": f"min(1 - 1 / log10(draws), 0.7) (Vehtari et al. 2024): "
                                               f"{khat_threshold(sampler.chains * sampler.draws):.2f} at "
                                               f"{sampler.chains * sampler.draws} draws"}
-    manifest["structures"] = {st.name: structure_record(st, dataset, comparison) for st in comparison.structures}
-    paths = RunPaths(out)
-    write_atomic(paths.leaves, dataset.leaves.to_csv(index=False))
+    manifest["structures"] = {st.name: structure_record(st, run.dataset, comparison) for st in comparison.structures}
+    paths = run.paths
+    write_atomic(paths.leaves, run.dataset.leaves.to_csv(index=False))
     write_atomic(paths.manifest, json.dumps(manifest, indent=1))
     write_atomic(paths.structures_text, structures_text(comparison, manifest["structures"]))
-    files = {s.name: paths.result(s.name).name for s in comparison.structures}
+    return manifest
+
+
+def _reusable_results(run: _Run) -> tuple[dict[str, tuple[CVResult, dict]], list[tuple[Structure, str]]]:
+    """The structures whose result (with its fit and predictions) is in the run folder for the same
+    inputs, by name; and the others to score, each with its result key."""
+    paths = run.paths
     finished: dict[str, tuple[CVResult, dict]] = {}
     todo = []
-    for s in comparison.structures:
-        key = structure_key(s, comparison, data_hash, settings)
+    for s in run.comparison.structures:
+        key = structure_key(s, run.comparison, run.data_hash, run.settings)
         path = paths.result(s.name)
         if path.exists():
             try:
@@ -377,106 +422,129 @@ def _run_locked(comparison, dataset, out, *, method, engine, log, spot_checks, s
                 old_key = None
             kept = [paths.fit(s.name)] + [paths.prediction(s.name, part) for part in PREDICTION_PARTS]
             if old_key == key and all(f.exists() for f in kept):
-                log(f"{s.name}: reusing the finished result in {path}")
+                run.log(f"{s.name}: reusing the finished result in {path}")
                 finished[s.name] = (res, det)
                 continue
             if old_key == key:
-                log(f"{s.name}: the result matches but its fit or predictions are missing: computing again")
+                run.log(f"{s.name}: the result matches but its fit or predictions are missing: computing again")
         todo.append((s, key))
+    return finished, todo
 
-    failures = {}
-    if todo:
-        leaf_fits = fit_leaves(dataset)
-        paths.logs.mkdir(parents=True, exist_ok=True)
-        compile_log = str(paths.compile_log)
-        local = scheduler is None or scheduler == "local"
-        ctx = Context(comparison, dataset, leaf_fits, sampler, engine=engine,
-                      chains_at_once=chains_at_once(cores, n_workers) if n_workers > 1 else None,
-                      compile_log=compile_log if local else None)
-        base = task_base(comparison, data_hash, sampler, identity)
-        plans = {s.name: plan(s, dataset, comparison, sampler=sampler, method=method, by=comparison.cv.by,
-                              folds=comparison.cv.folds, spot_checks=spot_checks, estimates=True, base=base)
-                 for s, _ in todo}
-        keys = dict((s.name, key) for s, key in todo)
-        structures = {s.name: s for s, _ in todo}
-        mode = progress or default_mode()
 
-        def start_executor():
-            if (engine is None or isinstance(engine, str)) and local:   # compile once here, before workers
-                from .engines.choice import make_engine                   # start (they find it cached)
-                from .engines.program import program_text
+def _score_structures(run: _Run, todo: list[tuple[Structure, str]], finished: dict) -> dict:
+    """Every task of the structures in ``todo``, run and stored (`leafcv.batch`); each structure's files
+    are written, and it is added to ``finished``, as its plan ends. Returns the failures by structure."""
+    from functools import partial
 
-                make_engine(engine, log=log, compile_log=compile_log).precompile(program_text())
-            if scheduler is not None:
-                ex = DaskCluster(ctx, scheduler, workers)
-            elif n_workers == 1:
-                ex = InProcess(ctx)
-            else:
-                ex = LocalProcesses(ctx, n_workers)
-            bar.start = time.perf_counter()     # elapsed time and ETA count from here, not from the compile
-            log(f"{len(todo)} structure(s) to cross-validate ({method}, by {comparison.cv.by}) on {ex.name}: "
-                f"{ex.workers} worker(s)"
-                + (f", {ctx.chains_at_once} chain(s) at once each ({cores} cores)" if ctx.chains_at_once else "")
-                + f"; finished tasks are kept in {out / 'tasks'}")
-            return ex
+    from .batch.executors import Lazy, chains_at_once
+    from .batch.progress import Progress, default_mode
+    from .batch.runner import Runner
+    from .batch.store import TaskStore
+    from .cv.plan import Context, expected_tasks, plan
 
-        executor = Lazy(start_executor)
-        bar = Progress(mode, log)
-
-        def write_structure(name: str, value: tuple) -> None:
-            res, det, kept = value
-            kept = kept_outputs(ctx, structures[name], kept)
-            write_fit(paths.fit(name), kept["fit"], dataset, kept["log_m"])
-            for part in PREDICTION_PARTS:
-                write_atomic(paths.prediction(name, part), kept[part].to_csv(index=False))
-            write_atomic(paths.result(name), _result_to_json(res, det, keys[name]))
-            finished[name] = (res, asdict(det))
-            grade = {"converged": "", "marginal": " - MARGINAL CONVERGENCE", "failed": " - NOT CONVERGED"}[res.grade]
-            mcse = f", MCSE {res.mcse:.2f}" if np.isfinite(res.mcse) else ""
-            line = (f"{name}: elpd {res.elpd:.1f} (SE {res.se:.1f}{mcse}), {res.n_refits} refits" + grade
-                    + (f" - NOT SCORED: {res.unscored}" if res.unscored else ""))
-            if bar.bar is not None:
-                bar.bar.write(line, file=sys.stderr)
-            else:
-                log(line)
-
-        store = TaskStore(out)
-        store.log("run", workers=n_workers, scheduler=scheduler, pid=os.getpid())
-        runner = Runner(executor, store, bar, on_finished=write_structure)
-        expected = {s.name: _expected_tasks(comparison, dataset, method, spot_checks) for s, _ in todo}
-        try:
-            _, failures = runner.run(plans, expected)
-        except BaseException as exc:
-            bar.close()
-            executor.close(kill=True)
-            if isinstance(exc, KeyboardInterrupt):
-                done = sum(1 for e in store.journal() if e["event"] == "done")
-                log(f"stopped: every finished task is kept in {out / 'tasks'} ({done} stored); run the same "
-                    f"command again to continue")
-            raise
+    leaf_fits = fit_leaves(run.dataset)
+    run.paths.logs.mkdir(parents=True, exist_ok=True)
+    ctx = Context(run.comparison, run.dataset, leaf_fits, run.sampler, engine=run.engine,
+                  chains_at_once=chains_at_once(run.cores, run.n_workers) if run.n_workers > 1 else None,
+                  compile_log=str(run.paths.compile_log) if run.local else None)
+    base = task_base(run.comparison, run.data_hash, run.sampler, run.identity)
+    options = run.plan_options()
+    plans = {s.name: plan(s, run.dataset, run.comparison, base=base, **options) for s, _ in todo}
+    expected = {s.name: expected_tasks(s, run.dataset, **options) for s, _ in todo}
+    bar = Progress(run.progress or default_mode(), run.log)
+    executor = Lazy(partial(_start_executor, run, ctx, bar, len(todo)))
+    store = TaskStore(run.out)
+    store.log("run", workers=run.n_workers, scheduler=run.scheduler, pid=os.getpid())
+    written = partial(_write_structure, run, ctx, {s.name: (s, key) for s, key in todo}, finished, bar)
+    runner = Runner(executor, store, bar, on_finished=written)
+    try:
+        _, failures = runner.run(plans, expected)
+    except BaseException as exc:
         bar.close()
-        executor.close()
+        executor.close(kill=True)
+        if isinstance(exc, KeyboardInterrupt):
+            done = sum(1 for e in store.journal() if e["event"] == "done")
+            run.log(f"stopped: every finished task is kept in {run.out / 'tasks'} ({done} stored); run the same "
+                    f"command again to continue")
+        raise
+    bar.close()
+    executor.close()
+    return failures
+
+
+def _start_executor(run: _Run, ctx, bar, n_structures: int):
+    """The executor of the run's tasks, made when the first task is sent (after compiling the program
+    here, for workers on this machine to find it cached)."""
+    from .batch.executors import DaskCluster, InProcess, LocalProcesses
+
+    if (run.engine is None or isinstance(run.engine, str)) and run.local:
+        from .engines.choice import make_engine
+        from .engines.program import program_text
+
+        make_engine(run.engine, log=run.log, compile_log=ctx.compile_log).precompile(program_text())
+    if run.scheduler is not None:
+        ex = DaskCluster(ctx, run.scheduler, run.workers)
+    elif run.n_workers == 1:
+        ex = InProcess(ctx)
+    else:
+        ex = LocalProcesses(ctx, run.n_workers)
+    bar.start = time.perf_counter()     # elapsed time and ETA count from here, not from the compile
+    run.log(f"{n_structures} structure(s) to cross-validate ({run.method}, by {run.comparison.cv.by}) on {ex.name}: "
+            f"{ex.workers} worker(s)"
+            + (f", {ctx.chains_at_once} chain(s) at once each ({run.cores} cores)" if ctx.chains_at_once else "")
+            + f"; finished tasks are kept in {run.out / 'tasks'}")
+    return ex
+
+
+def _write_structure(run: _Run, ctx, todo: dict[str, tuple[Structure, str]], finished: dict, bar, name: str,
+                     value: tuple) -> None:
+    """Write one structure's fit, predictions and result as its plan ends (``todo``: each structure and
+    its result key by name; ``value``: what the plan returned), and say its score."""
+    from .cv.plan import kept_outputs
+
+    paths = run.paths
+    res, det, kept = value
+    structure, key = todo[name]
+    kept = kept_outputs(ctx, structure, kept)
+    write_fit(paths.fit(name), kept["fit"], run.dataset, kept["log_m"])
+    for part in PREDICTION_PARTS:
+        write_atomic(paths.prediction(name, part), kept[part].to_csv(index=False))
+    write_atomic(paths.result(name), _result_to_json(res, det, key))
+    finished[name] = (res, asdict(det))
+    grade = {"converged": "", "marginal": " - MARGINAL CONVERGENCE", "failed": " - NOT CONVERGED"}[res.grade]
+    mcse = f", MCSE {res.mcse:.2f}" if np.isfinite(res.mcse) else ""
+    line = (f"{name}: elpd {res.elpd:.1f} (SE {res.se:.1f}{mcse}), {res.n_refits} refits" + grade
+            + (f" - NOT SCORED: {res.unscored}" if res.unscored else ""))
+    if bar.bar is not None:
+        bar.bar.write(line, file=sys.stderr)
+    else:
+        run.log(line)
+
+
+def _rank_and_finish(run: _Run, manifest: dict, finished: dict, failures: dict, report: bool) -> pd.DataFrame:
+    """Rank the finished structures, complete the manifest, write the report; then raise if any
+    structure failed."""
     if not finished:
         raise BatchIncomplete("no structure finished: " + "; ".join(f"{n}: {f.message}" for n, f in failures.items()),
                               "\n\n".join(f"{n} ({f.task.label}):\n{f.details}" for n, f in failures.items()))
-    order = [s.name for s in comparison.structures if s.name in finished]
+    order = [s.name for s in run.comparison.structures if s.name in finished]
     results = [finished[n][0] for n in order]
     all_details = {n: finished[n][1] for n in order}
-    text, table = write_ranking(out, results, all_details, len(results[0].leaves))
-    manifest["results"] = {n: files[n] for n in order}
+    text, table = write_ranking(run.out, results, all_details, len(results[0].leaves))
+    manifest["results"] = {n: run.paths.result(n).name for n in order}
     if failures:
         manifest["failed"] = {n: f"{f.task.label}: {f.message}" for n, f in failures.items()}
     manifest["finished"] = time.strftime("%Y-%m-%dT%H:%M:%S%z")
-    write_atomic(paths.manifest, json.dumps(manifest, indent=1))
-    log(text)
+    write_atomic(run.paths.manifest, json.dumps(manifest, indent=1))
+    run.log(text)
     if report:
         from .report import write_report    # here: the report needs matplotlib, the scores do not
 
-        log(f"report: {write_report(out)}")
+        run.log(f"report: {write_report(run.out)}")
     if failures:
         raise BatchIncomplete(
             f"{len(failures)} structure(s) not finished ({', '.join(failures)}): "
             + "; ".join(f"{f.task.label}: {f.message}" for f in failures.values())
-            + f". The others are ranked in {out}; run the same command again to retry the failed tasks",
+            + f". The others are ranked in {run.out}; run the same command again to retry the failed tasks",
             "\n\n".join(f"{n} ({f.task.label}):\n{f.details}" for n, f in failures.items()))
     return table

@@ -7,7 +7,7 @@ import re
 import pytest
 
 from leafcv.batch.progress import Progress
-from leafcv.cv.plan import Task
+from leafcv.cv.tasks import Task
 from leafcv.spec import Structure
 
 

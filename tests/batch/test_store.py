@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 
 from leafcv.batch.store import LOCK_NAME, RunLock, TaskStore
-from leafcv.cv.plan import Task, TaskOutput
+from leafcv.cv.tasks import Task, TaskOutput
 from leafcv.errors import UserInputError
 from leafcv.spec import Structure
 

@@ -12,7 +12,7 @@ from collections import OrderedDict
 from dataclasses import dataclass, field
 from typing import Callable
 
-from ..cv.plan import Plan, Task, TaskOutput
+from ..cv.tasks import Plan, Task, TaskOutput
 from .store import TaskStore
 
 #: Attempts of one task: the first and one more after an exception or a lost worker.

@@ -25,7 +25,7 @@ from pathlib import Path
 import numpy as np
 
 from ..atomic import write_atomic
-from ..cv.plan import Task, TaskOutput, record_text
+from ..cv.tasks import Task, TaskOutput, record_text
 from ..errors import UserInputError
 from ..runfolder import RunPaths
 

@@ -12,8 +12,8 @@ Every held-out leaf is scored jointly over its points, with its effects integrat
 Only the fits whose draws feed a score decide a structure's grade; a failed fit is retried with a
 remedy aimed at its cause (see `remedy`), up to MAX_ATTEMPTS attempts, each recorded.
 
-`leafcv.cv.plan` turns each method into tasks and runs them (`plan.cross_validate` in this process); this
-module holds the pieces the tasks call and never imports the plan. Tests: tests/cv/test_methods.py,
+`leafcv.cv.plans` turns each method into tasks and `leafcv.cv.plan` runs them (`plan.cross_validate` in this
+process); this module holds the pieces the plans and tasks call and never imports either. Tests: tests/cv/test_methods.py,
 tests/sampling/cv/test_methods.py.
 """
 from __future__ import annotations
@@ -286,7 +286,7 @@ def remedy(problems: tuple[str, ...], sampler: SamplerSpec, structure: Structure
 
 
 def fit_with_retries(structure, dataset, comparison, sampler, leaf_fits, train, seed, engine, details,
-                     role, options=None, priors=None, warm_start: StructureFit | None = None,
+                     role, warm_start: StructureFit | None = None,
                      retry_marginal: bool = True) -> StructureFit:
     """Fit, and refit with targeted remedies while the fit is not converged (or, with
     ``retry_marginal`` False, while it fails), up to MAX_ATTEMPTS.
@@ -297,9 +297,6 @@ def fit_with_retries(structure, dataset, comparison, sampler, leaf_fits, train, 
     """
     rank = {"converged": 2, "marginal": 1, "failed": 0}
     best, best_entry = None, None
-    kwargs = {} if options is None else {"options": options}
-    if priors is not None:
-        kwargs["priors"] = priors
     st, smp, cause = structure, sampler, ""
     if warm_start is not None:
         # chains start in the posterior, so a shorter warm-up adapts the step size and metric; a refit
@@ -313,8 +310,7 @@ def fit_with_retries(structure, dataset, comparison, sampler, leaf_fits, train, 
         if attempt == 1 and warm_start is not None:
             smp = replace(smp, warmup=max(smp.warmup, sampler.warmup), draws=max(smp.draws, sampler.draws))
         fit = fit_structure(st, dataset, comparison.data, smp, engine=engine, train_leaves=train,
-                            leaf_fits=leaf_fits, seed=s, warm_start=warm_start, warm_inits_too=warm is not None,
-                            **kwargs)
+                            leaf_fits=leaf_fits, seed=s, warm_start=warm_start, warm_inits_too=warm is not None)
         secs = time.perf_counter() - t
         dg = fit.diagnostics
         entry = {"role": role, "attempt": attempt + 1, "seed": s, "retry_cause": cause,
