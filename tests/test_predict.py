@@ -122,3 +122,16 @@ def test_a_csv_of_new_leaves_predicts_as_the_same_frame(fake_run, tmp_path):
     a = predict(out, "traits-month-random", rows).parameters
     b = predict(out, "traits-month-random", tmp_path / "new.csv").parameters
     pd.testing.assert_frame_equal(a, b)
+
+
+def test_the_apis_predict_writes_its_tables_when_given_a_folder(fake_run, tmp_path):
+    from leafcv.api import open_run
+
+    comparison, dataset, out = fake_run
+    cond = pd.DataFrame({"intercellular_co2": [150.0], "photon_flux": [1500.0], "leaf_temperature": [25.0]})
+    pred = open_run(out).predict("leaf-vcmax-alpha", _leaf_rows(dataset, [2]), cond, out=tmp_path / "pred")
+    pd.testing.assert_frame_equal(pd.read_csv(tmp_path / "pred" / "parameters.csv", dtype={"leaf": str}),
+                                  pred.parameters, check_dtype=False)
+    pd.testing.assert_frame_equal(pd.read_csv(tmp_path / "pred" / "assimilation.csv", dtype={"leaf": str}),
+                                  pred.assimilation, check_dtype=False)
+    assert sorted(p.name for p in (tmp_path / "pred").iterdir()) == ["assimilation.csv", "parameters.csv"]

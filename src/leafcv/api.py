@@ -4,15 +4,18 @@
     study = leafcv.load("compare.toml")            # comparison file + its data, every problem checked
     study = leafcv.from_frame(df, roles={...}, structures=[...], folder="study")   # or a DataFrame
     fit = study.fit("traits-month-fixed")          # one structure on all leaves
-    fit.summary; fit.diagnostics; fit.to_inference_data()
+    fit.summary; fit.diagnostics; fit.to_datatree(); fit.save("fit.nc")
     run = study.run(out="runs/x", method="auto")   # the main job; resumable
     run.ranking; run.pointwise; run.fit("traits-month-fixed")   # read from the run folder on demand
     run.predict("traits-month-fixed", "new_leaves.csv")         # new leaves' parameters, no sampler
+    run.rewrite_ranking(); run.write_report()                    # the ranking and report.html again
     run = leafcv.open_run("runs/x")                # a finished (or unfinished) run folder
 
 Progress and notes go to the ``logging`` logger ``"leafcv"`` (the command line prints them); library
 code prints nothing. Everything works inside a running event loop (Jupyter): the PyStan engine then
 runs its HTTP client in a worker thread.
+
+Tests: tests/test_api.py, tests/test_cli.py, tests/test_predict.py, tests/sampling/test_api.py.
 """
 from __future__ import annotations
 
@@ -37,7 +40,7 @@ if TYPE_CHECKING:
 
 logger = logging.getLogger("leafcv")
 
-__all__ = ["Study", "Fit", "Run", "load", "from_frame", "open_run"]
+__all__ = ["Study", "Fit", "Run", "load", "from_frame", "open_run", "demo", "simulation_text"]
 
 
 def load(path: str | Path) -> "Study":
@@ -173,6 +176,26 @@ class Study:
 
         return describe(self.comparison)
 
+    def data_summary(self) -> list[str]:
+        """The data in a few lines (what ``leafcv check`` prints before `describe`): the file, leaves, curves
+        by type and points, each group's levels, each trait's range and mean, then every note and warning
+        of the reading."""
+        dataset = self.dataset
+        obs = dataset.obs
+        curve_types = obs.groupby("curve")["curve_type"].first().value_counts()
+        lines = [f"data: {dataset.source}",
+                 f"  {dataset.n_leaves} leaves, {obs.groupby(['leaf', 'curve']).ngroups} curves "
+                 f"({', '.join(f'{k}: {v}' for k, v in curve_types.items())}), {len(obs)} points"]
+        for g in dataset.groups:
+            levels = sorted(dataset.leaves[g].astype(str).unique())
+            lines.append(f"  group {g}: {len(levels)} levels ({', '.join(levels[:8])}{', ...' if len(levels) > 8 else ''})")
+        for t in dataset.traits:
+            x = dataset.leaves[t]
+            lines.append(f"  trait {t}: {x.min():.4g} to {x.max():.4g}, mean {x.mean():.4g}")
+        lines += [f"  note: {note}" for note in dataset.notes]
+        lines += [f"  warning: {warning}" for warning in dataset.warnings]
+        return lines
+
     def fit(self, structure: str, *, engine=None, progress=None) -> "Fit":
         """Fit one structure on all leaves with the comparison's sampler settings. ``engine``: "pystan"
         or "cmdstan" (default: the comparison file's [engine] name, else PyStan), or an engine object."""
@@ -257,6 +280,15 @@ class Fit:
     #: The earlier name of `to_datatree`.
     to_inference_data = to_datatree
 
+    def save(self, path: str | Path) -> Path:
+        """Write the fit as an ArviZ data tree (NetCDF, the layout of a run's ``fits/<structure>.nc``, without
+        the log marginals) atomically; returns the path."""
+        from .compare import write_fit
+
+        path = Path(path)
+        write_fit(path, self.result, self.dataset, None)
+        return path
+
 
 @dataclass
 class Run:
@@ -297,14 +329,40 @@ class Run:
         return tuple(pd.read_csv(self._existing(self.paths.prediction(structure, part))) for part in PREDICTION_PARTS)
 
     def predict(self, structure: str, leaves: "str | Path | pd.DataFrame",
-                conditions: "str | Path | pd.DataFrame | None" = None):
+                conditions: "str | Path | pd.DataFrame | None" = None, *, out: str | Path | None = None):
         """Vcmax25, Jmax25, alpha, theta, Rd25 of new leaves (a table or CSV of their traits and groups)
         under ``structure``: the population-mean and the new-leaf 90 % intervals, and optionally the
         expected A at ``conditions`` (intercellular_co2, photon_flux, leaf_temperature[, oxygen]).
-        Returns a `leafcv.predict.Prediction`; no sampler runs."""
+        Returns a `leafcv.predict.Prediction`; no sampler runs. ``out``: also write its tables into this
+        folder, ``parameters.csv`` (and ``assimilation.csv`` with ``conditions``)."""
         from .predict import predict
 
-        return predict(self.folder, structure, leaves, conditions)
+        prediction = predict(self.folder, structure, leaves, conditions)
+        if out is not None:
+            out = Path(out)
+            out.mkdir(parents=True, exist_ok=True)
+            prediction.parameters.to_csv(out / "parameters.csv", index=False)
+            if prediction.assimilation is not None:
+                prediction.assimilation.to_csv(out / "assimilation.csv", index=False)
+        return prediction
+
+    def rewrite_ranking(self) -> str | None:
+        """Rank a finished run again from the result files its manifest names, rewriting ranking.csv,
+        ranking.txt and pointwise.csv; returns the ranking text, or None when the run has not finished
+        (its ranking is then left as it is)."""
+        if not self.finished:
+            return None
+        from .compare import rewrite_report
+
+        return rewrite_report(self.folder)
+
+    def write_report(self, structure: str | None = None, group: str | None = None) -> Path:
+        """Write ``report.html`` with its ``figures/`` and ``tables/`` from the run folder alone (no sampler);
+        ``structure``: whose estimates are shown (default: the best ranked), ``group``: the group column the
+        per-leaf differences are coloured by (default: the first). Returns the page's path."""
+        from .report import write_report
+
+        return write_report(self.folder, structure=structure, group=group)
 
     def simulate(self, structure: str | None = None, *, replicates: int = 20, leaves_per_level: int | None = None,
                  level_of: str | None = None, out: str | Path | None = None, chains: int | None = None,
@@ -356,6 +414,37 @@ class Run:
             raise UserInputError(str(self.folder), [f"no {path.relative_to(self.folder).as_posix()} in this run folder "
                                                     f"(structures of the run: {known}); run `leafcv compare` to finish it"])
         return path
+
+
+def demo(folder: str | Path, *, quick: bool = False) -> Path:
+    """Write the invented demo scenario (observations.csv, truth.csv and a comparison file) into ``folder``;
+    ``quick``: the small version (16 leaves, three structures). Returns the comparison file."""
+    from .demo import write_demo
+
+    return write_demo(Path(folder), quick=quick)
+
+
+def simulation_text(tables: dict[str, Any]) -> str:
+    """What ``leafcv simulate`` prints of a simulation's tables (`Run.simulate`): the generating structure,
+    each candidate's per cent of replicates ranked first and not told apart from the first, and the median
+    Δelpd of the generating structure minus it; the range of the generating structure's interval coverage;
+    where the tables are."""
+    cands = tables["candidates"]
+    gen = cands.loc[cands["generating"], "structure"]
+    shown = cands.assign(share_first=(100 * cands["share_first"]).round(0),
+                         share_not_told_apart_from_first=(100 * cands["share_not_told_apart_from_first"]).round(0))
+    table = (shown.rename(columns={"share_first": "% first",
+                                   "share_not_told_apart_from_first": "% not told apart from first",
+                                   "delta_median": "median Δelpd (generating − it)"})
+             [["structure", "% first", "% not told apart from first", "median Δelpd (generating − it)"]])
+    lines = [f"\n{tables['n_replicates']} replicate studies drawn from {gen.iloc[0] if len(gen) else '?'}:",
+             table.to_string(index=False, float_format=lambda v: f"{v:.1f}")]
+    cov = tables["coverage"]
+    if len(cov):
+        lines.append(f"coverage of the generating structure's 90 % intervals: {cov['coverage'].min():.0%} to "
+                     f"{cov['coverage'].max():.0%} over {len(cov)} quantities (coverage.csv)")
+    lines.append(f"tables in {tables['folder']}")
+    return "\n".join(lines)
 
 
 def open_run(folder: str | Path) -> Run:

@@ -1,11 +1,12 @@
-"""Command line: parses arguments and calls the public API.
+"""Command line: parses arguments, calls the public API (`leafcv.api`, nothing else of leafcv but its
+names of engines and methods and its errors) and prints.
 
 Exit codes: 0 success (non-converged fits are flagged in the output), 1 a problem with the user's
 data or files, 2 usage, 3 an engine or internal failure, or structures left unfinished by tasks that
 failed twice (message plus where the details were saved), 130 stopped by Ctrl-C or SIGTERM.
 
-Tests: tests/engines/test_choice.py, tests/report/test_report_page.py, tests/sampling/test_batch.py,
-tests/sampling/test_no_warnings.py.
+Tests: tests/test_cli.py, tests/engines/test_choice.py, tests/report/test_report_page.py,
+tests/sampling/test_batch.py, tests/sampling/test_no_warnings.py, tests/sampling/test_simulate.py.
 """
 from __future__ import annotations
 
@@ -97,73 +98,40 @@ def _parser() -> argparse.ArgumentParser:
 
 
 def cmd_simulate(args) -> int:
-    from .api import open_run
+    from .api import open_run, simulation_text
 
     run = open_run(args.rundir)
-    t = run.simulate(args.structure, replicates=args.replicates, leaves_per_level=args.leaves_per_level,
-                     level_of=args.level_of, out=args.out, chains=args.chains, warmup=args.warmup, draws=args.draws,
-                     workers=args.workers, scheduler=args.scheduler, progress=args.progress, engine=args.engine)
-    cands = t["candidates"]
-    gen = cands.loc[cands["generating"], "structure"]
-    print(f"\n{t['n_replicates']} replicate studies drawn from {gen.iloc[0] if len(gen) else '?'}:")
-    shown = cands.assign(share_first=(100 * cands["share_first"]).round(0),
-                         share_not_told_apart_from_first=(100 * cands["share_not_told_apart_from_first"]).round(0))
-    print(shown.rename(columns={"share_first": "% first", "share_not_told_apart_from_first": "% not told apart from first",
-                                "delta_median": "median Δelpd (generating − it)"})
-          [["structure", "% first", "% not told apart from first", "median Δelpd (generating − it)"]]
-          .to_string(index=False, float_format=lambda v: f"{v:.1f}"))
-    cov = t["coverage"]
-    if len(cov):
-        print(f"coverage of the generating structure's 90 % intervals: {cov['coverage'].min():.0%} to "
-              f"{cov['coverage'].max():.0%} over {len(cov)} quantities (coverage.csv)")
-    print(f"tables in {t['folder']}")
+    tables = run.simulate(args.structure, replicates=args.replicates, leaves_per_level=args.leaves_per_level,
+                          level_of=args.level_of, out=args.out, chains=args.chains, warmup=args.warmup,
+                          draws=args.draws, workers=args.workers, scheduler=args.scheduler, progress=args.progress,
+                          engine=args.engine)
+    print(simulation_text(tables))
     return EXIT_OK
 
 
 def cmd_predict(args) -> int:
-    import pandas as pd
-
     from .api import open_run
 
-    pred = open_run(args.rundir).predict(args.structure, args.leaves, args.at)
-    with pd.option_context("display.width", 160, "display.max_rows", 500):
-        print(f"structure {args.structure!r}: medians and 90 % intervals; 'mean' = the population mean for these "
-              f"traits and levels, 'new leaf' = a new leaf's own effects (and new levels) drawn too")
-        print(pred.parameters.to_string(index=False, float_format=lambda v: f"{v:.4g}"))
-        if pred.assimilation is not None:
-            print("\nexpected net assimilation A (umol m-2 s-1) at the given conditions:")
-            print(pred.assimilation.to_string(index=False, float_format=lambda v: f"{v:.4g}"))
+    pred = open_run(args.rundir).predict(args.structure, args.leaves, args.at, out=args.out)
+    print(f"structure {args.structure!r}: medians and 90 % intervals; 'mean' = the population mean for these "
+          f"traits and levels, 'new leaf' = a new leaf's own effects (and new levels) drawn too")
+    print(pred.parameters.to_string(index=False, float_format=lambda v: f"{v:.4g}"))
+    if pred.assimilation is not None:
+        print("\nexpected net assimilation A (umol m-2 s-1) at the given conditions:")
+        print(pred.assimilation.to_string(index=False, float_format=lambda v: f"{v:.4g}"))
     if args.out:
-        args.out.mkdir(parents=True, exist_ok=True)
-        pred.parameters.to_csv(args.out / "parameters.csv", index=False)
-        if pred.assimilation is not None:
-            pred.assimilation.to_csv(args.out / "assimilation.csv", index=False)
         print(f"written to {args.out}")
     return EXIT_OK
 
 
 def cmd_check(args) -> int:
     from .api import load
-    from .comparison import describe
 
-    comparison, dataset = load(args.file)
-    obs = dataset.obs
+    study = load(args.file)
     print(f"{args.file}: OK")
-    print(f"data: {dataset.source}")
-    print(f"  {dataset.n_leaves} leaves, {obs.groupby(['leaf', 'curve']).ngroups} curves "
-          f"({', '.join(f'{k}: {v}' for k, v in obs.groupby('curve')['curve_type'].first().value_counts().items())}), "
-          f"{len(obs)} points")
-    for g in dataset.groups:
-        levels = sorted(dataset.leaves[g].astype(str).unique())
-        print(f"  group {g}: {len(levels)} levels ({', '.join(levels[:8])}{', ...' if len(levels) > 8 else ''})")
-    for t in dataset.traits:
-        x = dataset.leaves[t]
-        print(f"  trait {t}: {x.min():.4g} to {x.max():.4g}, mean {x.mean():.4g}")
-    for note in dataset.notes:
-        print(f"  note: {note}")
-    for warning in dataset.warnings:
-        print(f"  warning: {warning}")
-    print(describe(comparison))
+    for line in study.data_summary():
+        print(line)
+    print(study.describe())
     return EXIT_OK
 
 
@@ -175,9 +143,7 @@ def cmd_fit(args) -> int:
     sys.stderr.write("\n")
     print(fit.text())
     if args.save:
-        from .compare import write_fit
-
-        write_fit(args.save, fit.result, study.dataset, None)
+        fit.save(args.save)
         print(f"fit written to {args.save} (ArviZ data tree, NetCDF)")
     return EXIT_OK
 
@@ -203,30 +169,24 @@ def cmd_compare(args) -> int:
 
 
 def cmd_report(args) -> int:
-    import json
+    from .api import open_run
 
-    from .compare import rewrite_report
-    from .report import write_report
-    from .runfolder import RunPaths
-
-    manifest = RunPaths(args.rundir).manifest
-    if manifest.exists() and "finished" not in json.loads(manifest.read_text()):
-        print(f"{args.rundir}: the run has not finished; its ranking is not rewritten")
-    else:
-        print(rewrite_report(args.rundir))
-    path = write_report(args.rundir, structure=args.structure, group=args.group)
+    run = open_run(args.rundir)
+    text = run.rewrite_ranking()
+    print(f"{args.rundir}: the run has not finished; its ranking is not rewritten" if text is None else text)
+    path = run.write_report(structure=args.structure, group=args.group)
     print(f"report: {path}")
     return EXIT_OK
 
 
 def cmd_demo(args) -> int:
-    from .demo import write_demo
+    from .api import demo
 
     folder: Path = args.dir
     if folder.exists() and any(folder.iterdir()) and not args.force:
         sys.stderr.write(f"leafcv demo: {folder} is not empty; choose an empty folder or add --force\n")
         return EXIT_USAGE
-    path = write_demo(folder, quick=args.quick)
+    path = demo(folder, quick=args.quick)
     print(f"wrote {folder / 'observations.csv'}, {folder / 'truth.csv'} and {path}")
     if args.no_run:
         return EXIT_OK

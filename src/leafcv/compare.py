@@ -4,6 +4,7 @@ Run folder (default ``runs/<file stem>/`` beside the comparison file):
   manifest.json            versions, data and specification hashes, seeds, settings actually used,
                            and per structure its model options and priors
   structures.txt           each structure's terms, model options and priors in words
+  study.json               what the report needs of the comparison file and data, as data (runfolder.StudyRecord)
   results/<structure>.json one per structure, written atomically; reused on a re-run when its inputs match
   fits/<structure>.nc      its full-data fit as an ArviZ data tree (posterior, sample_stats,
                            observed_data, and log_likelihood "leaf_log_marginal": each leaf's log marginal
@@ -42,7 +43,7 @@ from .atomic import replacing, write_atomic
 from .jsonio import json_float, json_floats, plain
 from .manifest import file_hash
 from .ranking import format_ranking, rank, summary_notes
-from .runfolder import PREDICTION_PARTS, RunPaths
+from .runfolder import PREDICTION_PARTS, RunPaths, write_study
 from .spec import Comparison, SamplerSpec, Structure
 
 if TYPE_CHECKING:
@@ -403,6 +404,7 @@ def _write_inputs(run: _Run) -> dict:
     write_atomic(paths.leaves, run.dataset.leaves.to_csv(index=False))
     write_atomic(paths.manifest, json.dumps(manifest, indent=1))
     write_atomic(paths.structures_text, structures_text(comparison, manifest["structures"]))
+    write_study(run.out, comparison, run.dataset)
     return manifest
 
 

@@ -1,16 +1,16 @@
 """Reading a run folder: its manifest.json (written first by `leafcv compare`, the one check that a folder
-is a run), the numbers of its JSON files, and the SHA-256 of its inputs and outputs.
+is a run), the numbers of its JSON files, and the SHA-256 of its inputs and outputs (`file_hash`, kept with
+the schema in `leafcv.runfolder` and named here too).
 
 Tests: tests/report/test_report_page.py, tests/test_predict.py, tests/sampling/test_compare.py.
 """
 from __future__ import annotations
 
-import hashlib
 import json
 from pathlib import Path
 
 from .errors import UserInputError
-from .runfolder import RunPaths
+from .runfolder import RunPaths, file_hash
 
 
 def read_manifest(run_dir: str | Path) -> dict:
@@ -19,15 +19,6 @@ def read_manifest(run_dir: str | Path) -> dict:
     if not path.exists():
         raise UserInputError(str(run_dir), ["no manifest.json here: give the run folder written by `leafcv compare`"])
     return json.loads(path.read_text())
-
-
-def file_hash(path: str | Path) -> str:
-    """SHA-256 of a file, read in 1 MiB blocks."""
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for chunk in iter(lambda: fh.read(1 << 20), b""):
-            h.update(chunk)
-    return h.hexdigest()
 
 
 def run_inputs(run_dir: str | Path, structure: str | None, purpose: str):

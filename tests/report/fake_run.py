@@ -2,7 +2,9 @@
 
 The per-leaf scores are invented; ranking.csv, ranking.txt and pointwise.csv are written by leafcv's own
 ``write_ranking`` and the result files by its own ``_result_to_json``, structures.txt by its own
-``structures_text``, so the report reads exactly what a real run leaves. Five structures over 12 leaves
+``structures_text`` and study.json by its own ``write_study`` (from the comparison and data as
+``load_dataset`` reads them), so the report reads exactly what a real run leaves. ``study=False`` leaves
+study.json out, as a run folder of an earlier leafcv. Five structures over 12 leaves
 of three species and two campaigns:
 
 - ``traits-month-fixed`` (the best), ``traits-month-random`` (close behind; differs in one term: campaign
@@ -26,7 +28,9 @@ import pandas as pd
 
 from leafcv.compare import _result_to_json, structures_text, write_ranking
 from leafcv.cv.result import CVResult
-from leafcv.spec import ModelOptions, ParamSpec, Structure
+from leafcv.data import load_dataset
+from leafcv.runfolder import write_study
+from leafcv.spec import Comparison, CVSpec, DataSpec, ModelOptions, ParamSpec, SamplerSpec, Structure
 
 LEAVES = [f"L{i:03d}" for i in range(1, 13)]
 TAXON = ["SP-A", "SP-B", "SP-C"] * 4
@@ -184,14 +188,23 @@ def _sha256(path: Path) -> str:
     return hashlib.sha256(path.read_bytes()).hexdigest()
 
 
-def build_run(folder: Path, *, finished: bool = True, with_fit: bool = True) -> Path:
+def comparison_of(path: Path) -> Comparison:
+    """The fake run's comparison as `load_comparison` would give it with the structures of `structures`
+    (COMPARISON names none, so that the report's prior sensitivity stops at reading it)."""
+    data = DataSpec(file=path.parent / "observations.csv",
+                    columns={"a_net": "assim", "ci": "ci_ppm", "ppfd": "par_in", "leaf": "plant_leaf", "curve": "run"},
+                    groups=("taxon", "campaign"), traits=("n_area",), centre={"n_area": 2.0}, scale={"n_area": 0.5})
+    return Comparison(path=path, data=data, sampler=SamplerSpec(), cv=CVSpec(), structures=tuple(structures()))
+
+
+def build_run(folder: Path, *, finished: bool = True, with_fit: bool = True, study: bool = True) -> Path:
     """Write the comparison file, the data and a run folder ``folder/runs/demo``; return the run folder."""
     folder.mkdir(parents=True, exist_ok=True)
     comparison = folder / "demo.toml"
     comparison.write_text(COMPARISON)
     data = pd.DataFrame([{"plant_leaf": leaf, "run": f"{leaf}-aci", "taxon": t, "campaign": c, "assim": 10.0 + i,
                           "ci_ppm": 50.0 * (i + 1), "par_in": 1500.0, "n_area": 1.5 + k / 10}
-                         for k, (leaf, t, c) in enumerate(zip(LEAVES, TAXON, CAMPAIGN)) for i in range(3)])
+                         for k, (leaf, t, c) in enumerate(zip(LEAVES, TAXON, CAMPAIGN)) for i in range(6)])
     data.to_csv(folder / "observations.csv", index=False)
     run = folder / "runs" / "demo"
     res, details = results()
@@ -200,7 +213,8 @@ def build_run(folder: Path, *, finished: bool = True, with_fit: bool = True) -> 
         (run / "results").mkdir(parents=True, exist_ok=True)
         (run / "results" / f"{r.structure}.json").write_text(_result_to_json(r, details[r.structure], "key"))
     records = {st.name: {"origin": "", "model": asdict(st.options), "leaf_correlation": False,
-                         "priors": prior_lines(st)} for st in structures()}
+                         "priors": prior_lines(st), "params": {p: asdict(ps) for p, ps in st.params.items()}}
+               for st in structures()}
     (run / "structures.txt").write_text(structures_text(SimpleNamespace(structures=structures()), records))
     manifest = {
         "comparison": str(comparison), "comparison_sha256": _sha256(comparison),
@@ -216,6 +230,9 @@ def build_run(folder: Path, *, finished: bool = True, with_fit: bool = True) -> 
         manifest["results"] = {st.name: f"{st.name}.json" for st in structures()}
         manifest["finished"] = "2026-12-01T10:05:00+0000"
     (run / "manifest.json").write_text(json.dumps(manifest, indent=1))
+    if study:
+        spec = comparison_of(comparison)
+        write_study(run, spec, load_dataset(spec.data))
     write_predictions(run, [r.structure for r in res])
     if with_fit:
         (run / "fits").mkdir(exist_ok=True)

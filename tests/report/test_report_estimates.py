@@ -28,7 +28,7 @@ def row(table: pd.DataFrame, variable: str) -> list[float]:
 def test_intercepts_slopes_levels_and_sds_on_the_reader_scale():
     idata = labelled_idata()
     post = idata.posterior
-    table = population_table(idata, [])
+    table = population_table(idata)
     b0 = post["b0"].values
     np.testing.assert_allclose(row(table, "b0[vcmax25]"), q(np.exp(b0[..., 0])))
     np.testing.assert_allclose(row(table, "b0[jmax25]"), q(np.exp(b0[..., 1])))       # the ratio to vcmax25
@@ -46,9 +46,9 @@ def test_intercepts_slopes_levels_and_sds_on_the_reader_scale():
     assert words.loc["sigma[all points]", "quantity"] == "residual SD"
 
 
-def _attrs_idata(tmp_path):
-    """A layout with the coefficients' labels as attributes of beta (lists), a within/between split on alpha
-    (logit), a group term, residual SDs by curve type; written to NetCDF and read back."""
+def _split_idata(tmp_path):
+    """A fit in the layout `leafcv.cv.arviz_bridge.to_datatree` writes, with a within/between split on alpha
+    (logit), a group term and residual SDs by curve type; written to NetCDF and read back."""
     from arviz_base import from_dict
 
     from leafcv.cv.arviz_bridge import open_fit
@@ -62,21 +62,26 @@ def _attrs_idata(tmp_path):
                        "sigma": np.abs(rng.normal(0.7, 0.05, shape + (2,)))}},
         dims={"b0": ["parameter"], "beta": ["coefficient"], "tau": ["group_term"], "sigma": ["sigma_group"]},
         coords={"parameter": ["vcmax25", "jmax25", "alpha", "theta", "rd25"],
-                "coefficient": ["n_area", "chl_ug within taxon", "chl_ug between taxon"],
+                "coefficient": ["vcmax25: n_area", "alpha: chl_ug within taxon", "alpha: chl_ug between taxon"],
                 "group_term": ["taxon effects on vcmax25"], "sigma_group": ["aci curves", "aq curves"]})
-    idata.posterior["beta"].attrs.update(parameter=["vcmax25", "alpha", "alpha"], kind=["trait", "within", "between"],
-                                         trait=["n_area", "chl_ug", "chl_ug"], group=["", "taxon", "taxon"])
+    idata["posterior"] = idata["posterior"].to_dataset().assign_coords(
+        parameter_link=("parameter", ["log", "log", "logit", "logit", "log"]),
+        parameter_ratio_to_vcmax25=("parameter", [0, 1, 0, 0, 0]),
+        coefficient_label=("coefficient", ["n_area", "chl_ug within taxon", "chl_ug between taxon"]),
+        coefficient_parameter=("coefficient", ["vcmax25", "alpha", "alpha"]),
+        coefficient_kind=("coefficient", ["trait", "within", "between"]),
+        coefficient_term=("coefficient", ["n_area", "chl_ug", "chl_ug"]),
+        coefficient_grouping=("coefficient", ["", "taxon", "taxon"]),
+        coefficient_scale=("coefficient", [0.5, 10.0, 10.0]),
+        group_term_parameter=("group_term", ["vcmax25"]))
     path = tmp_path / "fit.nc"
     idata.to_netcdf(str(path), engine="h5netcdf")
     return open_fit(path), beta
 
 
-def test_attribute_labels_splits_and_prior_line_scales(tmp_path):
-    idata, beta = _attrs_idata(tmp_path)
-    priors = ["vcmax25 slope on n_area (per 0.5 units, centred at 2): normal(0, 1) on the log scale",
-              "alpha slopes on chl_ug within and between taxon (per 10 units): normal(0, 0.5) each on the logit scale",
-              "jmax25/vcmax25 at reference: lognormal, median 1.7"]
-    table = population_table(idata, priors).set_index("variable")
+def test_splits_group_terms_and_scales_from_the_coordinates(tmp_path):
+    idata, beta = _split_idata(tmp_path)
+    table = population_table(idata).set_index("variable")
     assert table.loc["beta[n_area]", "quantity"] == "vcmax25: slope on n_area, per 0.5 units of n_area"
     assert table.loc["beta[chl_ug within taxon]", "quantity"] == "alpha: within-taxon slope on chl_ug, per 10 units of chl_ug"
     assert table.loc["beta[chl_ug within taxon]", "scale"] == "odds ratio"
@@ -84,10 +89,44 @@ def test_attribute_labels_splits_and_prior_line_scales(tmp_path):
     diff = table.loc["beta[between − within chl_ug taxon]"]
     np.testing.assert_allclose([diff["median"], diff["q05"], diff["q95"]], q(np.exp(beta[..., 2] - beta[..., 1])))
     assert diff["scale"] == "ratio of odds ratios"
-    assert table.loc["b0[jmax25]", "scale"] == "ratio"                   # ratio read from the prior lines
+    assert table.loc["b0[jmax25]", "scale"] == "ratio" and table.loc["b0[rd25]", "scale"] != "ratio"
     assert table.loc["tau[taxon effects on vcmax25]", "scale"] == "SD, log scale"
     assert list(table.loc[["sigma[aci curves]", "sigma[aq curves]"], "quantity"]) == [
         "residual SD (aci curves)", "residual SD (aq curves)"]
+
+
+def test_what_a_structure_estimates_is_read_from_the_fit_of_compare(quick_demo):
+    """The fit file compare writes carries every coordinate the table reads: kinds, scales and ratios come
+    from the design, not from words."""
+    from leafcv.cv.arviz_bridge import to_datatree
+    from leafcv.fitting import fit_structure
+    from leafcv.spec import SamplerSpec
+
+    from ..fakes import FakeEngine
+
+    comparison, dataset, _ = quick_demo
+    fit = fit_structure(comparison.structure("traits-month-fixed"), dataset, comparison.data,
+                        SamplerSpec(chains=2, warmup=10, draws=60, seed=3), engine=FakeEngine())
+    design = fit.design
+    tree = to_datatree(fit, dataset)
+    assert labelled(tree) == (True, "")
+    table = population_table(tree).set_index("variable")
+    for c in design.coefficients:
+        quantity = table.loc[f"beta[{c.label}]", "quantity"]
+        if c.kind == "level":
+            assert quantity.endswith(f"{c.label} against the reference level")
+        else:
+            assert f"per {design.trait_transform[c.term][1]:g} unit" in quantity
+    ratios = {p for p in design.params if design.ratio.get(p)}
+    assert {v[3:-1] for v in table.index if v.startswith("b0[") and table.loc[v, "scale"] == "ratio"} == ratios
+
+
+def test_a_fit_without_the_coordinates_gives_no_estimates_and_says_which(tmp_path):
+    idata, _ = _split_idata(tmp_path)
+    bare = idata.copy()
+    bare["posterior"] = idata.posterior.to_dataset().drop_vars(["coefficient_kind", "group_term_parameter"])
+    ok, why = labelled(bare)
+    assert not ok and "coefficient_kind, group_term_parameter" in why and "re-run `leafcv compare`" in why
 
 
 def test_leaf_table_is_the_quantiles_of_leaf_value():
@@ -108,7 +147,7 @@ def test_the_report_shows_the_best_structures_estimates(written):
     assert "<h2>What traits-month-fixed estimates</h2>" in html
     shown = pd.read_csv(run / "tables" / "population_estimates.csv")
     fit = open_fit(run / "fits" / "traits-month-fixed.nc")
-    expected = population_table(fit, [])
+    expected = population_table(fit)
     np.testing.assert_allclose(shown[["median", "q05", "q95"]], expected[["median", "q05", "q95"]])
     leaves = pd.read_csv(run / "tables" / "leaf_estimates.csv")
     assert list(leaves.columns[:3]) == ["leaf", "taxon", "campaign"]

@@ -16,9 +16,10 @@ from PIL import Image
 
 from leafcv.errors import UserInputError
 from leafcv.report import write_report
+from leafcv.runfolder import RunPaths
 
 from .conftest import page_tables
-from .fake_run import QUESTION
+from .fake_run import CAMPAIGN, LEAVES, QUESTION, TAXON
 
 pytestmark = pytest.mark.filterwarnings("ignore:The inplace keyword")
 
@@ -229,51 +230,76 @@ def test_tables_and_figures_of_an_earlier_report_do_not_stay(fresh_run, no_engin
 def test_groups_of_a_changed_data_file_are_not_used(fresh_run, no_engine):
     data = fresh_run.parent.parent / "observations.csv"
     data.write_text(data.read_text().replace("SP-A", "SP-Z"))
+    # with study.json the groups are the run's own, whatever became of the data file since
+    write_report(fresh_run)
+    assert set(pd.read_csv(fresh_run / "figures" / "leaves.csv")["group"]) == {"SP-A", "SP-B", "SP-C"}
+    # a folder of an earlier leafcv (no study.json) reads them from the data file, only while it is unchanged
+    RunPaths(fresh_run).study.unlink()
     html = write_report(fresh_run).read_text()
     assert "has changed since the run" in html
     assert set(pd.read_csv(fresh_run / "figures" / "leaves.csv")["group"]) == {"all"}
 
 
-def test_cli_report_rewrites_the_ranking_then_writes_the_page(fresh_run, no_engine, capsys):
-    from leafcv.cli import main
-
-    (fresh_run / "ranking.txt").write_text("stale")
-    assert main(["report", str(fresh_run), "--group", "taxon"]) == 0
-    out = capsys.readouterr().out
-    assert (fresh_run / "ranking.txt").read_text().startswith("structure")
-    assert f"report: {fresh_run / 'report.html'}" in out
-    assert main(["report", str(fresh_run), "--structure", "nope"]) == 1
+#: The prior sensitivity's paragraph when it cannot be computed (it needs the comparison and the data: it
+#: weighs the saved draws by the likelihood of the points).
+NO_SENSITIVITY = re.compile(r"<p>The prior sensitivity of [^<]* could not be computed: [^<]*</p>")
 
 
-def test_report_of_a_folder_without_manifest_is_a_user_error(tmp_path):
-    with pytest.raises(UserInputError, match="no manifest.json"):
-        write_report(tmp_path)
+def _report_files(run) -> dict[str, bytes]:
+    return {f"{d}/{p.name}": p.read_bytes() for d in ("tables", "figures") for p in sorted((run / d).glob("*.csv"))}
 
 
-
-def test_the_disabled_engines_really_are_disabled(no_engine):
-    """The guard the report is written under: constructing an engine fails."""
-    import leafcv.engines.pystan_engine as pystan_engine
-    import leafcv.fitting as fitting
-
-    from .conftest import EngineUsed
-
-    with pytest.raises(EngineUsed):
-        fitting.default_engine()
-    with pytest.raises(EngineUsed):
-        pystan_engine.PyStanEngine()
-
-
-def test_a_cmdstan_run_names_its_engine(fresh_run, no_engine):
-    # the manifest's engine (DESIGN.md "Engines": a run folder never mixes engines) reaches the methods
-    # paragraph, the reproduction table and the command that continues the run
-    manifest = json.loads((fresh_run / "manifest.json").read_text())
-    manifest["engine"] = {"name": "cmdstan", "version": "CmdStan 2.35.0"}
-    manifest["versions"]["cmdstanpy"] = "1.3.2"
-    (fresh_run / "manifest.json").write_text(json.dumps(manifest))
+def test_the_report_needs_neither_the_comparison_file_nor_the_data(fresh_run, no_engine):
     html = write_report(fresh_run).read_text()
-    methods = html[html.index('<section id="methods">'):html.index('<section id="reproduction">')]
-    assert "fitted in Stan through CmdStan 2.35.0 (cmdstanpy 1.3.2) with" in methods
-    repro = pd.read_csv(fresh_run / "tables" / "reproduction.csv").set_index("item")["value"]
-    assert repro["engine"] == "cmdstan (CmdStan 2.35.0)"
-    assert "--engine cmdstan</code>" in html
+    files = _report_files(fresh_run)
+    (fresh_run.parent.parent / "demo.toml").unlink()
+    (fresh_run.parent.parent / "observations.csv").unlink()
+    again = write_report(fresh_run).read_text()
+    assert NO_SENSITIVITY.search(again)
+    assert NO_SENSITIVITY.sub("", again) == NO_SENSITIVITY.sub("", html)        # the same page otherwise
+    assert _report_files(fresh_run) == files                                    # and the same tables
+    assert f"<i>{QUESTION}</i>" in again
+    leaves = pd.read_csv(fresh_run / "tables" / "leaf_estimates.csv", dtype=str)
+    data = pd.DataFrame({"leaf": LEAVES, "taxon": TAXON, "campaign": CAMPAIGN})     # what the data file held
+    pd.testing.assert_frame_equal(leaves[["leaf", "taxon", "campaign"]], data)
+
+
+def test_a_folder_without_study_json_gives_the_same_report(fresh_run, no_engine):
+    """A run folder of an earlier leafcv: the question and the groups from the input files
+    (`leafcv.runfolder.legacy_study`), the parameter lines from the manifest's records."""
+    html = write_report(fresh_run).read_text()
+    files = _report_files(fresh_run)
+    RunPaths(fresh_run).study.unlink()
+    assert write_report(fresh_run).read_text() == html
+    assert _report_files(fresh_run) == files
+    (fresh_run.parent.parent / "demo.toml").unlink()                # and then says what it cannot show
+    gone = write_report(fresh_run).read_text()
+    assert "named in the manifest is not there: the question is not shown" in gone
+    assert "Not grouped: the comparison file is not available, so the leaves&#x27; groups are unknown." in gone
+
+
+def test_the_report_modules_leave_the_input_files_to_the_schema():
+    """Besides the behaviour above, a look at the code: no module of the report imports a TOML reader or the
+    readers of the input files, nor reads a CSV the way a user's data file is read; the study record comes through
+    `leafcv.runfolder.read_study`."""
+    import ast
+    from pathlib import Path
+
+    import leafcv.report as report
+
+    folder = Path(report.__file__).parent
+    imported: dict[str, set[str]] = {}
+    for path in folder.glob("*.py"):
+        names = set()
+        for node in ast.walk(ast.parse(path.read_text())):
+            if isinstance(node, ast.Import):
+                names |= {a.name for a in node.names}
+            elif isinstance(node, ast.ImportFrom):
+                names |= {node.module or ""} | {a.name for a in node.names}
+            elif isinstance(node, ast.keyword) and node.arg == "sep":
+                names.add("a CSV read with a guessed delimiter")            # how a user's data file is read
+        imported[path.name] = names
+    forbidden = {"tomllib", "question_of", "legacy_study", "load_comparison", "load_dataset",
+                 "a CSV read with a guessed delimiter"}
+    assert {name: names & forbidden for name, names in imported.items() if names & forbidden} == {}
+    assert "read_study" in imported["run.py"]

@@ -8,8 +8,9 @@ trait that never varies). `describe` writes the summary printed by ``leafcv chec
 Modules: `reading` (the TOML file, syntax errors with their position), `checker` (the `Checker` that
 collects problems), `keys` (the file's keys, formats and limits), `sections` (format, [data], [sampler],
 [cv], [model], [priors]), `structures` ([[structure]] and parameter entries), `grid` ([[grid]]
-expansion), `load` (the whole file), `checks` (against the loaded data) and `summary` (`describe` and
-its parts; named apart from the function so that ``leafcv.comparison.describe`` is always the function).
+expansion), `load` (the whole file), `checks` (against the loaded data), `summary` (`describe` and
+its parts; named apart from the function so that ``leafcv.comparison.describe`` is always the function)
+and `question` (the question the comparison asks, for the run folder's study record).
 The data mapping's own rules are `leafcv.data.mapping`'s, shared with `load_dataset`.
 """
 from .checker import Checker

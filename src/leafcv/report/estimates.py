@@ -2,15 +2,15 @@
 reader uses, with 90 % intervals (the 5 % and 95 % quantiles of the posterior draws; the point value
 is the median).
 
-The fit is read in its labelled layout: posterior ``b0`` over dimension ``parameter`` (intercepts
-on each parameter's link scale; coordinates ``parameter_link`` and ``parameter_ratio_to_vcmax25``
-where written), ``beta`` over ``coefficient`` (coordinates ``coefficient_parameter``,
-``coefficient_kind`` — trait, level, within, between — ``coefficient_term``, ``coefficient_grouping``
-and ``coefficient_scale``; attributes of those names without the prefix are read too), ``tau`` over
+The fit is read in its labelled layout (`leafcv.cv.arviz_bridge.to_datatree`), by its coordinates alone:
+posterior ``b0`` over dimension ``parameter`` (intercepts on each parameter's link scale; coordinates
+``parameter_link`` and ``parameter_ratio_to_vcmax25``), ``beta`` over ``coefficient`` (coordinates
+``coefficient_label`` where written, ``coefficient_parameter``, ``coefficient_kind`` — trait, level,
+within, between — ``coefficient_term``, ``coefficient_grouping`` and ``coefficient_scale``), ``tau`` over
 ``group_term`` (``group_term_parameter``), ``tau_leaf`` over its one dimension (``leaf_term`` or
-``parameter``), ``sigma`` (over ``sigma_group`` or none), ``leaf_corr`` where present, and
-``leaf_value`` (chain, draw, leaf, parameter) on the natural scale.
-A fit without these labels (written by an earlier version) gives no estimates, and says so.
+``parameter``), ``sigma`` (over ``sigma_group`` or none), ``leaf_corr`` where present, and ``leaf_value``
+(chain, draw, leaf, parameter) on the natural scale. Nothing is read from words (labels, prior lines).
+A fit without these coordinates (written by an earlier version) gives no estimates, and says so.
 
 Reader's scales: an intercept on its natural scale (exp on a log link, the inverse logit on a logit
 link; a ratio to vcmax25 as that ratio); a trait slope or a factor level on a log link as the
@@ -23,8 +23,6 @@ Tests: tests/report/test_report_estimates.py.
 """
 from __future__ import annotations
 
-import re
-
 import numpy as np
 import pandas as pd
 from scipy.special import expit
@@ -36,6 +34,13 @@ NATURAL_UNIT = {"vcmax25": "µmol m⁻² s⁻¹", "jmax25": "µmol m⁻² s⁻¹
                 "tpu25": "µmol m⁻² s⁻¹", "alpha": "mol mol⁻¹", "theta": "dimensionless"}
 
 
+#: The coordinates a labelled fit carries for each labelled dimension (every fit leafcv writes has them).
+COORDINATES = {"parameter": ("parameter_link", "parameter_ratio_to_vcmax25"),
+               "coefficient": ("coefficient_parameter", "coefficient_kind", "coefficient_term",
+                               "coefficient_grouping", "coefficient_scale"),
+               "group_term": ("group_term_parameter",)}
+
+
 def labelled(idata) -> tuple[bool, str]:
     """Whether a fit has the labelled layout, and if not, why not."""
     post = getattr(idata, "posterior", None)
@@ -44,6 +49,11 @@ def labelled(idata) -> tuple[bool, str]:
     if "parameter" not in post["b0"].dims:
         return False, ("it was written in the unlabelled layout of an earlier leafcv version (b0 has no "
                        "'parameter' coordinate); re-run `leafcv compare` to write a labelled fit")
+    lacking = [name for dim, names in COORDINATES.items() if dim in post.dims and post.sizes[dim]
+               for name in names if not (name in post.coords and post.coords[name].dims == (dim,))]
+    if lacking:
+        return False, (f"it lacks the coordinate(s) {', '.join(lacking)} that leafcv writes with every fit; "
+                       "re-run `leafcv compare` to write it again")
     return True, ""
 
 
@@ -58,77 +68,43 @@ def _summary(x: np.ndarray) -> dict[str, float]:
     return {"median": float(q[0]), "q05": float(q[1]), "q95": float(q[2])}
 
 
-def _meta(da, dim: str, *names: str) -> list[str] | None:
-    """Per-element labels of ``da`` along ``dim`` from a coordinate or an attribute named ``names``."""
-    n = da.sizes[dim]
-    for name in names:
-        if name in da.coords and da.coords[name].dims == (dim,):
-            return [str(v) for v in da.coords[name].values]
-        if name in da.attrs:
-            v = da.attrs[name]
-            v = [v] if isinstance(v, (str, bytes)) or np.ndim(v) == 0 else list(np.ravel(v))
-            if len(v) == n:
-                return [v_.decode() if isinstance(v_, bytes) else str(v_) for v_ in v]
-    return None
+def _coord(da, name: str) -> list[str]:
+    """The values of coordinate ``name`` of ``da`` as text (`labelled` checked it is there)."""
+    return [str(v) for v in da.coords[name].values]
 
 
-def ratio_parameters(prior_lines: list[str]) -> set[str]:
-    """Parameters tied to vcmax25 as a ratio, from the structure's prior lines."""
-    return {m.group(1) for line in prior_lines for m in [re.match(r"(\w+)/vcmax25 at reference", line)] if m}
-
-
-def trait_scale(prior_lines: list[str], param: str, trait: str) -> float | None:
-    """The "per N units" of a trait slope on ``param``, from the structure's prior lines."""
-    for line in prior_lines:
-        m = re.match(rf"{re.escape(param)} slopes? on {re.escape(trait)}\b.*?\(per ([0-9.eE+-]+) units", line)
-        if m:
-            return float(m.group(1))
-    return None
-
-
-def _kind(label: str) -> str:
-    if "=" in label:
-        return "level"
-    for k in ("within", "between"):
-        if f" {k} " in label:
-            return k
-    return "trait"
-
-
-def population_table(idata, prior_lines: list[str]) -> pd.DataFrame:
-    """Population-level estimates of a labelled fit, one row per quantity.
+def population_table(idata) -> pd.DataFrame:
+    """Population-level estimates of a labelled fit (`labelled`), one row per quantity.
 
     Columns: ``quantity`` (in words), ``scale`` (what the numbers are), ``median``, ``q05``,
     ``q95``, and ``variable`` (the posterior variable and element).
     """
     post = idata.posterior
-    ratio = ratio_parameters(prior_lines)
     rows = []
 
     def add(quantity: str, scale: str, x: np.ndarray, variable: str) -> None:
         rows.append({"quantity": quantity, "scale": scale, **_summary(x), "variable": variable})
 
     b0 = post["b0"]
-    b0_ratio = _meta(b0, "parameter", "parameter_ratio_to_vcmax25", "ratio_to_vcmax25", "ratio")
-    b0_link = _meta(b0, "parameter", "parameter_link", "link")
+    b0_ratio = [bool(v) for v in b0.coords["parameter_ratio_to_vcmax25"].values]
+    b0_link = _coord(b0, "parameter_link")
+    ratio = {str(p) for p, r in zip(b0["parameter"].values, b0_ratio) if r}
     for k, p in enumerate(str(v) for v in b0["parameter"].values):
         x = _draws(b0.isel(parameter=k))
-        is_ratio = (p in ratio) if b0_ratio is None else b0_ratio[k] not in ("", "0", "0.0", "False", "None")
-        if is_ratio:
-            ratio.add(p)
+        if b0_ratio[k]:
             add(f"{p}/vcmax25 at reference traits and levels", "ratio", np.exp(x), f"b0[{p}]")
-        elif (b0_link[k] if b0_link else LINKS.get(p, "log")) == "logit":
+        elif b0_link[k] == "logit":
             add(f"{p} at reference traits and levels", NATURAL_UNIT.get(p, ""), expit(x), f"b0[{p}]")
         else:
             add(f"{p} at reference traits and levels", NATURAL_UNIT.get(p, ""), np.exp(x), f"b0[{p}]")
     if "beta" in post and post["beta"].sizes.get("coefficient", 0):
-        rows += _coefficient_rows(post["beta"], prior_lines, ratio)
+        rows += _coefficient_rows(post["beta"], ratio)
     if "tau" in post and post["tau"].sizes.get("group_term", 0):
         tau = post["tau"]
-        params = _meta(tau, "group_term", "group_term_parameter", "parameter", "param")
+        params = _coord(tau, "group_term_parameter")
         for k, label in enumerate(str(v) for v in tau["group_term"].values):
-            p = params[k] if params else _param_of_group_term(label)
-            add(f"SD of {label}", f"SD, {_link_of(p, ratio)} scale", _draws(tau.isel(group_term=k)), f"tau[{label}]")
+            add(f"SD of {label}", f"SD, {_link_of(params[k], ratio)} scale", _draws(tau.isel(group_term=k)),
+                f"tau[{label}]")
     for name, what in (("tau_leaf", "SD of leaf effects on {}"), ("leaf_corr", "correlation of leaf effects on {}")):
         if name not in post:
             continue
@@ -154,49 +130,40 @@ def population_table(idata, prior_lines: list[str]) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=["quantity", "scale", "median", "q05", "q95", "variable"])
 
 
-def _link_of(p: str | None, ratio: set[str]) -> str:
-    if p is None:
-        return "link"
+def _link_of(p: str, ratio: set[str]) -> str:
+    """The link of parameter ``p``'s scale: log for a ratio to vcmax25, else the parameter's own."""
     return "log" if p in ratio else LINKS.get(p, "log")
 
 
-def _param_of_group_term(label: str) -> str | None:
-    m = re.search(r"slopes of (\w+) on ", label) or re.search(r"effects on (\w+)$", label)
-    return m.group(1) if m else None
-
-
-def _coefficient_rows(beta, prior_lines: list[str], ratio: set[str]) -> list[dict]:
-    labels = _meta(beta, "coefficient", "coefficient_label") or [str(v) for v in beta["coefficient"].values]
-    params = _meta(beta, "coefficient", "coefficient_parameter", "parameter", "param")
-    kinds = _meta(beta, "coefficient", "coefficient_kind", "kind") or [_kind(lab) for lab in labels]
-    traits = _meta(beta, "coefficient", "coefficient_term", "coefficient_trait", "trait", "term")
-    groups = _meta(beta, "coefficient", "coefficient_grouping", "coefficient_group", "group", "grouping")
-    scales = _meta(beta, "coefficient", "coefficient_scale", "scale", "trait_scale")
+def _coefficient_rows(beta, ratio: set[str]) -> list[dict]:
+    labels = _coord(beta, "coefficient_label") if "coefficient_label" in beta.coords else _coord(beta, "coefficient")
+    params = _coord(beta, "coefficient_parameter")
+    kinds = _coord(beta, "coefficient_kind")
+    traits = _coord(beta, "coefficient_term")
+    groups = _coord(beta, "coefficient_grouping")
+    scales = [float(v) for v in beta.coords["coefficient_scale"].values]
     x = _draws(beta)
     rows = []
     within: dict[tuple[str, str, str], np.ndarray] = {}
     for k, label in enumerate(labels):
-        p = params[k] if params else None
-        kind = kinds[k]
-        trait = traits[k] if traits else label.split("=")[0].split(" ")[0]
-        group = groups[k] if groups else (label.split(f" {kind} ", 1)[1] if f" {kind} " in label else "")
+        p, kind, trait, group = params[k], kinds[k], traits[k], groups[k]
         link = _link_of(p, ratio)
-        target = (f"{p}/vcmax25" if p in ratio else p) if p else "its parameter"
+        target = f"{p}/vcmax25" if p in ratio else p
         scale = {"log": "×", "logit": "odds ratio"}.get(link, "link scale")
         value = np.exp(x[:, k]) if link in ("log", "logit") else x[:, k]
         if kind == "level":
             what = f"{target}: {label} against the reference level"
         else:
-            per = float(scales[k]) if scales and np.isfinite(float(scales[k])) else trait_scale(prior_lines, p or "", trait)
-            per_text = (f"per {per:g} unit{'' if per == 1 else 's'} of {trait}" if per is not None
+            per = scales[k]
+            per_text = (f"per {per:g} unit{'' if per == 1 else 's'} of {trait}" if np.isfinite(per)
                         else f"per unit of {trait} as scaled in the fit")
             slope = f"{kind}-{group} slope" if kind in ("within", "between") else "slope"
             what = f"{target}: {slope} on {trait}, {per_text}"
         rows.append({"quantity": what, "scale": scale, **_summary(value), "variable": f"beta[{label}]"})
         if kind == "within":
-            within[(str(p), trait, group)] = x[:, k]
-        elif kind == "between" and (str(p), trait, group) in within:
-            diff = x[:, k] - within[(str(p), trait, group)]
+            within[(p, trait, group)] = x[:, k]
+        elif kind == "between" and (p, trait, group) in within:
+            diff = x[:, k] - within[(p, trait, group)]
             rows.append({"quantity": f"{target} on {trait}: between-{group} slope against the within-{group} slope "
                                      f"(exp of between − within; 1 = the same slope)",
                          "scale": "ratio of ×" if link == "log" else "ratio of odds ratios",

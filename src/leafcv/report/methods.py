@@ -1,8 +1,11 @@
 """Priors and model options of every structure in words, a methods text ready to paste, the
-references, and what reproducing the run needs (versions, hashes, seeds, the command)."""
+references, and what reproducing the run needs (versions, hashes, seeds, the command). How each parameter
+varies is shown from the run's study record (`leafcv.runfolder.StudyRecord.parameter_lines`).
+
+Tests: tests/report/test_report_page.py.
+"""
 from __future__ import annotations
 
-import re
 from pathlib import Path
 
 import pandas as pd
@@ -56,23 +59,8 @@ def options_words(model: dict, leaf_correlation: bool) -> str:
     return ", ".join(parts)
 
 
-def param_lines(structures_text: str) -> dict[str, list[str]]:
-    """Per structure, its parameter lines in structures.txt (how each parameter varies)."""
-    out: dict[str, list[str]] = {}
-    current = None
-    for line in structures_text.splitlines():
-        m = re.match(r"^structure (['\"])(.*)\1", line)
-        if m:
-            current = m.group(2)
-            out[current] = []
-        elif current and line.startswith("  ") and not line.startswith("    ") and not line.strip().startswith(
-                ("model:", "priors:")):
-            out[current].append(line.strip())
-    return out
-
-
 def priors_html(run: RunFolder, tables: Tables) -> str:
-    lines = param_lines(run.structures_text)
+    lines = run.study.parameter_lines
     parts, rows = [], []
     for name, rec in run.manifest.get("structures", {}).items():
         origin = f" <span class=sub>[{esc(rec['origin'])}]</span>" if rec.get("origin") else ""

@@ -1,26 +1,23 @@
-"""Reading a run folder for the report: manifest, ranking, pointwise scores, results, the question
-and the leaves' groups. Nothing here samples, fits or imports an engine.
+"""Reading a run folder for the report: manifest, ranking, pointwise scores, results, and the study record
+(the question, the data mapping, each leaf's groups and each structure's parameter lines). Nothing here
+samples, fits or imports an engine.
 
-What is read (all written by ``leafcv compare``): ``manifest.json``, ``ranking.csv``,
-``pointwise.csv``, ``results/<structure>.json``, ``structures.txt``; besides the run folder only the
-comparison file named in the manifest (for the question and the data mapping) and the data file it
-names (for each leaf's group values, used only when its SHA-256 equals the manifest's).
+What is read (all written by ``leafcv compare``): ``manifest.json``, ``ranking.csv``, ``pointwise.csv``,
+``results/<structure>.json`` and ``study.json``, through `leafcv.runfolder`; neither the comparison file nor
+the data file (a folder written before study.json existed is read by `leafcv.runfolder.legacy_study`).
 
-Tests: tests/report/test_report_decision.py, tests/report/test_structure_terms.py,
-tests/report/test_report_page.py.
+Tests: tests/report/test_report_decision.py, tests/report/test_report_page.py, tests/test_runfolder.py.
 """
 from __future__ import annotations
 
 import json
-import re
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import pandas as pd
 
-from ..manifest import file_hash
-from ..runfolder import RunPaths, read_pointwise, read_ranking
+from ..manifest import read_manifest
+from ..runfolder import RunPaths, StudyRecord, read_pointwise, read_ranking, read_study
 
 
 @dataclass
@@ -37,7 +34,7 @@ class RunFolder:
     finished: bool
     unit: str                             # "leaf" or the grouping whose levels were held out
     question: str | None
-    structures_text: str = ""
+    study: StudyRecord = field(default_factory=StudyRecord)    # study.json (`leafcv.runfolder.read_study`)
     notes: list[str] = field(default_factory=list)   # problems met while reading, in words
 
     @property
@@ -64,44 +61,8 @@ class RunFolder:
         return None if ranked.empty else str(ranked.iloc[0]["structure"])
 
 
-def question_of(comparison_text: str) -> str | None:
-    """The question a comparison file asks.
-
-    A top-level ``question`` key (TOML) wins; else the first comment line whose text starts
-    "Question", continued over the following comment lines until the sentence that holds the first
-    "?" ends (a question written over two comment lines is read whole, and what follows its "?" on
-    the same line is left out). None when the file states no question.
-    """
-    try:
-        top = tomllib.loads(comparison_text).get("question")
-    except tomllib.TOMLDecodeError:
-        top = None
-    if isinstance(top, str) and top.strip():
-        return " ".join(top.split())
-    lines = comparison_text.splitlines()
-    for k, line in enumerate(lines):
-        text = line.strip().lstrip("#").strip()
-        if not (line.strip().startswith("#") and re.match(r"question\b", text, flags=re.IGNORECASE)):
-            continue
-        body = re.sub(r"^question\b\s*[:\-]?\s*", "", text, flags=re.IGNORECASE)
-        parts = [body]
-        for nxt in lines[k + 1:]:
-            if "?" in " ".join(parts) or not nxt.strip().startswith("#"):
-                break
-            parts.append(nxt.strip().lstrip("#").strip())
-        joined = " ".join(p for p in parts if p)
-        if "?" in joined:
-            joined = joined[:joined.index("?") + 1]
-        else:
-            joined = body
-        return joined or None
-    return None
-
-
 def load_run(rundir: Path) -> RunFolder:
     """Read a run folder; raise :class:`UserInputError` when it has no manifest."""
-    from ..manifest import read_manifest
-
     rundir = Path(rundir)
     manifest = read_manifest(rundir)
     notes: list[str] = []
@@ -128,45 +89,14 @@ def load_run(rundir: Path) -> RunFolder:
                          + ": it was written by an earlier run in this folder; `leafcv report` rewrites it "
                            "once the run has finished")
     unit = next((str(r.get("unit", "leaf")) for r in results.values()), "leaf")
-    question = None
-    comparison = Path(manifest.get("comparison", ""))
-    if comparison.is_file():
-        question = question_of(comparison.read_text(encoding="utf-8-sig"))
-    elif manifest.get("comparison"):
-        notes.append(f"the comparison file {comparison} named in the manifest is not there: the question is not shown")
-    text = paths.structures_text.read_text() if paths.structures_text.exists() else ""
+    study = read_study(rundir, manifest)
+    notes += study.notes
     return RunFolder(rundir, manifest, ranking, pointwise, results, structures, missing, finished, unit,
-                     question, text, notes)
+                     study.question, study, notes)
 
 
 def leaf_groups(run: RunFolder) -> tuple[pd.DataFrame | None, list[str], str]:
-    """Each held-out leaf's group values, the group columns, and a note on where they came from.
-
-    Read from the data file named in the manifest, with the leaf column and group columns of the
-    comparison file (``[data.columns] leaf`` and ``[data.leaf] groups``). The data file is used only when its SHA-256 equals the
-    manifest's ``data_sha256`` (otherwise the groups might not be the run's). Returns (None, [],
-    reason) when the groups cannot be read.
-    """
-    comparison = Path(run.manifest.get("comparison", ""))
-    if not comparison.is_file():
-        return None, [], "the comparison file is not available, so the leaves' groups are unknown"
-    try:
-        spec = tomllib.loads(comparison.read_text(encoding="utf-8-sig")).get("data", {})
-    except tomllib.TOMLDecodeError as exc:
-        return None, [], f"the comparison file could not be read as TOML ({exc})"
-    groups = [str(g) for g in spec.get("leaf", {}).get("groups", [])]
-    leaf_col = spec.get("columns", {}).get("leaf", "leaf")
-    data = Path(run.manifest.get("data", ""))
-    if not data.is_file():
-        return None, groups, f"the data file {data} is not available, so the leaves' groups are unknown"
-    if run.manifest.get("data_sha256") and file_hash(data) != run.manifest["data_sha256"]:
-        return None, groups, (f"the data file {data} has changed since the run (its SHA-256 differs from the "
-                              "manifest's), so the leaves' groups are not shown")
-    table = pd.read_csv(data, sep=None, engine="python", dtype=str)
-    source = f"the data file {data.name}"
-    absent = [c for c in [leaf_col, *groups] if c not in table.columns]
-    if absent:
-        return None, groups, f"{source} has no column {', '.join(absent)}"
-    table = table[[leaf_col, *groups]].drop_duplicates(leaf_col).rename(columns={leaf_col: "leaf"})
-    table["leaf"] = table["leaf"].str.strip()
-    return table.reset_index(drop=True), groups, f"groups read from {source}"
+    """Each leaf's group values (``leaf`` and the group columns, as text), the group columns, and a note on
+    where they came from (or why they are unknown: then None), from the run's study record."""
+    study = run.study
+    return study.leaves, list(study.groups), study.groups_note

@@ -8,19 +8,18 @@ leaf effects are terms too. Two structures differ in one term when exactly one k
 one only, or present in both entering differently (e.g. campaign on vcmax25 fixed in one, random
 in the other).
 
-The terms are read from ``manifest["structures"][name]["params"]`` when the manifest carries it
-(each parameter's ``fixed``, ``random``, ``ratio_to``, ``slopes`` and ``split`` as in
-:class:`leafcv.spec.ParamSpec`), else from the parameter lines of ``structures.txt``.
+The terms are read from ``manifest["structures"][name]["params"]`` (each parameter's ``fixed``,
+``random``, ``ratio_to``, ``slopes`` and ``split`` as in :class:`leafcv.spec.ParamSpec`, written as data by
+``leafcv compare``), never from the words of ``structures.txt``.
+
+Tests: tests/report/test_structure_terms.py, tests/report/test_report_page.py.
 """
 from __future__ import annotations
 
-import re
 from itertools import combinations
 
-from ..spec import PARAMETERS
-
-#: Term key -> how it enters.
-Terms = dict[tuple[str, str], str]
+#: Term key -> how it enters (for a model option, keyed ("model", option), its value).
+Terms = dict[tuple[str, str], object]
 
 #: Model options in words (a value of each option -> its description).
 OPTION_WORDS = {
@@ -50,71 +49,20 @@ def _from_params(params: dict) -> Terms:
     return terms
 
 
-def _param_line(line: str) -> Terms:
-    """Terms of one parameter line of structures.txt (see leafcv.comparison.describe_param)."""
-    p, rest = line.split(":", 1)
-    p, rest = p.strip(), rest.strip()
-    terms: Terms = {}
-    ratio = re.match(r"log\((\w+)/(\w+)\)", rest)
-    if ratio:
-        terms[(p, ratio.group(2))] = "ratio"
-    rest = re.sub(r"\s*\(centring: [^)]*\)\s*$", "", rest)
-    if "; " not in rest:
-        return terms
-    for part in rest.split("; ", 1)[1].split(" + "):
-        part = part.strip()
-        if part.startswith("random slopes "):
-            for item in part[len("random slopes "):].split(", "):
-                t, g = item.split(" by ", 1)
-                terms[(p, f"{t}|{g}")] = "slopes"
-        elif part.startswith("random "):
-            for g in part[len("random "):].split(", "):
-                terms[(p, g)] = "random"
-        elif part.startswith("fixed "):
-            for v in part[len("fixed "):].split(", "):
-                terms[(p, v)] = "fixed"
-        elif part.startswith("split "):
-            for item in part[len("split "):].split(", "):
-                t, g = item.split(" within/between ", 1)
-                terms[(p, t)] = f"split:{g}"
-    return terms
-
-
-def terms_from_text(text: str) -> dict[str, Terms]:
-    """Per structure, the terms of its parameter lines in structures.txt."""
-    out: dict[str, Terms] = {}
-    current = None
-    for line in text.splitlines():
-        head = re.match(r"^structure (['\"])(.*)\1", line)
-        if head:
-            current = head.group(2)
-            out[current] = {}
-            continue
-        stripped = line.strip()
-        if current is not None and line.startswith("  ") and not line.startswith("    ") \
-                and stripped.split(":", 1)[0] in PARAMETERS + ("tpu25",):
-            out[current].update(_param_line(stripped))
-    return out
-
-
-def structure_terms(manifest: dict, structures_text: str) -> dict[str, Terms]:
+def structure_terms(manifest: dict) -> dict[str, Terms]:
     """Per structure of the manifest, its terms (parameters, model options, leaf correlation).
 
-    Structures whose parameter terms cannot be found (neither in the manifest nor in
-    structures.txt) are left out.
+    Structures whose record has no parameter terms (``params``; a run folder of a leafcv that predates the
+    report) are left out.
     """
-    parsed = terms_from_text(structures_text)
     out: dict[str, Terms] = {}
     for name, record in manifest.get("structures", {}).items():
-        if "params" in record:
-            terms = _from_params(record["params"])
-        elif name in parsed:
-            terms = dict(parsed[name])
-        else:
+        if "params" not in record:
             continue
+        terms = _from_params(record["params"])
         for key, value in (record.get("model") or {}).items():
-            terms[("model", key)] = repr(value)
-        terms[("model", "leaf_correlation")] = repr(bool(record.get("leaf_correlation", False)))
+            terms[("model", key)] = value
+        terms[("model", "leaf_correlation")] = bool(record.get("leaf_correlation", False))
         out[name] = terms
     return out
 
@@ -134,13 +82,10 @@ def _how(how: str, p: str, v: str) -> str:
     return f"{v} on {p} ({how})"
 
 
-def _option(key: str, value: str) -> str:
-    import ast
-
-    v = ast.literal_eval(value)
+def _option(key: str, value: object) -> str:
     if key == "leaf_correlation":
-        return "correlated leaf effects" if v else "independent leaf effects"
-    return OPTION_WORDS.get(key, lambda x: f"{key} = {x}")(v)
+        return "correlated leaf effects" if value else "independent leaf effects"
+    return OPTION_WORDS.get(key, lambda x: f"{key} = {x}")(value)
 
 
 def one_term_difference(a: Terms, b: Terms, name_a: str = "the first", name_b: str = "the second") -> str | None:

@@ -3,8 +3,9 @@
 Sections, in order: the decision in words; the ranking figure and table; which leaves decide it;
 held-out predictions; what the chosen structure estimates; how reliable the choice is (prior sensitivity,
 calibration of the program, selection reliability); diagnostics; priors and model options; methods text and
-references; reproduction. Reads only the run folder (and the comparison and data files its manifest
-names); runs no sampler.
+references; reproduction. Reads only the run folder (through `leafcv.report.run`; the comparison and
+data files only for a folder written before study.json existed, and for the prior sensitivity, which
+refits nothing but needs the data, `leafcv.manifest.run_inputs`); runs no sampler.
 
 Tests: tests/report/test_report_page.py, tests/report/test_compare_writes_report.py,
 tests/report/test_report_estimates.py, tests/sampling/test_report.py.
@@ -115,8 +116,7 @@ def _estimates_html(run: RunFolder, tables: Tables, structure: str | None) -> tu
     if not ok:
         return title, (f"<p>{esc(chosen)} ({why}): no estimates are shown because its saved fit "
                        f"fits/{esc(chosen)}.nc cannot be read by meaning: {esc(reason)}.</p>")
-    prior_lines = run.manifest.get("structures", {}).get(chosen, {}).get("priors", [])
-    pop = population_table(idata, prior_lines)
+    pop = population_table(idata)
     parts = [f"<p>{esc(chosen)} ({why}), from its fit to all data (fits/{esc(chosen)}.nc). Medians with 90 % "
              "intervals (5 % and 95 % posterior quantiles). Intercepts are at the reference traits (the centring "
              "values) and reference levels; × is the multiplicative change of a parameter on a log link, an odds "
@@ -194,7 +194,7 @@ def write_report(rundir: str | Path, structure: str | None = None, group: str | 
     if structure is not None and structure not in run.structures:
         raise UserInputError(str(run.path), [f"no structure {structure!r} in this run; valid: {', '.join(run.structures)}"])
     tables = Tables(run.paths.tables)
-    terms = structure_terms(run.manifest, run.structures_text)
+    terms = structure_terms(run.manifest)
     title, estimates = _estimates_html(run, tables, structure)
     sections = [
         ("decision", "The decision in words", decision_html(run, terms, tables)),
