@@ -81,6 +81,16 @@ data {
   int<lower=0, upper=1> leaf_corr;
   real<lower=0> lkj_eta;
 
+  // smooth terms: a penalised spline of a parameter over a leaf covariate in mixed-model form (Eilers &
+  // Marx 1996; the linear part is a column of X). Rs terms, Ms basis columns stacked over terms: the
+  // term's deviation from its linear trend is Zs[, m] * tau_s[term] * z_s[m] summed over its columns
+  int<lower=0> Rs;
+  array[Rs] int<lower=1, upper=5 + use_tpu> sm_par;
+  int<lower=0> Ms;
+  matrix[L, Ms] Zs;
+  array[Ms] int<lower=1, upper=Rs> sm_term;
+  vector<lower=0>[Rs] sm_tau_sd;           // half-normal(0, sm_tau_sd) priors on the smooth SDs
+
   real<lower=0> sigma_sd;                  // half-normal(0, sigma_sd) on residual SDs
   real<lower=0> nu_shape;                  // gamma(nu_shape, nu_rate) on Student-t df
   real<lower=0> nu_rate;
@@ -88,7 +98,7 @@ data {
   // scaling of the free parameters: each block is sampled as offset + scale * (a standardised value), an
   // exact reparameterisation (Stan's offset/multiplier) that hands the sampler a posterior already close to
   // unit scale, so a refit started from the full-data fit needs only a short warm-up. Blocks stacked in
-  // the order b0_free, beta, log_tau, u_c, u_v, log_tau_leaf, eta_c, eta_z, log_sigma; n_scale = 0 means
+  // the order b0_free, beta, log_tau, u_c, u_v, log_tau_leaf, eta_c, eta_z, log_sigma, log_tau_s, z_s; n_scale = 0 means
   // offset 0 and scale 1 everywhere (the plain program).
   int<lower=0> n_scale;
   vector[n_scale] scale_offset;
@@ -96,11 +106,16 @@ data {
 }
 transformed data {
   int P = 5 + use_tpu;
-  int n_free = P + K + R + Q + Rl + Mc + Mn + S;
+  int n_free = P + K + R + Q + Rl + Mc + Mn + S + Rs + Ms;
   vector[n_free] off = n_scale == 0 ? rep_vector(0, n_free) : scale_offset;
   vector[n_free] mul = n_scale == 0 ? rep_vector(1, n_free) : scale_mult;
-  array[10] int at = {0, P, P + K, P + K + R, P + K + R + Qc, P + K + R + Q, P + K + R + Q + Rl,
-                      P + K + R + Q + Rl + Mc, P + K + R + Q + Rl + Mc + Mn, n_free};
+  array[12] int at = {0, P, P + K, P + K + R, P + K + R + Qc, P + K + R + Q, P + K + R + Q + Rl,
+                      P + K + R + Q + Rl + Mc, P + K + R + Q + Rl + Mc + Mn, P + K + R + Q + Rl + Mc + Mn + S,
+                      P + K + R + Q + Rl + Mc + Mn + S + Rs, n_free};
+  matrix[Ms, P] sm_map = rep_matrix(0, Ms, P);   // 0/1: basis column m enters parameter p
+  for (m in 1:Ms) {
+    sm_map[m, sm_par[sm_term[m]]] = 1;
+  }
   vector[N] tk = tleaf + 273.15;
   vector[N] kc = rubisco[1] * fvcb_arrhenius(rubisco[4], tk);
   vector[N] ko = rubisco[2] * fvcb_arrhenius(rubisco[5], tk);
@@ -128,6 +143,8 @@ parameters {
   vector<offset=off[(at[7] + 1):at[8]], multiplier=mul[(at[7] + 1):at[8]]>[Mc] eta_c;
   vector<offset=off[(at[8] + 1):at[9]], multiplier=mul[(at[8] + 1):at[9]]>[Mn] eta_z;
   vector<offset=off[(at[9] + 1):at[10]], multiplier=mul[(at[9] + 1):at[10]]>[S] log_sigma;
+  vector<offset=off[(at[10] + 1):at[11]], multiplier=mul[(at[10] + 1):at[11]]>[Rs] log_tau_s;
+  vector<offset=off[(at[11] + 1):at[12]], multiplier=mul[(at[11] + 1):at[12]]>[Ms] z_s;
   array[student_t] real<lower=1> nu;
   array[leaf_corr] cholesky_factor_corr[Rl] leaf_chol;
 }
@@ -137,6 +154,7 @@ transformed parameters {
   vector<lower=0>[R] tau = exp(log_tau);
   vector<lower=0>[Rl] tau_leaf = exp(log_tau_leaf);
   vector<lower=0>[S] sigma = exp(log_sigma);
+  vector<lower=0>[Rs] tau_s = exp(log_tau_s);
   vector[Q - Qc] u_z = nc_rot * u_v;
   vector[P] b0 = b0_free - b0_shift * (tau[lev_term[nc_lev]] .* u_v);
 }
@@ -152,6 +170,9 @@ model {
   }
   for (r in 1:R) {
     mu[:, re_par[r]] += u[re_lev[r]] .* re_x[r];
+  }
+  if (Ms > 0) {
+    mu += Zs * diag_pre_multiply(tau_s[sm_term] .* z_s, sm_map);
   }
   mu_flat = to_vector(mu);
   eta = mu_flat;
@@ -215,7 +236,7 @@ model {
                 + log_inv_logit(b0[p]) + log1m_inv_logit(b0[p]);
     }
   }
-  target += sum(log_tau) + sum(log_tau_leaf) + sum(log_sigma);   // Jacobians of the exp transforms
+  target += sum(log_tau) + sum(log_tau_leaf) + sum(log_sigma) + sum(log_tau_s);   // Jacobians of the exp transforms
   beta ~ normal(0, beta_sd);
   tau ~ normal(0, tau_sd);
   u_c ~ normal(0, tau[lev_term[cen_lev]]);
@@ -224,4 +245,6 @@ model {
   eta_z ~ std_normal();
   sigma ~ normal(0, sigma_sd);
   nu ~ gamma(nu_shape, nu_rate);
+  tau_s ~ normal(0, sm_tau_sd);
+  z_s ~ std_normal();
 }

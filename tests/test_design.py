@@ -162,7 +162,7 @@ def test_the_snapshot_covers_every_kind_of_term(current):
     flat = {k: v for name, keys in current.items() for k, v in keys.items()}
     sizes = {}
     for name, keys in current.items():
-        for k in ("K", "R", "Q", "Qc", "Mc", "Mn", "leaf_corr", "use_tpu", "S"):
+        for k in ("K", "R", "Q", "Qc", "Mc", "Mn", "leaf_corr", "use_tpu", "S", "Rs", "Ms"):
             sizes.setdefault(k, set()).add(tuple(keys[k]["shape"]) + (keys[k]["sha256"],))
     assert len(current) >= 20
     assert all(len(v) >= 2 for v in sizes.values()), {k: len(v) for k, v in sizes.items()}

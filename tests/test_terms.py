@@ -12,8 +12,9 @@ from leafcv.priors import PriorSet
 from leafcv.spec import ParamSpec
 from leafcv.terms import (
     MIN_LEAVES_CENTRED_GROUP, GroupIntercept, LeafEffect, LevelContrasts, RandomSlope, SplitSlope, TermContext,
-    TraitSlope, terms_of,
+    TraitSlope,
 )
+from leafcv.term_kinds import terms_of
 
 
 @pytest.fixture

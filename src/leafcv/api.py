@@ -145,7 +145,7 @@ def _with_users(message: str, comparison: Comparison) -> str:
             continue
         for st in comparison.structures:
             for p, ps in st.params.items():
-                if name in {*ps.fixed, *ps.random, *(x for pair in ps.slopes + ps.split for x in pair)}:
+                if name in ps.columns_used():
                     uses.append(f"structure {st.name!r} uses {name!r} on {p}")
     return message + (" (" + "; ".join(uses) + ")" if uses else "")
 

@@ -1,7 +1,7 @@
 """The invented demo scenario, simulated by leafcv's own FvCB code.
 
 Scenario: a fictional upland field station where four coded species (SP-A .. SP-D) were measured in
-three monthly campaigns. Each leaf has one A-Ci curve (12 points at PPFD 1500) and one A-Q curve
+three monthly campaigns, each leaf on its own day of the campaign's month. Each leaf has one A-Ci curve (12 points at PPFD 1500) and one A-Q curve
 (12 points at Ci near 300), plus area-based nitrogen, chlorophyll and specific leaf area.
 
 Generating structure, in the model's own parameterisation (the "traits-month-fixed" structure of
@@ -37,6 +37,10 @@ GEN = {
 SPECIES = ("SP-A", "SP-B", "SP-C", "SP-D")
 MONTHS = ("2026-05", "2026-07", "2026-09")
 MONTH_TEMPERATURE = (22.0, 28.0, 25.0)
+#: First and last day of year of each campaign's month (2026: May, July, September).
+MONTH_DAYS = ((121, 151), (182, 212), (244, 273))
+#: Seed stream of the day-of-year column, apart from the main stream so no other value moves.
+DOY_STREAM = 7
 CI_STEPS = (50, 80, 120, 180, 250, 350, 500, 700, 900, 1100, 1300, 1500)
 Q_STEPS = (0, 25, 50, 100, 200, 400, 600, 900, 1200, 1500, 1800, 2000)
 
@@ -68,9 +72,11 @@ def simulate(n_leaves: int, seed: int = 20261202) -> tuple[pd.DataFrame, pd.Data
              + np.asarray(GEN["month_effects"])[month_i] + rng.normal(0, GEN["leaf_sd_vcmax"], n_leaves))
     logit_a = (logit(GEN["alpha_ref"]) + GEN["chl_slope"] * (chl - CHL_CENTRE) / 10
                + GEN["sla_slope"] * (sla - SLA_CENTRE) / 5 + rng.normal(0, GEN["leaf_sd_alpha"], n_leaves))
+    days = np.random.default_rng([seed, DOY_STREAM])
+    doy = np.array([days.integers(MONTH_DAYS[m][0], MONTH_DAYS[m][1] + 1) for m in month_i])
     truth = pd.DataFrame({
         "leaf": [f"L{i + 1:03d}" for i in range(n_leaves)], "species": species,
-        "month": np.asarray(MONTHS)[month_i], "leaf_n": leaf_n, "chl": chl, "sla": sla,
+        "month": np.asarray(MONTHS)[month_i], "day_of_year": doy, "leaf_n": leaf_n, "chl": chl, "sla": sla,
         "vcmax25": np.exp(log_v), "alpha": expit(logit_a),
     })
     truth["jmax25"] = GEN["jmax_ratio"] * truth["vcmax25"]
@@ -86,7 +92,7 @@ def simulate(n_leaves: int, seed: int = 20261202) -> tuple[pd.DataFrame, pd.Data
             for k in range(len(ci)):
                 rows.append({
                     "plant_leaf": t["leaf"], "run": f"{t['leaf']}-{kind}", "taxon": t["species"],
-                    "campaign": t["month"], "assim": round(float(a[k]), 3), "ci_ppm": round(float(ci[k]), 1),
+                    "campaign": t["month"], "day_of_year": int(t["day_of_year"]), "assim": round(float(a[k]), 3), "ci_ppm": round(float(ci[k]), 1),
                     "par_in": round(float(q[k]), 1), "tl_c": round(float(tl[k]), 2),
                     "n_area": round(float(t["leaf_n"]), 3), "chl_ug": round(float(t["chl"]), 2),
                     "sla_m2kg": round(float(t["sla"]), 2),
@@ -96,9 +102,10 @@ def simulate(n_leaves: int, seed: int = 20261202) -> tuple[pd.DataFrame, pd.Data
 
 #: The default demo also asks whether leaves differ at all (the "pooled" baseline, one value shared by
 #: all leaves); the quick demo leaves that baseline out and asks only the season and trait question.
-QUESTION = ("do Vcmax25 and alpha need leaf effects, which traits shift them, and is month better\n"
-            "# fixed or random?")
-QUESTION_QUICK = "which traits shift Vcmax25 and alpha, and is month better fixed or random?"
+QUESTION = ("do Vcmax25 and alpha need leaf effects, which traits shift them, and is the season better\n"
+            "# month as fixed levels, month as random levels or a smooth trend over the day of year?")
+QUESTION_QUICK = ("which traits shift Vcmax25 and alpha, and is the season better month fixed, month random or a\n"
+                  "# smooth trend over the day of year?")
 POOLED = """[[structure]]
 name = "pooled"
 jmax25 = { ratio_to = "vcmax25" }
@@ -128,7 +135,7 @@ curve = "run"
 intercellular_co2 = "umol/mol"
 [data.leaf]
 groups = ["taxon", "campaign"]
-traits = ["n_area", "chl_ug", "sla_m2kg"]
+traits = ["n_area", "chl_ug", "sla_m2kg", "day_of_year"]
 [data.leaf.centre]
 n_area = {n_centre}
 chl_ug = {chl_centre}
@@ -136,6 +143,7 @@ sla_m2kg = {sla_centre}
 [data.leaf.scale]
 chl_ug = 10
 sla_m2kg = 5
+day_of_year = 30
 
 [sampler]
 chains = {chains}
@@ -166,6 +174,14 @@ rd25 = {{ ratio_to = "vcmax25" }}
 [[structure]]
 name = "traits-month-random"
 vcmax25 = {{ fixed = ["n_area"], random = ["leaf", "campaign"] }}
+alpha = {{ fixed = ["chl_ug", "sla_m2kg"], random = ["leaf"] }}
+jmax25 = {{ ratio_to = "vcmax25" }}
+rd25 = {{ ratio_to = "vcmax25" }}
+
+# the season's third answer: a smooth trend of Vcmax25 over the day of year (a penalised spline)
+[[structure]]
+name = "traits-season-smooth"
+vcmax25 = {{ fixed = ["n_area"], smooth = ["day_of_year"], random = ["leaf"] }}
 alpha = {{ fixed = ["chl_ug", "sla_m2kg"], random = ["leaf"] }}
 jmax25 = {{ ratio_to = "vcmax25" }}
 rd25 = {{ ratio_to = "vcmax25" }}

@@ -19,9 +19,11 @@ from .data.dataset import Dataset
 from .errors import Problem, SpecError
 from .priors import Prior, PriorSet
 from .spec import DataSpec, ModelOptions, Structure
+from .smooth import SmoothTerm
+from .term_kinds import terms_of
 from .terms import (  # noqa: F401  (Coefficient, GroupTerm, LeafTerm and the centring rules re-exported)
-    CENTRED_SE_FRACTION, MIN_LEAVES_CENTRED_GROUP, MIN_POINTS_CENTRED_LEAF, Coefficient, FixedTerm, GroupIntercept,
-    GroupTerm, LeafEffect, LeafTerm, Parameter, TermContext, parameters, responses, terms_of,
+    CENTRED_SE_FRACTION, MIN_LEAVES_CENTRED_GROUP, MIN_POINTS_CENTRED_LEAF, Coefficient, GroupTerm, LeafTerm,
+    Parameter, TermContext, parameters, responses,
 )
 
 
@@ -73,6 +75,9 @@ class Design:
     options: ModelOptions = ModelOptions()
     sigma_groups: tuple[str, ...] = ("all points",)   # what each residual SD covers, in program order
     sigma_kinds: tuple[str, ...] = ()       # curve type of each residual SD (sigma by curve type), program order
+    smooth_terms: tuple[SmoothTerm, ...] = ()
+    Zs: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))   # (L, Ms) wiggle columns of the smooths
+    sm_term: np.ndarray = field(default_factory=lambda: np.zeros(0, int))   # (Ms,) smooth term of each column
 
     @property
     def params(self) -> tuple[str, ...]:
@@ -102,6 +107,52 @@ class Design:
     def stan_data(self) -> dict:
         """The program's data (`to_stan_data`), built once."""
         return to_stan_data(self)
+
+
+class DesignBuilder:
+    """What the terms place while a design is built (each term's ``add_to`` calls these)."""
+
+    def __init__(self, params: tuple[str, ...]):
+        self.params = params
+        self.coefs: list[Coefficient] = []
+        self.columns: list[np.ndarray] = []
+        self.coef_param: list[int] = []
+        self.group_terms: list[GroupTerm] = []
+        self.leaf_terms: list[LeafTerm] = []
+        self.smooth_terms: list[SmoothTerm] = []
+        self.prior_lines: list[str] = []
+        self.problems: list[Problem] = []
+
+    @property
+    def n_levels(self) -> int:
+        return sum(len(g.levels) for g in self.group_terms)
+
+    @property
+    def n_smooth_columns(self) -> int:
+        return sum(st.size for st in self.smooth_terms)
+
+    def has_leaf_term(self, param: str) -> bool:
+        return any(lt.param == param for lt in self.leaf_terms)
+
+    def add_column(self, coef: Coefficient, column: np.ndarray, param: str) -> None:
+        self.coefs.append(coef)
+        self.columns.append(column)
+        self.coef_param.append(self.params.index(param))
+
+    def add_group(self, term: GroupTerm) -> None:
+        self.group_terms.append(term)
+
+    def add_leaf(self, term: LeafTerm) -> None:
+        self.leaf_terms.append(term)
+
+    def add_smooth(self, term: SmoothTerm) -> None:
+        self.smooth_terms.append(term)
+
+    def prior(self, line: str) -> None:
+        self.prior_lines.append(line)
+
+    def problem(self, problem: Problem) -> None:
+        self.problems.append(problem)
 
 
 def trait_transforms(dataset: Dataset, spec: DataSpec) -> dict[str, tuple[float, float]]:
@@ -156,35 +207,17 @@ def build_design(
                       np.bincount(fit_obs["leaf_index"].to_numpy(), minlength=L), leaf_fits, ratio)
     terms = terms_of(structure, set(dataset.traits), params)
 
-    coefs: list[Coefficient] = []
-    columns: list[np.ndarray] = []
-    coef_param: list[int] = []
-    group_terms: list[GroupTerm] = []
-    leaf_terms: list[LeafTerm] = []
-    prior_lines: list[str] = []
-    n_levels = 0
-    for pi, par in enumerate(params):
+    b = DesignBuilder(names)
+    for par in params:
         p = par.name
         what = f"{p}/vcmax25 at reference" if ratio[p] else f"{p} at reference traits and levels"
-        prior_lines.append(priors.intercept(p, ratio[p]).describe(par.link, what))
-        has_leaf_term = any(isinstance(t, LeafEffect) for t in terms[p])
+        b.prior(priors.intercept(p, ratio[p]).describe(par.link, what))
         for term in terms[p]:
-            if isinstance(term, FixedTerm):
-                for coef, col in term.columns(ctx):
-                    coefs.append(coef)
-                    columns.append(col)
-                    coef_param.append(pi)
-                prior_lines.append(term.prior_line(ctx))
-            elif isinstance(term, LeafEffect):
-                leaf_terms.append(term.place(ctx))
-                prior_lines.append(term.prior_line(ctx))
-            elif isinstance(term, GroupIntercept):
-                gt = term.place(ctx, n_levels, has_leaf_term)
-                n_levels += len(gt.levels)
-                group_terms.append(gt)
-                prior_lines.append(term.prior_line(ctx, gt))
-            else:
-                raise TypeError(f"unknown term {term!r}")
+            term.add_to(ctx, b)
+    if b.problems:
+        raise SpecError(structure.name, b.problems)
+    coefs, columns, group_terms, leaf_terms, prior_lines = b.coefs, b.columns, b.group_terms, b.leaf_terms, b.prior_lines
+    coef_param = b.coef_param
     prior_lines.append(f"residual SD: half-normal(0, {priors.sigma_scale:g}) umol m-2 s-1")
     if options.student_t:
         prior_lines.append(f"Student-t degrees of freedom: gamma({priors.nu_shape:g}, {priors.nu_rate:g}), > 1")
@@ -214,10 +247,13 @@ def build_design(
     points = Points(fit_obs["leaf_index"].to_numpy(), fit_obs["ci"].to_numpy(float), fit_obs["ppfd"].to_numpy(float),
                     fit_obs["t_leaf"].to_numpy(float), fit_obs["o2"].to_numpy(float), fit_obs["a_net"].to_numpy(float),
                     curve_types, sigma_group)
+    smooths = tuple(b.smooth_terms)
+    Zs = np.column_stack([st.Z for st in smooths]) if smooths else np.zeros((L, 0))
+    sm_term = np.array([r for r, st in enumerate(smooths) for _ in range(st.size)], int)
     return Design(structure, params, ratio, terms, tuple(coefs), X, coef_param_a, tuple(group_terms), lev_term,
                   lev_centred, nc_rot, b0_shift, tuple(leaf_terms), cen_cell, cen_term, nc_cell, nc_term,
                   ctx.transforms, tuple(prior_lines), tuple(priors.intercept(p, ratio[p]) for p in names), priors,
-                  train, obs_index, points, options, sigma_names, tuple(kinds))
+                  train, obs_index, points, options, sigma_names, tuple(kinds), smooths, Zs, sm_term)
 
 
 #: The program's temperature responses, in the order of its data tresp and peaked.
@@ -260,6 +296,9 @@ def to_stan_data(design: Design) -> dict:
         "Mc": len(d.cen_cells), "cen_cell": list(d.cen_cells + 1), "cen_term": list(d.cen_term + 1),
         "Mn": len(d.nc_cells), "nc_cell": list(d.nc_cells + 1), "nc_term": list(d.nc_term + 1),
         "leaf_corr": int(structure.leaf_correlation), "lkj_eta": float(structure.lkj_eta),
+        "Rs": len(design.smooth_terms), "sm_par": [design.param_index(st.param) + 1 for st in design.smooth_terms],
+        "Ms": d.Zs.shape[1], "Zs": d.Zs, "sm_term": list(d.sm_term + 1),
+        "sm_tau_sd": np.array([st.prior_sd for st in design.smooth_terms], float),
         "sigma_sd": design.priors.sigma_scale, "nu_shape": design.priors.nu_shape, "nu_rate": design.priors.nu_rate,
         "n_scale": 0, "scale_offset": np.zeros(0), "scale_mult": np.zeros(0),
     }
@@ -295,7 +334,8 @@ def _mean_split(group_terms: list[GroupTerm], lev_centred: np.ndarray, P: int, p
 
 
 #: The program's free parameter blocks, in the order of its scale_offset / scale_mult stacking.
-FREE_BLOCKS = ("b0_free", "beta", "log_tau", "u_c", "u_v", "log_tau_leaf", "eta_c", "eta_z", "log_sigma")
+FREE_BLOCKS = ("b0_free", "beta", "log_tau", "u_c", "u_v", "log_tau_leaf", "eta_c", "eta_z", "log_sigma",
+               "log_tau_s", "z_s")
 
 
 def free_parameters(design: Design, b0: np.ndarray, tau: np.ndarray, u_z: np.ndarray) -> dict[str, np.ndarray]:
@@ -307,12 +347,15 @@ def free_parameters(design: Design, b0: np.ndarray, tau: np.ndarray, u_z: np.nda
 
 
 def with_free_parameters(design: Design, init: dict) -> dict:
-    """``init`` (b0, beta, tau, u_c, u_z, tau_leaf, eta_c, eta_z, sigma, ...) with every free parameter of
-    the program added (b0_free, u_v, and the SDs on the log scale), ready to start a chain."""
+    """``init`` (b0, beta, tau, u_c, u_z, tau_leaf, eta_c, eta_z, sigma, ...; tau_s and z_s default to a
+    straight line, 0.1 and 0) with every free parameter of the program added (b0_free, u_v, and the SDs on
+    the log scale), ready to start a chain."""
     out = dict(init)
+    out.setdefault("tau_s", np.full(len(design.smooth_terms), 0.1))
+    out.setdefault("z_s", np.zeros(design.Zs.shape[1]))
     out.update(free_parameters(design, init["b0"], init["tau"], init["u_z"]))
-    for name in ("tau", "tau_leaf", "sigma"):
-        out["log_" + name] = np.log(np.asarray(init[name], float))
+    for name in ("tau", "tau_leaf", "sigma", "tau_s"):
+        out["log_" + name] = np.log(np.asarray(out[name], float))
     return out
 
 
@@ -417,6 +460,7 @@ def leaf_link_values(design: Design, draws: dict[str, np.ndarray]) -> tuple[np.n
     u = level_values(design, draws)
     for gt in design.group_terms:
         mu[:, :, design.param_index(gt.param)] += u[:, gt.start + gt.level_of_leaf] * gt.x
+    mu = mu + smooth_values(design, draws)
     mu_flat = mu.transpose(0, 2, 1).reshape(S, L * P)   # column-major cells: l + p L
     eta_flat = mu_flat.copy()
     if len(design.cen_cells):
@@ -430,6 +474,19 @@ def leaf_link_values(design: Design, draws: dict[str, np.ndarray]) -> tuple[np.n
                                         + draws["tau_leaf"][:, design.nc_term] * draws["eta_z"])
     eta = eta_flat.reshape(S, P, L).transpose(0, 2, 1)
     return mu, eta
+
+
+def smooth_values(design: Design, draws: dict[str, np.ndarray], Zs: np.ndarray | None = None) -> np.ndarray:
+    """The smooths' wiggles on each parameter per draw, (S, L, P), at the design's leaves or at the rows
+    of ``Zs`` (the same columns evaluated for other leaves). Zero without smooth terms."""
+    Zs = design.Zs if Zs is None else Zs
+    S, P = draws["b0"].shape[0], len(design.parameters)
+    out = np.zeros((S, Zs.shape[0], P))
+    for r, st in enumerate(design.smooth_terms):
+        cols = slice(st.start, st.start + st.size)
+        w = draws["tau_s"][:, r, None] * draws["z_s"][:, cols]                      # (S, size)
+        out[:, :, design.param_index(st.param)] += w @ Zs[:, cols].T
+    return out
 
 
 def leaf_cov_chol(design: Design, draws: dict[str, np.ndarray]) -> np.ndarray:

@@ -15,11 +15,10 @@ from .engines.base import Draws, Engine
 from .engines.program import program_text
 from .inits import LeafFits, cold_scaling, fit_leaves, structure_inits
 from .priors import PriorSet
-from .parameters import PARAMETER
 from .spec import DataSpec, SamplerSpec, Structure
 
 #: Population-level parameters of the generic program (diagnostics and summaries run over these).
-POPULATION = ("b0", "beta", "tau", "tau_leaf", "sigma", "nu", "leaf_corr", "split_diff")
+POPULATION = ("b0", "beta", "tau", "tau_leaf", "tau_s", "sigma", "nu", "leaf_corr", "split_diff")
 
 
 def correlation_pairs(design: Design) -> list[tuple[int, int]]:
@@ -31,7 +30,7 @@ def correlation_pairs(design: Design) -> list[tuple[int, int]]:
 def split_pairs(design: Design) -> list[tuple[int, int]]:
     """(within k, between k) coefficient indices of every within/between split."""
     c = design.coefficients
-    return [(k, k + 1) for k in range(len(c) - 1) if c[k].kind == "within" and c[k + 1].kind == "between"]
+    return [(k, k + 1) for k in range(len(c) - 1) if c[k].pairs_with_next]
 
 
 def add_derived(design: Design, params: dict[str, np.ndarray]) -> None:
@@ -141,6 +140,7 @@ def warm_values(fit: StructureFit, design: Design, chain_draw: tuple[np.ndarray,
         "eta_c": eta_flat[:, design.cen_cells],
         "eta_z": (eta_flat[:, design.nc_cells] - mu_flat[:, design.nc_cells]) / tau_leaf[:, design.nc_term],
         "sigma": src["sigma"], "nu": src["nu"],
+        "tau_s": src.get("tau_s", np.zeros((n, 0))), "z_s": src.get("z_s", np.zeros((n, 0))),
     }
     S = len(design.sigma_groups)
     if out["sigma"].shape[1] != S:      # residual SDs by curve type, a type missing in training
@@ -148,7 +148,7 @@ def warm_values(fit: StructureFit, design: Design, chain_draw: tuple[np.ndarray,
     free = [free_parameters(design, out["b0"][k], tau[k], out["u_z"][k]) for k in range(n)]
     out["b0_free"] = np.array([f["b0_free"] for f in free]).reshape(n, -1)
     out["u_v"] = np.array([f["u_v"] for f in free]).reshape(n, -1)
-    for name in ("tau", "tau_leaf", "sigma"):
+    for name in ("tau", "tau_leaf", "sigma", "tau_s"):
         out["log_" + name] = np.log(out[name])
     assert all(k in out for k in FREE_BLOCKS)
     return out
@@ -194,16 +194,7 @@ def _labels(design: Design) -> dict[str, tuple[str, Callable[[np.ndarray], np.nd
         else:
             out[f"b0[{i + 1}]"] = (f"{p} at reference", par.from_link, "" if par.link == "logit" else "umol m-2 s-1")
     for k, c in enumerate(design.coefficients):
-        target = f"log({c.param}/vcmax25)" if design.ratio.get(c.param) else f"{PARAMETER[c.param].link} {c.param}"
-        if c.kind == "trait":
-            centre, scale = design.trait_transform[c.term]
-            what = f"slope of {target} on {c.term} (per {scale:g} units)"
-        elif c.kind in ("within", "between"):
-            centre, scale = design.trait_transform[c.term]
-            what = f"{c.kind}-{c.group} slope of {target} on {c.term} (per {scale:g} units)"
-        else:
-            what = f"{target}: {c.label} vs reference level"
-        out[f"beta[{k + 1}]"] = (what, lambda x: x, "link scale")
+        out[f"beta[{k + 1}]"] = (c.meaning, lambda x: x, "link scale")
     for k, (w, b) in enumerate(split_pairs(design)):
         c = design.coefficients[w]
         out[f"split_diff[{k + 1}]"] = (f"between minus within {c.group} slope of {c.param} on {c.term}",
@@ -212,6 +203,8 @@ def _labels(design: Design) -> dict[str, tuple[str, Callable[[np.ndarray], np.nd
         out[f"tau[{r + 1}]"] = (f"SD of {g.label}", lambda x: x, "link scale")
     for r, lt in enumerate(design.leaf_terms):
         out[f"tau_leaf[{r + 1}]"] = (f"SD of leaf effects on {lt.param}", lambda x: x, "link scale")
+    for r, st in enumerate(design.smooth_terms):
+        out[f"tau_s[{r + 1}]"] = (f"SD of the bends of the {st.label}", lambda x: x, "link scale")
     for k, (i, j) in enumerate(correlation_pairs(design)):
         a, b = design.leaf_terms[i].param, design.leaf_terms[j].param
         out[f"leaf_corr[{k + 1}]"] = (f"correlation of leaf effects on {a} and {b}", lambda x: x, "")

@@ -208,8 +208,8 @@ def cold_scaling(design: Design, fits: LeafFits) -> dict[str, np.ndarray]:
     reparameterisation: a guess that is off costs warm-up time only, never accuracy. The guesses (common
     practice, no source): a population mean to the between-leaf SD over sqrt(leaves); a trait slope to
     that over the trait's SD; the log of an SD of K levels to 1 / sqrt(2 (K - 1)); a well-measured leaf's
-    own value to its least-squares standard error; a residual SD's log to 1 / sqrt(2 points);
-    standard-normal effects to 1. Offsets stay 0."""
+    own value to its least-squares standard error; a residual SD's log to 1 / sqrt(2 points); the log of a
+    smooth's SD to 1 / sqrt(2 (columns - 1)), as for levels; standard-normal effects to 1. Offsets stay 0."""
     L, P = design.n_leaves, len(design.parameters)
     train = design.train_leaves
     n = max(int(train.sum()), 2)
@@ -239,5 +239,7 @@ def cold_scaling(design: Design, fits: LeafFits) -> dict[str, np.ndarray]:
     log_sigma = 1 / np.sqrt(2 * np.maximum(counts, 1))
     mult = np.concatenate([b0, beta, log_tau, u_c, np.ones(int((~design.lev_centred).sum())),
                            np.full(len(design.leaf_terms), 1 / np.sqrt(2 * (n - 1))), eta_c,
-                           np.ones(len(design.nc_cells)), log_sigma])
+                           np.ones(len(design.nc_cells)), log_sigma,
+                           1 / np.sqrt(2 * np.array([max(st.size - 1, 1) for st in design.smooth_terms], float)),
+                           np.ones(design.Zs.shape[1])])
     return {"n_scale": int(mult.size), "scale_offset": np.zeros(mult.size), "scale_mult": mult.astype(float)}

@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import DataError, UserInputError
-from .terms import FixedTerm, GroupIntercept, LeafEffect, TermContext
+from .terms import TermContext
 
 #: Central interval reported.
 INTERVAL = 0.90
@@ -34,10 +34,76 @@ CONDITION_COLUMNS = {"intercellular_co2": "ci", "photon_flux": "ppfd", "leaf_tem
 @dataclass(frozen=True)
 class Prediction:
     """``parameters``: one row per new leaf and parameter; ``assimilation``: one row per new leaf and
-    condition (None without conditions)."""
+    condition (None without conditions); ``notes``: what the user should know about these predictions
+    (e.g. leaves outside a smooth's observed range), in words."""
 
     parameters: pd.DataFrame
     assimilation: pd.DataFrame | None
+    notes: tuple[str, ...] = ()
+
+
+class NewLeaves:
+    """The linear predictor of new leaves, built term by term (each term's ``predict`` calls these, in
+    the order `leafcv.design.build_design` placed them). ``mean`` (S, N, P): the population mean on the
+    link scale; ``extra``: a new leaf's own effects and those of levels the fit has not seen."""
+
+    def __init__(self, design, ctx: TermContext, new: pd.DataFrame, draws: dict[str, np.ndarray],
+                 rng: np.random.Generator):
+        self.design, self.ctx, self.new, self.draws, self.rng = design, ctx, new, draws, rng
+        S, N, P = len(draws["b0"]), len(new), len(design.parameters)
+        self.mean = np.repeat(draws["b0"][:, None, :], N, axis=1)
+        self.extra = np.zeros_like(self.mean)
+        self.notes: list[str] = []
+        self._coef = self._group = self._smooth = 0
+
+    def add_fixed(self, param: str, column: np.ndarray) -> None:
+        """The next fixed coefficient, acting on ``column`` (the new leaves' values, coded as the fit's)."""
+        self.mean[:, :, self.design.param_index(param)] += self.draws["beta"][:, self._coef, None] * column[None, :]
+        self._coef += 1
+
+    def add_levels(self, param: str, idx: np.ndarray, x: np.ndarray) -> None:
+        """The next group term: each new leaf's level among the fitted ones (-1: a level the fit has not
+        seen, whose effect is drawn from the term's fitted SD) times the covariate ``x``."""
+        r, gt = self._group, self.design.group_terms[self._group]
+        pi = self.design.param_index(param)
+        S, N = self.mean.shape[:2]
+        known = idx >= 0
+        u = np.zeros((S, N))
+        u[:, known] = self.draws["level_value"][:, gt.start + idx[known]]
+        self.mean[:, :, pi] += u * x
+        self.extra[:, ~known, pi] += self.draws["tau"][:, r, None] * self.rng.standard_normal((S, int((~known).sum()))) \
+            * x[None, ~known]
+        self._group += 1
+
+    def next_smooth(self):
+        st = self.design.smooth_terms[self._smooth]
+        self._smooth += 1
+        return st
+
+    def add_smooth(self, term, columns: np.ndarray) -> None:
+        """A smooth's bend at the new leaves, from its basis ``columns`` (N, size) there."""
+        r = self.design.smooth_terms.index(term)
+        cols = slice(term.start, term.start + term.size)
+        w = self.draws["tau_s"][:, r, None] * self.draws["z_s"][:, cols]
+        self.mean[:, :, self.design.param_index(term.param)] += w @ columns.T
+
+    def note(self, text: str) -> None:
+        self.notes.append(text)
+
+    def leaf_effects(self) -> None:
+        """Each new leaf's own effects, drawn jointly over the leaf terms (correlated where the fit is)."""
+        design = self.design
+        if not design.leaf_terms:
+            return
+        S, N = self.mean.shape[:2]
+        z = self.rng.standard_normal((S, N, len(design.leaf_terms)))
+        tau = self.draws["tau_leaf"]
+        if design.leaf_correlation:
+            effect = np.einsum("sij,snj->sni", tau[:, :, None] * self.draws["leaf_chol"][:, 0], z)
+        else:
+            effect = tau[:, None, :] * z
+        for j, pi in enumerate(design.leaf_term_params):
+            self.extra[:, :, pi] += effect[:, :, j]
 
 
 def predict(run_dir: str | Path, structure: str, leaves: str | Path | pd.DataFrame,
@@ -68,37 +134,14 @@ def predict(run_dir: str | Path, structure: str, leaves: str | Path | pd.DataFra
     _check_new_leaves(design, ctx, new, rows, source, (traits, groups, fixed_groups))
 
     draws = {k: post[k].values.reshape((-1,) + post[k].shape[2:]) for k in post.data_vars}
-    S, N, P = len(draws["b0"]), len(new), len(design.parameters)
     rng = np.random.default_rng([int(manifest["settings"]["sampler"]["seed"]), PREDICT_STREAM])
-    mean = np.repeat(draws["b0"][:, None, :], N, axis=1)          # (S, N, P) link scale
-    extra = np.zeros_like(mean)                                      # a new leaf's own (and new levels') effects
-    k = r = 0          # the next coefficient and group term, in the order build_design placed them
-    leaf_terms = [t for p in design.params for t in design.terms[p] if isinstance(t, LeafEffect)]
-    for pi, p in enumerate(design.params):
+    pred = NewLeaves(design, ctx, new, draws, rng)
+    for p in design.params:
         for term in design.terms[p]:
-            if isinstance(term, FixedTerm):
-                for _, col in term.columns(ctx, new):
-                    mean[:, :, pi] += draws["beta"][:, k, None] * col[None, :]
-                    k += 1
-            elif isinstance(term, GroupIntercept):
-                gt = design.group_terms[r]
-                idx, x = term.locate(ctx, new)
-                known = idx >= 0
-                u = np.zeros((S, N))
-                u[:, known] = draws["level_value"][:, gt.start + idx[known]]
-                mean[:, :, pi] += u * x
-                extra[:, ~known, pi] += draws["tau"][:, r, None] * rng.standard_normal((S, int((~known).sum()))) \
-                    * x[None, ~known]
-                r += 1
-    if leaf_terms:
-        z = rng.standard_normal((S, N, len(leaf_terms)))
-        tau = draws["tau_leaf"]
-        if design.leaf_correlation:
-            effect = np.einsum("sij,snj->sni", tau[:, :, None] * draws["leaf_chol"][:, 0], z)
-        else:
-            effect = tau[:, None, :] * z
-        for j, pi in enumerate(design.leaf_term_params):
-            extra[:, :, pi] += effect[:, :, j]
+            term.predict(pred)
+    pred.leaf_effects()
+    mean, extra = pred.mean, pred.extra
+    N = len(new)
     pop, one = natural_values(design, mean), natural_values(design, mean + extra)
     lo, hi = (1 - INTERVAL) / 2, 1 - (1 - INTERVAL) / 2
     rows = []
@@ -112,7 +155,7 @@ def predict(run_dir: str | Path, structure: str, leaves: str | Path | pd.DataFra
     assim = None
     if conditions is not None:
         assim = _assimilation(design, pop, one, ids, conditions, lo, hi)
-    return Prediction(table, assim)
+    return Prediction(table, assim, tuple(pred.notes))
 
 
 def _read(source: str | Path | pd.DataFrame, what: str, rows_word: str, numeric: list[str]
@@ -132,18 +175,10 @@ def _read(source: str | Path | pd.DataFrame, what: str, rows_word: str, numeric:
 
 def _used_columns(design) -> tuple[set[str], set[str], set[str]]:
     """The traits, the groupings and the fixed (level-contrast) groupings the structure's terms use."""
-    from .terms import LevelContrasts
+    from .term_kinds import columns_needed
 
-    traits, groups, fixed_groups = set(), set(), set()
-    for p in design.params:
-        for t in design.terms[p]:
-            for name in ("trait", "grouping"):
-                v = getattr(t, name, None)
-                if v:
-                    (traits if name == "trait" else groups).add(v)
-            if isinstance(t, LevelContrasts):
-                fixed_groups.add(t.grouping)
-    return traits, groups - traits, fixed_groups
+    need = columns_needed(design.terms)
+    return need["traits"], need["groups"] - need["traits"], need["fixed_groups"]
 
 
 def _check_fit_matches(design, post, path: Path) -> None:

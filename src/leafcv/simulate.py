@@ -28,7 +28,7 @@ import numpy as np
 import pandas as pd
 
 from .data.dataset import LEAF_TERM, Dataset
-from .design import Design, build_design, leaf_cov_chol
+from .design import Design, build_design, leaf_cov_chol, smooth_values
 from .errors import UserInputError
 from .runfolder import RunPaths, is_finished, read_ranking
 from .simulation_summary import FOLDER, posterior_draws
@@ -65,7 +65,7 @@ def _with_empty_blocks(draws: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
     """The program's empty blocks (a structure without group or leaf terms) as (S, 0) arrays."""
     S = len(draws["b0"])
     out = dict(draws)
-    for name in ("beta", "tau", "u_c", "u_z", "tau_leaf", "eta_c", "eta_z", "nu"):
+    for name in ("beta", "tau", "u_c", "u_z", "tau_leaf", "eta_c", "eta_z", "nu", "tau_s", "z_s"):
         out.setdefault(name, np.zeros((S, 0)))
     return out
 
@@ -100,6 +100,7 @@ def replicate_frame(design: Design, dataset: Dataset, draws: dict[str, np.ndarra
         n_levels = int(np.max(gt.level_of_leaf)) + 1
         u_new = rng.normal(0.0, float(one["tau"][0, r]), n_levels)      # new effects, shared by a level's leaves
         mu[:, pi] += u_new[gt.level_of_leaf] * gt.x
+    mu = mu + smooth_values(design, one)[0]                                # the smooths' bends at draw s
     eta = mu[source].copy()                                                # (L', P)
     if design.leaf_terms:
         chol = leaf_cov_chol(design, one)[0]

@@ -92,6 +92,11 @@ class ParamSpec:
     centring: dict[str, str] = field(default_factory=dict)  # grouping -> auto | centred | noncentred
     slopes: tuple[tuple[str, str], ...] = ()    # (trait, grouping): random slopes around the fixed slope
     split: tuple[tuple[str, str], ...] = ()     # (trait, grouping): within- and between-group slopes
+    smooth: tuple[str, ...] = ()                # traits: a penalised spline of each (leafcv.smooth)
+
+    def columns_used(self) -> set[str]:
+        """Every data column (trait or grouping) a term of this parameter names."""
+        return {*self.fixed, *self.random, *self.smooth, *(x for pair in self.slopes + self.split for x in pair)}
 
 
 @dataclass(frozen=True)

@@ -1,12 +1,21 @@
 """The typed model of a structure: its parameters and its terms.
 
 A structure (`leafcv.spec.Structure`) says in the user's words which traits, groupings and leaves
-shift each FvCB parameter. `terms_of` turns it into term objects, one per term, each owning its
-columns or levels, its centring choice, its prior and its description in words. `leafcv.design`
-loops over them; nothing else decodes a structure.
+shift each FvCB parameter. `leafcv.term_kinds.terms_of` turns it into term objects, one per term, each
+owning its columns or levels, its centring choice, its prior, its words and its part of a prediction for
+new leaves. Every term has the same four methods, so no caller asks which kind a term is:
 
-Adding a kind of term touches: a class here (and `terms_of`), the serialiser
-`leafcv.design.to_stan_data` when the program needs a new block, and `stan/leafcv.stan`.
+- ``of_spec(param, spec, traits)`` (class method): the terms of this kind in one parameter's `ParamSpec`;
+- ``needs()``: the data columns it uses ({"traits": ..., "groups": ..., "fixed_groups": ...});
+- ``add_to(ctx, design)``: places itself in a design being built (`leafcv.design.DesignBuilder`): fixed
+  columns, group levels, a leaf term or a block of its own, and its prior in words;
+- ``predict(pred)``: adds itself to the linear predictor of new leaves (`leafcv.predict.NewLeaves`).
+
+A new kind of term is a class with these methods in its own module (see `leafcv.smooth`) and one line
+in `leafcv.term_kinds`; one that needs a new block of the program also touches `stan/leafcv.stan` and
+the serialiser `leafcv.design.to_stan_data`.
+
+Tests: tests/test_terms.py, tests/test_term_kinds.py.
 """
 from __future__ import annotations
 
@@ -53,9 +62,13 @@ class Coefficient:
     param: str
     term: str          # trait or group column
     label: str         # e.g. "leaf_n", "month=2026-07", "leaf_n within species"
-    kind: str          # "trait", "level", "within" or "between"
+    kind: str          # "trait", "level", "within", "between" or "smooth" (the fit file records it)
     prior_sd: float
     group: str = ""    # the grouping of a within/between split
+    meaning: str = ""  # in words, for the fit's summary: "slope of log vcmax25 on leaf_n (per 1 units)"
+    centre: float = float("nan")   # the covariate's centring and scaling (NaN for a level contrast)
+    scale: float = float("nan")
+    pairs_with_next: bool = False  # a within slope followed by its between slope (their difference is reported)
 
 
 @dataclass(frozen=True)
@@ -128,6 +141,11 @@ class FixedTerm:
 
     param: str
 
+    @classmethod
+    def of_spec(cls, param: str, spec, traits) -> list["FixedTerm"]:
+        """``fixed``: a slope for a trait, treatment-coded levels for a grouping, in the order listed."""
+        return [TraitSlope(param, t) if t in traits else LevelContrasts(param, t) for t in spec.fixed]
+
     def columns(self, ctx: TermContext, new: pd.DataFrame | None = None) -> list[tuple[Coefficient, np.ndarray]]:
         """Its coefficients and their columns over the fitted leaves, or over ``new`` leaves (their values
         coded as the fitted leaves' are: same centring, reference level and group means)."""
@@ -135,6 +153,20 @@ class FixedTerm:
 
     def prior_line(self, ctx: TermContext) -> str:
         raise NotImplementedError
+
+    def add_to(self, ctx: TermContext, design) -> None:
+        for coef, col in self.columns(ctx):
+            design.add_column(coef, col, self.param)
+        design.prior(self.prior_line(ctx))
+
+    def predict(self, pred) -> None:
+        for _, col in self.columns(pred.ctx, pred.new):
+            pred.add_fixed(self.param, col)
+
+
+def _target(ctx: TermContext, param: str) -> str:
+    """The link-scale quantity a term shifts, in words."""
+    return f"log({param}/vcmax25)" if ctx.ratio.get(param) else f"{ctx.link(param)} {param}"
 
 
 @dataclass(frozen=True)
@@ -144,9 +176,15 @@ class TraitSlope(FixedTerm):
     param: str
     trait: str
 
+    def needs(self) -> dict[str, set[str]]:
+        return {"traits": {self.trait}}
+
     def columns(self, ctx, new=None):
         sd = ctx.priors.slope_sd(ctx.link(self.param))
-        return [(Coefficient(self.param, self.trait, self.trait, "trait", sd), ctx.scaled(self.trait, new))]
+        c, s = ctx.transforms[self.trait]
+        meaning = f"slope of {_target(ctx, self.param)} on {self.trait} (per {s:g} units)"
+        return [(Coefficient(self.param, self.trait, self.trait, "trait", sd, meaning=meaning, centre=c, scale=s),
+                 ctx.scaled(self.trait, new))]
 
     def prior_line(self, ctx):
         c, s = ctx.transforms[self.trait]
@@ -162,10 +200,15 @@ class LevelContrasts(FixedTerm):
     param: str
     grouping: str
 
+    def needs(self) -> dict[str, set[str]]:
+        return {"groups": {self.grouping}, "fixed_groups": {self.grouping}}
+
     def columns(self, ctx, new=None):
         levels, _ = ctx.levels(self.grouping)
         values = (ctx.leaves if new is None else new)[self.grouping].astype(str).to_numpy()
-        return [(Coefficient(self.param, self.grouping, f"{self.grouping}={lev}", "level", ctx.priors.level_sd),
+        target = _target(ctx, self.param)
+        return [(Coefficient(self.param, self.grouping, f"{self.grouping}={lev}", "level", ctx.priors.level_sd,
+                             meaning=f"{target}: {self.grouping}={lev} vs reference level"),
                  (values == lev).astype(float)) for k, lev in enumerate(levels) if k > 0]
 
     def prior_line(self, ctx):
@@ -184,6 +227,13 @@ class SplitSlope(FixedTerm):
     trait: str
     grouping: str
 
+    def needs(self) -> dict[str, set[str]]:
+        return {"traits": {self.trait}, "groups": {self.grouping}}
+
+    @classmethod
+    def of_spec(cls, param: str, spec, traits) -> list["SplitSlope"]:
+        return [cls(param, t, g) for t, g in spec.split]
+
     def columns(self, ctx, new=None):
         c, sc = ctx.transforms[self.trait]
         means = ctx.leaves.groupby(ctx.leaves[self.grouping].astype(str))[self.trait].mean()
@@ -194,7 +244,10 @@ class SplitSlope(FixedTerm):
         own = leaves.groupby(groups)[self.trait].transform("mean").to_numpy(float)
         gmean = np.where(groups.isin(means.index), groups.map(means).to_numpy(float), own)
         sd = ctx.priors.slope_sd(ctx.link(self.param))
-        return [(Coefficient(self.param, self.trait, f"{self.trait} {kind} {self.grouping}", kind, sd, self.grouping), col)
+        target = _target(ctx, self.param)
+        return [(Coefficient(self.param, self.trait, f"{self.trait} {kind} {self.grouping}", kind, sd, self.grouping,
+                             meaning=f"{kind}-{self.grouping} slope of {target} on {self.trait} (per {sc:g} units)",
+                             centre=c, scale=sc, pairs_with_next=kind == "within"), col)
                 for kind, col in (("within", (x - gmean) / sc), ("between", (gmean - c) / sc))]
 
     def prior_line(self, ctx):
@@ -212,9 +265,26 @@ class GroupIntercept:
     grouping: str
     trait = None
 
+    @classmethod
+    def of_spec(cls, param: str, spec, traits) -> list["GroupIntercept"]:
+        return [cls(param, g) for g in spec.random if g != LEAF_TERM]
+
+    def needs(self) -> dict[str, set[str]]:
+        return {"groups": {self.grouping}}
+
     @property
     def centring_key(self) -> str:
         return self.grouping
+
+    def add_to(self, ctx: TermContext, design) -> None:
+        placed = self.place(ctx, design.n_levels, design.has_leaf_term(self.param))
+        design.add_group(placed)
+        design.prior(self.prior_line(ctx, placed))
+
+    def predict(self, pred) -> None:
+        """Its effect on new leaves: a fitted level's value, or a new level's drawn from the fitted SD."""
+        idx, x = self.locate(pred.ctx, pred.new)
+        pred.add_levels(self.param, idx, x)
 
     def covariate(self, ctx: TermContext, new: pd.DataFrame | None = None) -> np.ndarray:
         return np.ones(len(ctx.leaves if new is None else new))
@@ -260,6 +330,13 @@ class RandomSlope(GroupIntercept):
     grouping: str
     trait: str = ""
 
+    @classmethod
+    def of_spec(cls, param: str, spec, traits) -> list["RandomSlope"]:
+        return [cls(param, g, t) for t, g in spec.slopes]
+
+    def needs(self) -> dict[str, set[str]]:
+        return {"traits": {self.trait}, "groups": {self.grouping}}
+
     @property
     def centring_key(self) -> str:
         return f"{self.trait}|{self.grouping}"
@@ -273,6 +350,21 @@ class LeafEffect:
     """An effect of every leaf on a parameter, drawn from a normal with an estimated SD."""
 
     param: str
+
+    @classmethod
+    def of_spec(cls, param: str, spec, traits) -> list["LeafEffect"]:
+        return [cls(param)] if LEAF_TERM in spec.random else []
+
+    def needs(self) -> dict[str, set[str]]:
+        return {}
+
+    def add_to(self, ctx: TermContext, design) -> None:
+        design.add_leaf(self.place(ctx))
+        design.prior(self.prior_line(ctx))
+
+    def predict(self, pred) -> None:
+        """Nothing here: a new leaf's own effects are drawn jointly over its leaf terms (they may be
+        correlated), by `leafcv.predict.NewLeaves.leaf_effects`."""
 
     def place(self, ctx: TermContext) -> LeafTerm:
         ps = ctx.structure.params.get(self.param)
@@ -291,27 +383,6 @@ class LeafEffect:
     def prior_line(self, ctx: TermContext) -> str:
         return (f"SD of leaf effects on {self.param}: half-normal(0, {ctx.priors.leaf_sd_scale:g}) on the "
                 f"{ctx.link(self.param)} scale")
-
-
-Term = TraitSlope | LevelContrasts | SplitSlope | GroupIntercept | RandomSlope | LeafEffect
-
-
-def terms_of(structure: Structure, traits, params: tuple[Parameter, ...]) -> dict[str, list]:
-    """Every term of ``structure`` per parameter, in program order: fixed terms (traits and levels as
-    listed), splits, the leaf effect, random intercepts, random slopes."""
-    out: dict[str, list] = {}
-    for p in params:
-        ps = structure.params.get(p.name)
-        terms: list = []
-        if ps is not None:
-            terms += [TraitSlope(p.name, t) if t in traits else LevelContrasts(p.name, t) for t in ps.fixed]
-            terms += [SplitSlope(p.name, t, g) for t, g in ps.split]
-            if LEAF_TERM in ps.random:
-                terms.append(LeafEffect(p.name))
-            terms += [GroupIntercept(p.name, g) for g in ps.random if g != LEAF_TERM]
-            terms += [RandomSlope(p.name, g, t) for t, g in ps.slopes]
-        out[p.name] = terms
-    return out
 
 
 def informed_leaves(param, ratio, leaf_fits, points_per_leaf, train) -> tuple[np.ndarray, str]:

@@ -47,4 +47,6 @@ def test_run_comparison_writes_report_html_at_the_end(quick_demo, tmp_path, monk
     html = report.read_text()
     assert f"The best structure is {table.iloc[0]['structure']}</b>" in html
     assert (tmp_path / "run" / "figures" / "ranking.png").exists()
-    assert "which traits shift Vcmax25 and alpha, and is month better fixed or random?" in html
+    # the demo file's question comment, its two lines joined (leafcv.demo.QUESTION_QUICK)
+    assert ("which traits shift Vcmax25 and alpha, and is the season better month fixed, month random or a "
+            "smooth trend over the day of year?") in html

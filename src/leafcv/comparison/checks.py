@@ -54,6 +54,11 @@ def check_against_data(comparison: Comparison, dataset: Dataset) -> list[Problem
                     elif kind == "split":
                         problems += [Problem(f"{where}: {m}", code, where)
                                      for code, m in _split_data_problems(trait, group, leaves)]
+            for trait in spec.smooth:
+                found = _trait_data_problem(trait, leaves)
+                if found:
+                    where = f"structure {structure.name!r}, {pname}.smooth"
+                    problems.append(Problem(f"{where}: {found[1]}", found[0], where))
         if len(problems) == before:
             problems += _design_problems(structure, dataset, comparison)
         if structure.options.sigma_by_curve and dataset.obs["curve_type"].nunique() < 2:

@@ -43,7 +43,7 @@ UNITS_KEYS: tuple[str, ...] = (CI_UNITS_KEY, "pressure_kpa")
 LEAF_KEYS: tuple[str, ...] = ("groups", "traits", "centre", "scale")
 SAMPLER_KEYS: tuple[str, ...] = ("chains", "warmup", "draws", "seed", "adapt_delta", "max_treedepth")
 CV_KEYS: tuple[str, ...] = ("by", "method", "folds")
-PARAM_KEYS: tuple[str, ...] = ("fixed", "random", "ratio_to", "centring", "slopes", "split")
+PARAM_KEYS: tuple[str, ...] = ("fixed", "random", "ratio_to", "centring", "slopes", "split", "smooth")
 #: Stan's seeds are unsigned 32-bit integers.
 MAX_SEED = 2**32 - 1
 MAX_TREEDEPTH_LIMIT = 20

@@ -1,4 +1,4 @@
-"""[[structure]] tables: names, parameter entries (fixed, random, ratio_to, centring, slopes, split),
+"""[[structure]] tables: names, parameter entries (fixed, random, ratio_to, centring, slopes, split, smooth),
 model options, priors and correlated leaf effects. `leafcv.comparison.grid` builds structures through
 `parse_structure_body` too."""
 from __future__ import annotations
@@ -178,10 +178,32 @@ def _parse_param(
     for trait, group in slopes:
         if trait in split_traits:
             check.problem(f"{where}: {trait!r} is in both slopes and split; choose one", "conflicting-terms", where)
+    smooth = _parse_smooth(check, value.get("smooth", []), f"{where}.smooth", groups, traits)
+    for trait in smooth:
+        if trait in fixed or trait in split_traits or trait in (t for t, _ in slopes):
+            check.problem(f"{where}: {trait!r} is both smooth and a slope; the smooth already includes its straight-line "
+                          f"trend — remove it from fixed, slopes or split", "conflicting-terms", where)
     random_terms = list(random_as_written) + [f"{t}|{g}" for t, g in slopes]
     centring = _parse_centring(check, value.get("centring", {}), f"{where}.centring", pname, random_terms)
     return ParamSpec(fixed=tuple(fixed), random=tuple(random), ratio_to=ratio_to, centring=centring,
-                     slopes=tuple(slopes), split=tuple(split))
+                     slopes=tuple(slopes), split=tuple(split), smooth=tuple(smooth))
+
+
+def _parse_smooth(check: Checker, value: Any, where: str, groups: Sequence[str], traits: Sequence[str]) -> list[str]:
+    """``smooth = ["day_of_year"]``: declared traits (numeric leaf covariates), each a penalised spline."""
+    kept: list[str] = []
+    for term in check.text_list(value, where):
+        if term in kept:
+            check.problem(f"{where}: {term!r} is listed twice", "repeated-entry", where)
+        elif term in traits:
+            kept.append(term)
+        elif term in groups or term == LEAF_TERM:
+            check.problem(f"{where}: {term!r} is a grouping; a smooth needs a numeric leaf covariate listed in "
+                          f"[data.leaf] traits ({', '.join(traits) or 'none declared'}); for a grouping use fixed or "
+                          f"random", "misplaced-term", where)
+        else:
+            check.problem(f"{where}: " + unknown("trait", term, traits, "traits"), "unknown-term", where)
+    return kept
 
 
 def _parse_trait_by_group(check: Checker, value: Any, where: str, groups: Sequence[str],

@@ -71,7 +71,7 @@ def describe_param(pname: str, spec: ParamSpec) -> str:
     else:
         head = f"{pname}: {LINKS[pname]} link"
         separator = "; "
-    if not spec.fixed and not spec.random and not spec.split:
+    if not spec.fixed and not spec.random and not spec.split and not spec.smooth:
         return f"{head}{separator}shared by all leaves"
     parts = ["intercept"]
     if spec.fixed:
@@ -82,6 +82,8 @@ def describe_param(pname: str, spec: ParamSpec) -> str:
         parts.append("random " + ", ".join(spec.random))
     if spec.slopes:
         parts.append("random slopes " + ", ".join(f"{t} by {g}" for t, g in spec.slopes))
+    if spec.smooth:
+        parts.append("smooth trend over " + ", ".join(spec.smooth))
     text = f"{head}; " + " + ".join(parts)
     if spec.centring:
         chosen = ", ".join(f"{group} {choice}" for group, choice in spec.centring.items())

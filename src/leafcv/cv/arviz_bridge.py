@@ -144,7 +144,8 @@ def _labelled_dims(design) -> tuple[dict[str, list[str]], dict[str, list], dict[
             "tau": ["group_term"], "log_tau": ["group_term"], "tau_leaf": ["leaf_term"],
             "log_tau_leaf": ["leaf_term"], "sigma": ["sigma_group"], "log_sigma": ["sigma_group"],
             "leaf_value": [LEAF_DIM, "parameter"], "level_value": ["level"], "split_diff": ["split"],
-            "leaf_corr": ["leaf_pair"]}
+            "leaf_corr": ["leaf_pair"], "tau_s": ["smooth_term"], "log_tau_s": ["smooth_term"],
+            "z_s": ["smooth_column"]}
     coords: dict[str, list] = {
         "parameter": params,
         "coefficient": [f"{c.param}: {c.label}" for c in coefs],      # unique: a trait may act on two parameters
@@ -152,6 +153,8 @@ def _labelled_dims(design) -> tuple[dict[str, list[str]], dict[str, list], dict[
         "leaf_term": [lt.param for lt in design.leaf_terms],
         "sigma_group": list(design.sigma_groups),
         "level": [f"{g.label}: {lev}" for g in design.group_terms for lev in g.levels],
+        "smooth_term": [st.label for st in design.smooth_terms],
+        "smooth_column": [f"{st.label}: {k + 1}" for st in design.smooth_terms for k in range(st.size)],
     }
     extra = {
         "parameter_link": ("parameter", [p.link for p in design.parameters]),
@@ -161,15 +164,18 @@ def _labelled_dims(design) -> tuple[dict[str, list[str]], dict[str, list], dict[
         "coefficient_kind": ("coefficient", [c.kind for c in coefs]),
         "coefficient_term": ("coefficient", [c.term for c in coefs]),
         "coefficient_grouping": ("coefficient", [c.group for c in coefs]),
-        "coefficient_centre": ("coefficient", [design.trait_transform[c.term][0] if c.kind != "level" else np.nan
-                                               for c in coefs]),
-        "coefficient_scale": ("coefficient", [design.trait_transform[c.term][1] if c.kind != "level" else np.nan
-                                              for c in coefs]),
+        "coefficient_centre": ("coefficient", [c.centre for c in coefs]),
+        "coefficient_scale": ("coefficient", [c.scale for c in coefs]),
+        "coefficient_meaning": ("coefficient", [c.meaning for c in coefs]),
         "group_term_parameter": ("group_term", [g.param for g in design.group_terms]),
         "group_term_grouping": ("group_term", [g.grouping for g in design.group_terms]),
         "group_term_slope_of": ("group_term", [g.slope_of or "" for g in design.group_terms]),
         "level_group_term": ("level", [g.label for g in design.group_terms for _ in g.levels]),
         "level_name": ("level", [lev for g in design.group_terms for lev in g.levels]),
+        "smooth_term_parameter": ("smooth_term", [st.param for st in design.smooth_terms]),
+        "smooth_term_covariate": ("smooth_term", [st.covariate for st in design.smooth_terms]),
+        "smooth_term_low": ("smooth_term", [st.basis.lo for st in design.smooth_terms]),
+        "smooth_term_high": ("smooth_term", [st.basis.hi for st in design.smooth_terms]),
     }
     from ..fitting import correlation_pairs, split_pairs
 
