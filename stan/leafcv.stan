@@ -98,7 +98,7 @@ data {
   // scaling of the free parameters: each block is sampled as offset + scale * (a standardised value), an
   // exact reparameterisation (Stan's offset/multiplier) that hands the sampler a posterior already close to
   // unit scale, so a refit started from the full-data fit needs only a short warm-up. Blocks stacked in
-  // the order b0_free, beta, log_tau, u_c, u_v, log_tau_leaf, eta_c, eta_z, log_sigma, log_tau_s, z_s; n_scale = 0 means
+  // the order b0_free, beta, log_tau, u_c, u_v, log_tau_leaf, eta_c, eta_z, log_tau_s, z_s, log_sigma; n_scale = 0 means
   // offset 0 and scale 1 everywhere (the plain program).
   int<lower=0> n_scale;
   vector[n_scale] scale_offset;
@@ -109,9 +109,11 @@ transformed data {
   int n_free = P + K + R + Q + Rl + Mc + Mn + S + Rs + Ms;
   vector[n_free] off = n_scale == 0 ? rep_vector(0, n_free) : scale_offset;
   vector[n_free] mul = n_scale == 0 ? rep_vector(1, n_free) : scale_mult;
+  // log_tau_s and z_s are stacked before log_sigma (never empty), so that an empty block's slice stays
+  // within the vector; they are declared last, so a structure without them keeps its parameter order
   array[12] int at = {0, P, P + K, P + K + R, P + K + R + Qc, P + K + R + Q, P + K + R + Q + Rl,
-                      P + K + R + Q + Rl + Mc, P + K + R + Q + Rl + Mc + Mn, P + K + R + Q + Rl + Mc + Mn + S,
-                      P + K + R + Q + Rl + Mc + Mn + S + Rs, n_free};
+                      P + K + R + Q + Rl + Mc, P + K + R + Q + Rl + Mc + Mn, P + K + R + Q + Rl + Mc + Mn + Rs,
+                      P + K + R + Q + Rl + Mc + Mn + Rs + Ms, n_free};
   matrix[Ms, P] sm_map = rep_matrix(0, Ms, P);   // 0/1: basis column m enters parameter p
   for (m in 1:Ms) {
     sm_map[m, sm_par[sm_term[m]]] = 1;
@@ -142,9 +144,9 @@ parameters {
   vector<offset=off[(at[6] + 1):at[7]], multiplier=mul[(at[6] + 1):at[7]]>[Rl] log_tau_leaf;
   vector<offset=off[(at[7] + 1):at[8]], multiplier=mul[(at[7] + 1):at[8]]>[Mc] eta_c;
   vector<offset=off[(at[8] + 1):at[9]], multiplier=mul[(at[8] + 1):at[9]]>[Mn] eta_z;
-  vector<offset=off[(at[9] + 1):at[10]], multiplier=mul[(at[9] + 1):at[10]]>[S] log_sigma;
-  vector<offset=off[(at[10] + 1):at[11]], multiplier=mul[(at[10] + 1):at[11]]>[Rs] log_tau_s;
-  vector<offset=off[(at[11] + 1):at[12]], multiplier=mul[(at[11] + 1):at[12]]>[Ms] z_s;
+  vector<offset=off[(at[11] + 1):at[12]], multiplier=mul[(at[11] + 1):at[12]]>[S] log_sigma;
+  vector<offset=off[(at[9] + 1):at[10]], multiplier=mul[(at[9] + 1):at[10]]>[Rs] log_tau_s;
+  vector<offset=off[(at[10] + 1):at[11]], multiplier=mul[(at[10] + 1):at[11]]>[Ms] z_s;
   array[student_t] real<lower=1> nu;
   array[leaf_corr] cholesky_factor_corr[Rl] leaf_chol;
 }

@@ -334,8 +334,8 @@ def _mean_split(group_terms: list[GroupTerm], lev_centred: np.ndarray, P: int, p
 
 
 #: The program's free parameter blocks, in the order of its scale_offset / scale_mult stacking.
-FREE_BLOCKS = ("b0_free", "beta", "log_tau", "u_c", "u_v", "log_tau_leaf", "eta_c", "eta_z", "log_sigma",
-               "log_tau_s", "z_s")
+FREE_BLOCKS = ("b0_free", "beta", "log_tau", "u_c", "u_v", "log_tau_leaf", "eta_c", "eta_z", "log_tau_s", "z_s",
+               "log_sigma")
 
 
 def free_parameters(design: Design, b0: np.ndarray, tau: np.ndarray, u_z: np.ndarray) -> dict[str, np.ndarray]:

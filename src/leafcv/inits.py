@@ -239,7 +239,7 @@ def cold_scaling(design: Design, fits: LeafFits) -> dict[str, np.ndarray]:
     log_sigma = 1 / np.sqrt(2 * np.maximum(counts, 1))
     mult = np.concatenate([b0, beta, log_tau, u_c, np.ones(int((~design.lev_centred).sum())),
                            np.full(len(design.leaf_terms), 1 / np.sqrt(2 * (n - 1))), eta_c,
-                           np.ones(len(design.nc_cells)), log_sigma,
+                           np.ones(len(design.nc_cells)),
                            1 / np.sqrt(2 * np.array([max(st.size - 1, 1) for st in design.smooth_terms], float)),
-                           np.ones(design.Zs.shape[1])])
+                           np.ones(design.Zs.shape[1]), log_sigma])
     return {"n_scale": int(mult.size), "scale_offset": np.zeros(mult.size), "scale_mult": mult.astype(float)}

@@ -145,8 +145,23 @@ BAD_CASES = {
     ),
     "unknown key in a parameter table": (
         compose(structures=STRUCTURE + 'alpha = { fixd = ["chl"] }\n'),
-        ["structure 'traits', alpha: unknown key 'fixd'; did you mean 'fixed'? valid keys: fixed, random, ratio_to, centring"],
+        ["structure 'traits', alpha: unknown key 'fixd'; did you mean 'fixed'? valid keys: fixed, random, ratio_to, centring, slopes, split, smooth"],
         "unknown-key",
+    ),
+    "smooth over a grouping": (
+        compose(structures=STRUCTURE + 'alpha = { smooth = ["month"] }\n'),
+        ["structure 'traits', alpha.smooth: 'month' is a grouping; a smooth needs a numeric leaf covariate"],
+        "misplaced-term",
+    ),
+    "smooth over an unknown column": (
+        compose(structures=STRUCTURE + 'alpha = { smooth = ["doy"] }\n'),
+        ["structure 'traits', alpha.smooth: unknown trait 'doy'"],
+        "unknown-term",
+    ),
+    "smooth and fixed on one trait": (
+        compose(structures=STRUCTURE.replace('["leaf_n"]', '["leaf_n"], smooth = ["leaf_n"]')),
+        ["structure 'traits', vcmax25: 'leaf_n' is both smooth and a slope"],
+        "conflicting-terms",
     ),
     "single [structure] table": (
         compose(structures=STRUCTURE.replace("[[structure]]", "[structure]")),
