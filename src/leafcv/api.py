@@ -334,7 +334,8 @@ class Run:
         under ``structure``: the population-mean and the new-leaf 90 % intervals, and optionally the
         expected A at ``conditions`` (intercellular_co2, photon_flux, leaf_temperature[, oxygen]).
         Returns a `leafcv.predict.Prediction`; no sampler runs. ``out``: also write its tables into this
-        folder, ``parameters.csv`` (and ``assimilation.csv`` with ``conditions``)."""
+        folder, ``parameters.csv`` (and ``assimilation.csv`` with ``conditions``, ``notes.txt`` with notes such
+        as leaves outside a smooth's observed range)."""
         from .predict import predict
 
         prediction = predict(self.folder, structure, leaves, conditions)
@@ -344,6 +345,8 @@ class Run:
             prediction.parameters.to_csv(out / "parameters.csv", index=False)
             if prediction.assimilation is not None:
                 prediction.assimilation.to_csv(out / "assimilation.csv", index=False)
+            if prediction.notes:
+                (out / "notes.txt").write_text("".join(f"{n}\n" for n in prediction.notes), encoding="utf-8")
         return prediction
 
     def rewrite_ranking(self) -> str | None:

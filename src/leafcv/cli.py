@@ -119,6 +119,8 @@ def cmd_predict(args) -> int:
     if pred.assimilation is not None:
         print("\nexpected net assimilation A (umol m-2 s-1) at the given conditions:")
         print(pred.assimilation.to_string(index=False, float_format=lambda v: f"{v:.4g}"))
+    for note in pred.notes:
+        print(f"note: {note}")
     if args.out:
         print(f"written to {args.out}")
     return EXIT_OK

@@ -98,6 +98,7 @@ def structure_record(structure: Structure, dataset: Dataset, comparison: Compari
     return {"origin": structure.origin, "model": asdict(structure.options),
             "leaf_correlation": structure.leaf_correlation, "priors": list(design.prior_lines),
             "params": {p: asdict(ps) for p, ps in structure.params.items() if ps is not None},
+            "terms": [t.record() for p in design.params for t in design.terms[p]],
             "temperature": {"rubisco_set": fvcb.DEFAULT_RUBISCO_SET, "rubisco": asdict(rset),
                             "responses": {k: asdict(r) for k, r in responses(structure.options).items()}},
             "parameterisation": [f"leaf effects on {lt.param}: {lt.reason}" for lt in design.leaf_terms]

@@ -41,6 +41,7 @@ import pandas as pd
 from .cv.arviz_bridge import compare_results
 from .cv.result import CVResult, check_comparable
 from .stacking import _negative_mean_log_score, stacking_weights  # noqa: F401  (re-exported)
+from .data.dataset import LEAF_TERM
 
 # columns without the per-curve-type pairs, which go after "r2" (see table_columns)
 COLUMNS = [
@@ -70,7 +71,7 @@ RULE_WORDS = (f"Two structures are not told apart when their difference is small
 
 def units_word(unit: str) -> str:
     """How counts of held-out units read in sentences: "leaves" or "levels of <unit>"."""
-    return "leaves" if unit == "leaf" else f"levels of {unit}"
+    return "leaves" if unit == LEAF_TERM else f"levels of {unit}"
 
 
 # ----------------------------------------------------------------------------------------------
@@ -448,7 +449,7 @@ def _lead_sentence(table: pd.DataFrame, unit: str, overshadowed: bool, pointwise
     _, se, verdict = pair_verdict(table, runner["structure"], name, pointwise, n_units)
     numbers = _numbers(runner, se)
     if verdict.told_apart:
-        new = "new leaves" if unit == "leaf" else f"new levels of {unit}"
+        new = "new leaves" if unit == LEAF_TERM else f"new levels of {unit}"
         return f"{name} is {among}; its lead over {runner['structure']} ({numbers}) is clear." if overshadowed else \
             f"{name} predicts {new} best; its lead over {runner['structure']} ({numbers}) is clear."
     why = f"is not clear: it is {verdict.why()}."

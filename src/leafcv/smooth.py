@@ -133,6 +133,10 @@ class SmoothTrend:
     def needs(self) -> dict[str, set[str]]:
         return {"traits": {self.covariate}}
 
+    def record(self) -> dict[str, str]:
+        return {"parameter": self.param, "key": self.covariate, "how": "smooth",
+                "words": f"a smooth trend of {self.param} over {self.covariate}"}
+
     def linear(self, ctx: TermContext, new: pd.DataFrame | None = None) -> tuple[Coefficient, np.ndarray]:
         c, s = ctx.transforms[self.covariate]
         link = ctx.link(self.param)

@@ -7,6 +7,8 @@ new leaves. Every term has the same four methods, so no caller asks which kind a
 
 - ``of_spec(param, spec, traits)`` (class method): the terms of this kind in one parameter's `ParamSpec`;
 - ``needs()``: the data columns it uses ({"traits": ..., "groups": ..., "fixed_groups": ...});
+- ``record()``: the term as the run's manifest keeps it (parameter, key, how it enters, words), from
+  which the report tells structures that differ in one term;
 - ``add_to(ctx, design)``: places itself in a design being built (`leafcv.design.DesignBuilder`): fixed
   columns, group levels, a leaf term or a block of its own, and its prior in words;
 - ``predict(pred)``: adds itself to the linear predictor of new leaves (`leafcv.predict.NewLeaves`).
@@ -164,6 +166,11 @@ class FixedTerm:
             pred.add_fixed(self.param, col)
 
 
+def _record(param: str, key: str, how: str, words: str) -> dict[str, str]:
+    """A term as the run's manifest keeps it: the report compares structures term by term from these."""
+    return {"parameter": param, "key": key, "how": how, "words": words}
+
+
 def _target(ctx: TermContext, param: str) -> str:
     """The link-scale quantity a term shifts, in words."""
     return f"log({param}/vcmax25)" if ctx.ratio.get(param) else f"{ctx.link(param)} {param}"
@@ -178,6 +185,9 @@ class TraitSlope(FixedTerm):
 
     def needs(self) -> dict[str, set[str]]:
         return {"traits": {self.trait}}
+
+    def record(self) -> dict[str, str]:
+        return _record(self.param, self.trait, "fixed", f"a fixed effect of {self.trait} on {self.param}")
 
     def columns(self, ctx, new=None):
         sd = ctx.priors.slope_sd(ctx.link(self.param))
@@ -202,6 +212,9 @@ class LevelContrasts(FixedTerm):
 
     def needs(self) -> dict[str, set[str]]:
         return {"groups": {self.grouping}, "fixed_groups": {self.grouping}}
+
+    def record(self) -> dict[str, str]:
+        return _record(self.param, self.grouping, "fixed", f"a fixed effect of {self.grouping} on {self.param}")
 
     def columns(self, ctx, new=None):
         levels, _ = ctx.levels(self.grouping)
@@ -229,6 +242,10 @@ class SplitSlope(FixedTerm):
 
     def needs(self) -> dict[str, set[str]]:
         return {"traits": {self.trait}, "groups": {self.grouping}}
+
+    def record(self) -> dict[str, str]:
+        return _record(self.param, self.trait, f"split:{self.grouping}",
+                       f"separate within- and between-{self.grouping} slopes of {self.param} on {self.trait}")
 
     @classmethod
     def of_spec(cls, param: str, spec, traits) -> list["SplitSlope"]:
@@ -271,6 +288,9 @@ class GroupIntercept:
 
     def needs(self) -> dict[str, set[str]]:
         return {"groups": {self.grouping}}
+
+    def record(self) -> dict[str, str]:
+        return _record(self.param, self.grouping, "random", f"random {self.grouping} effects on {self.param}")
 
     @property
     def centring_key(self) -> str:
@@ -337,6 +357,10 @@ class RandomSlope(GroupIntercept):
     def needs(self) -> dict[str, set[str]]:
         return {"traits": {self.trait}, "groups": {self.grouping}}
 
+    def record(self) -> dict[str, str]:
+        return _record(self.param, f"{self.trait}|{self.grouping}", "slopes",
+                       f"{self.grouping}-specific slopes of {self.param} on {self.trait}")
+
     @property
     def centring_key(self) -> str:
         return f"{self.trait}|{self.grouping}"
@@ -357,6 +381,9 @@ class LeafEffect:
 
     def needs(self) -> dict[str, set[str]]:
         return {}
+
+    def record(self) -> dict[str, str]:
+        return _record(self.param, LEAF_TERM, "random", f"leaf effects on {self.param}")
 
     def add_to(self, ctx: TermContext, design) -> None:
         design.add_leaf(self.place(ctx))

@@ -67,3 +67,29 @@ def test_a_model_option_is_a_term():
     terms = structure_terms({"structures": recs})
     assert one_term_pairs(["A", "B", "C"], terms) == [
         ("A", "B", "normal likelihood in A, Student-t likelihood in B"), ("B", "C", "C adds leaf effects on vcmax25")]
+
+
+def test_terms_record_themselves_and_a_smooth_is_a_term_of_its_own(quick_demo):
+    # the manifest record compare writes carries each term as its term object records it; a smooth trend is
+    # one term, so the smooth structure and month as fixed levels differ in two terms (no one-term contrast),
+    # and dropping the smooth is one
+    from dataclasses import replace
+
+    from leafcv.compare import structure_record
+
+    comparison, dataset, _ = quick_demo
+    smooth = comparison.structure("traits-season-smooth")
+    params = dict(smooth.params)
+    params["vcmax25"] = replace(params["vcmax25"], smooth=())
+    plain = replace(smooth, name="no-season", params=params)
+    recs = {st.name: json.loads(json.dumps(structure_record(st, dataset, comparison)))
+            for st in (smooth, plain, comparison.structure("traits-month-fixed"))}
+    terms = structure_terms({"structures": recs})
+    assert one_term_pairs(["traits-season-smooth", "no-season", "traits-month-fixed"], terms) == [
+        ("traits-season-smooth", "no-season", "traits-season-smooth adds a smooth trend of vcmax25 over day_of_year"),
+        ("no-season", "traits-month-fixed", "traits-month-fixed adds a fixed effect of campaign on vcmax25")]
+    # the recorded terms are those the parameter specs give, term for term
+    wide = json.loads(json.dumps(structure_record(comparison.structure("traits-month-random"), dataset, comparison)))
+    legacy = {k: v for k, v in wide.items() if k != "terms"}
+    got = structure_terms({"structures": {"new": wide, "old": legacy}})
+    assert {k: getattr(v, "how", v) for k, v in got["new"].items()} == got["old"]

@@ -11,7 +11,7 @@ import pytest
 
 import leafcv
 from leafcv import fvcb
-from leafcv.ranking import told_apart
+from leafcv.ranking import pair_verdict
 
 MONTH_STARTS = (121, 152, 182, 213)      # four monthly campaigns, each leaf on its own day of the month
 ROLES = {"net_assimilation": "a", "intercellular_co2": "ci", "photon_flux": "q", "leaf_temperature": "t",
@@ -48,23 +48,52 @@ def simulate(kind: str, n_leaves: int = 28, seed: int = 11) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
-def _ranked(kind: str, folder) -> pd.DataFrame:
+def _run(kind: str, folder):
     study = leafcv.from_frame(simulate(kind), roles=ROLES, structures=STRUCTURES, folder=folder,
                               groups=["month"], traits=["doy"], scale={"doy": 30},
                               sampler={"chains": 2, "warmup": 300, "draws": 300, "seed": 5, "adapt_delta": 0.95},
                               question=f"is the season a smooth trend or month levels ({kind} truth)?")
-    run = study.run(progress="quiet", workers=2)
-    return run.ranking.set_index("structure")
+    return study.run(progress="quiet", workers=2)
 
 
-def test_the_smooth_trend_wins_when_the_season_is_smooth(tmp_path):
-    table = _ranked("smooth", tmp_path)
-    smooth, months = table.loc["season-smooth"], table.loc["month-fixed"]
-    assert smooth["elpd"] > months["elpd"]
-    assert told_apart(table.reset_index(), "season-smooth", "month-fixed")
+def _verdict(run) -> tuple[float, bool]:
+    """Δelpd of season-smooth over month-fixed and whether leafcv's one decision rule tells them apart."""
+    table = run.ranking
+    rows = table.set_index("structure")
+    verdict = pair_verdict(table, "season-smooth", "month-fixed", run.pointwise)
+    return float(rows.loc["season-smooth", "elpd"] - rows.loc["month-fixed", "elpd"]), verdict.told_apart
+
+
+@pytest.fixture(scope="module")
+def smooth_run(tmp_path_factory):
+    return _run("smooth", tmp_path_factory.mktemp("smooth-season"))
+
+
+def test_the_smooth_trend_wins_when_the_season_is_smooth(smooth_run):
+    diff, apart = _verdict(smooth_run)
+    assert diff > 0 and apart, diff
 
 
 def test_the_smooth_trend_does_not_clearly_win_when_months_differ_independently(tmp_path):
-    table = _ranked("months", tmp_path)
-    smooth, months = table.loc["season-smooth"], table.loc["month-fixed"]
-    assert not (smooth["elpd"] > months["elpd"] and told_apart(table.reset_index(), "season-smooth", "month-fixed"))
+    diff, apart = _verdict(_run("months", tmp_path))
+    assert not (diff > 0 and apart), diff
+
+
+def test_new_leaves_inside_and_outside_the_observed_range(smooth_run):
+    # the population mean of log Vcmax25 at a day of year is, draw by draw, b0 + slope (doy - centre) / 30
+    # + the bend Z(doy) (tau_s z_s); outside the observed days the bend is held at the nearest end and only
+    # the straight line goes on, and the prediction says so
+    from leafcv.smooth import SplineBasis
+
+    new = pd.DataFrame({"leaf": ["inside", "early", "late"], "doy": [170.0, 60.0, 330.0]})
+    pred = smooth_run.predict("season-smooth", new)
+    assert len(pred.notes) == 1 and "2 new leaf/leaves lie outside the observed range of doy" in pred.notes[0]
+    post = smooth_run.fit("season-smooth").posterior
+    flat = {k: post[k].values.reshape((-1,) + post[k].shape[2:]) for k in ("b0", "beta", "tau_s", "z_s")}
+    days = simulate("smooth")[["leaf", "doy"]].drop_duplicates()["doy"].to_numpy(float)
+    basis = SplineBasis.fit(days, float(days.mean()), 30.0)
+    link = (flat["b0"][:, :1] + flat["beta"][:, :1] * (new["doy"].to_numpy() - days.mean()) / 30.0
+            + (flat["tau_s"] * flat["z_s"]) @ basis.columns(new["doy"].to_numpy()).T)
+    got = pred.parameters.set_index(["leaf", "parameter"])["median"]
+    for i, leaf in enumerate(new["leaf"]):
+        assert got[(leaf, "vcmax25")] == pytest.approx(float(np.exp(np.median(link[:, i]))), rel=1e-9)

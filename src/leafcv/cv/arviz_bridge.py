@@ -24,6 +24,7 @@ import pandas as pd
 import xarray as xr
 
 from .result import CVResult, check_comparable
+from ..data.dataset import LEAF_TERM
 
 LEAF_DIM = "leaf"
 
@@ -231,7 +232,7 @@ def to_datatree(fit, dataset, log_m: np.ndarray | None = None) -> xr.DataTree:
     if "diverging" in stats:
         stats["diverging"] = stats["diverging"].astype(bool)
     obs = dataset.obs.iloc[design.obs_index]
-    leaves = [str(x) for x in dataset.leaves["leaf"]]
+    leaves = [str(x) for x in dataset.leaves[LEAF_TERM]]
     point_leaf = [leaves[i] for i in obs["leaf_index"].to_numpy()]
     observed = xr.Dataset({"net_assimilation": ("point", obs["a_net"].to_numpy(float))},
                           coords={"point": np.arange(len(obs)), "point_leaf": ("point", point_leaf)})

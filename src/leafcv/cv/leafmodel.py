@@ -13,6 +13,7 @@ from .. import fvcb
 from ..data.dataset import Dataset
 from ..design import Design, heldout_levels, leaf_cov_chol, level_values, natural_values
 from ..terms import responses
+from ..data.dataset import LEAF_TERM
 
 
 def flatten_draws(params: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
@@ -80,7 +81,7 @@ class LeafModel:
             if missing:
                 from ..errors import SpecError
 
-                leaf_id = dataset.leaves["leaf"].iloc[leaf]
+                leaf_id = dataset.leaves[LEAF_TERM].iloc[leaf]
                 raise SpecError(design.structure.name, [
                     f"leaf {leaf_id!r} has {', '.join(missing)} curves, but the fit has no training points of that "
                     f"curve type, so their residual SD is unknown; use sigma = \"shared\" or keep such leaves in training"])

@@ -234,7 +234,7 @@ def run_in_process(steps: Plan, ctx: Context, on_output: Callable[[Task, TaskOut
 
 
 def cross_validate(structure: Structure, dataset: Dataset, comparison: Comparison, *, method: str = "auto",
-                   by: str = "leaf", folds: int = 10, spot_checks: int = 3, engine=None,
+                   by: str = LEAF_TERM, folds: int = 10, spot_checks: int = 3, engine=None,
                    leaf_fits: LeafFits, sampler: SamplerSpec | None = None,
                    keep: dict | None = None, estimates: bool = False) -> tuple[CVResult, CVDetails]:
     """Held-out scores of one structure by ``method`` (auto | exact | kfold), every task of its plan

@@ -64,7 +64,7 @@ class Setting:
 
     @cached_property
     def leaf_ids(self) -> tuple[str, ...]:
-        return tuple(self.dataset.leaves["leaf"].astype(str))
+        return tuple(self.dataset.leaves[LEAF_TERM].astype(str))
 
     def task(self, kind: str, what: str, payload: dict, inputs: tuple[str, ...] = ()) -> Task:
         """A task of this structure, labelled "<structure>: <what>"."""

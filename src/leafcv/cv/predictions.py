@@ -21,6 +21,7 @@ from scipy.special import logsumexp, ndtr
 
 from .leafmodel import LeafModel
 from .quadrature import prior_chol
+from ..data.dataset import LEAF_TERM
 
 #: Grid values per curve.
 GRID_POINTS = 40
@@ -127,6 +128,6 @@ def points_table(dataset, preds: dict[int, np.ndarray]) -> pd.DataFrame:
 
 def curves_table(dataset, curves: dict[int, pd.DataFrame]) -> pd.DataFrame:
     """Every leaf's curve summaries with its leaf id first."""
-    leaves = dataset.leaves["leaf"].astype(str).to_numpy()
+    leaves = dataset.leaves[LEAF_TERM].astype(str).to_numpy()
     parts = [c.assign(leaf=leaves[g])[["leaf"] + list(c.columns)] for g, c in sorted(curves.items())]
     return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=CURVE_COLUMNS)

@@ -20,6 +20,7 @@ import numpy as np
 import pandas as pd
 
 from .messages import MAX_LISTED, label
+from ..data.dataset import LEAF_TERM
 
 ROBUST_Z_LIMIT = 5.0               # common practice, no source
 MAD_TO_SD = 1.4826                 # 1 / Phi^-1(0.75): the MAD of a normal distribution is 0.6745 SD
@@ -29,7 +30,7 @@ MEAN_AD_TO_SD = 1.2533             # sqrt(pi / 2): the mean absolute deviation o
 def trait_warnings(leaves: pd.DataFrame, traits: Sequence[str]) -> list[str]:
     """One warning per trait that is constant across two or more leaves or has outlying leaves."""
     warnings = []
-    leaf_ids = leaves["leaf"].to_numpy(dtype=object)
+    leaf_ids = leaves[LEAF_TERM].to_numpy(dtype=object)
     for name in traits:
         values = leaves[name].to_numpy(dtype=float)
         if len(values) < 2:

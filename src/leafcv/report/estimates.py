@@ -7,7 +7,8 @@ posterior ``b0`` over dimension ``parameter`` (intercepts on each parameter's li
 ``parameter_link`` and ``parameter_ratio_to_vcmax25``), ``beta`` over ``coefficient`` (coordinates
 ``coefficient_label`` where written, ``coefficient_parameter``, ``coefficient_kind`` — trait, level,
 within, between — ``coefficient_term``, ``coefficient_grouping`` and ``coefficient_scale``), ``tau`` over
-``group_term`` (``group_term_parameter``), ``tau_leaf`` over its one dimension (``leaf_term`` or
+``group_term`` (``group_term_parameter``), ``tau_s`` over ``smooth_term`` (``smooth_term_parameter``,
+``smooth_term_low`` and ``smooth_term_high``: the covariate's observed range), ``tau_leaf`` over its one dimension (``leaf_term`` or
 ``parameter``), ``sigma`` (over ``sigma_group`` or none), ``leaf_corr`` where present, and ``leaf_value``
 (chain, draw, leaf, parameter) on the natural scale. Nothing is read from words (labels, prior lines).
 A fit without these coordinates (written by an earlier version) gives no estimates, and says so.
@@ -28,6 +29,7 @@ import pandas as pd
 from scipy.special import expit
 
 from ..spec import LINKS
+from ..data.dataset import LEAF_TERM
 
 LEVELS = (0.05, 0.95)
 NATURAL_UNIT = {"vcmax25": "µmol m⁻² s⁻¹", "jmax25": "µmol m⁻² s⁻¹", "rd25": "µmol m⁻² s⁻¹",
@@ -38,7 +40,8 @@ NATURAL_UNIT = {"vcmax25": "µmol m⁻² s⁻¹", "jmax25": "µmol m⁻² s⁻¹
 COORDINATES = {"parameter": ("parameter_link", "parameter_ratio_to_vcmax25"),
                "coefficient": ("coefficient_parameter", "coefficient_kind", "coefficient_term",
                                "coefficient_grouping", "coefficient_scale"),
-               "group_term": ("group_term_parameter",)}
+               "group_term": ("group_term_parameter",),
+               "smooth_term": ("smooth_term_parameter", "smooth_term_low", "smooth_term_high")}
 
 
 def labelled(idata) -> tuple[bool, str]:
@@ -105,6 +108,13 @@ def population_table(idata) -> pd.DataFrame:
         for k, label in enumerate(str(v) for v in tau["group_term"].values):
             add(f"SD of {label}", f"SD, {_link_of(params[k], ratio)} scale", _draws(tau.isel(group_term=k)),
                 f"tau[{label}]")
+    if "tau_s" in post and post["tau_s"].sizes.get("smooth_term", 0):
+        tau_s = post["tau_s"]
+        params = _coord(tau_s, "smooth_term_parameter")
+        low, high = (_coord(tau_s, f"smooth_term_{end}") for end in ("low", "high"))
+        for k, label in enumerate(str(v) for v in tau_s["smooth_term"].values):
+            add(f"SD of the bends of the {label} (0 = a straight line; fitted over {float(low[k]):g}-{float(high[k]):g})",
+                f"SD, {_link_of(params[k], ratio)} scale", _draws(tau_s.isel(smooth_term=k)), f"tau_s[{label}]")
     for name, what in (("tau_leaf", "SD of leaf effects on {}"), ("leaf_corr", "correlation of leaf effects on {}")):
         if name not in post:
             continue
@@ -157,8 +167,9 @@ def _coefficient_rows(beta, ratio: set[str]) -> list[dict]:
             per = scales[k]
             per_text = (f"per {per:g} unit{'' if per == 1 else 's'} of {trait}" if np.isfinite(per)
                         else f"per unit of {trait} as scaled in the fit")
-            slope = f"{kind}-{group} slope" if kind in ("within", "between") else "slope"
-            what = f"{target}: {slope} on {trait}, {per_text}"
+            slope = {"within": f"within-{group} slope on", "between": f"between-{group} slope on",
+                     "smooth": "straight-line part of the smooth trend over"}.get(kind, "slope on")
+            what = f"{target}: {slope} {trait}, {per_text}"
         rows.append({"quantity": what, "scale": scale, **_summary(value), "variable": f"beta[{label}]"})
         if kind == "within":
             within[(p, trait, group)] = x[:, k]
@@ -181,7 +192,7 @@ def leaf_table(idata) -> pd.DataFrame | None:
     lv = post["leaf_value"].transpose("chain", "draw", "leaf", "parameter")
     x = lv.values.reshape((-1,) + lv.shape[2:])
     q = np.quantile(x, [0.5, *LEVELS], axis=0)          # (3, leaf, parameter)
-    out = {"leaf": [str(v) for v in lv["leaf"].values]}
+    out = {"leaf": [str(v) for v in lv[LEAF_TERM].values]}
     for j, p in enumerate(str(v) for v in lv["parameter"].values):
         out[p] = q[0, :, j]
         out[f"{p}_q05"] = q[1, :, j]

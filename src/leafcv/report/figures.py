@@ -22,6 +22,7 @@ from matplotlib.ticker import FuncFormatter
 from matplotlib.transforms import blended_transform_factory
 
 from .files import write_bytes, write_text
+from ..data.dataset import LEAF_TERM
 
 #: Okabe & Ito 2008 palette, ordered for categories (yellow late: low contrast on white).
 PALETTE = ("#0072B2", "#E69F00", "#009E73", "#D55E00", "#CC79A7", "#56B4E9", "#F0E442", "#000000")
@@ -168,7 +169,7 @@ def leaves_figure(data: pd.DataFrame, unit: str, group: str | None) -> Figure:
             ax.set_ylim(min(0, np.nanmin(d["delta"])) - 0.4 * span, max(0, np.nanmax(d["delta"])) + 0.4 * span)
             best = d["best"].iloc[0]
             ax.set_title(f"{best} against {other}: total {np.nansum(d['delta']):.1f} nats", loc="left")
-            ax.set_ylabel("Δelpd per " + ("leaf" if unit == "leaf" else unit) + " (nats)")
+            ax.set_ylabel("Δelpd per " + ("leaf" if unit == LEAF_TERM else unit) + " (nats)")
             if len(levels) > 1:
                 centres = [x[d["group"].to_numpy() == g].mean() for g in levels if (d["group"] == g).any()]
                 ax.set_xticks(centres, [g for g in levels if (d["group"] == g).any()])
@@ -177,7 +178,7 @@ def leaves_figure(data: pd.DataFrame, unit: str, group: str | None) -> Figure:
             else:
                 ax.set_xticks([])
         axes[-1].set_xlabel((f"{'leaves' if unit == 'leaf' else 'levels of ' + unit}, grouped by {group}"
-                             if group and len(levels) > 1 else ("leaves" if unit == "leaf" else f"levels of {unit}"))
+                             if group and len(levels) > 1 else ("leaves" if unit == LEAF_TERM else f"levels of {unit}"))
                             + f" (the {LABELLED_LEAVES} largest |Δ| labelled; above 0 the best predicts it better)")
         fig.tight_layout()
     return fig
@@ -241,7 +242,7 @@ def khat_figure(data: pd.DataFrame, unit: str) -> Figure:
         fig.legend(handles, names, loc="upper center", ncol=2 if len(handles) > 3 else len(handles), frameon=False,
                    bbox_to_anchor=(0.5, 1.0))
         ax.set_ylabel("Pareto k̂")
-        ax.set_xlabel("leaf" if unit == "leaf" else f"level of {unit}")
+        ax.set_xlabel("leaf" if unit == LEAF_TERM else f"level of {unit}")
         if len(units) <= 40:
             ax.set_xticks(range(len(units)), units, rotation=90, fontsize=6.5)
         else:

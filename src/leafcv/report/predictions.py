@@ -14,6 +14,7 @@ from matplotlib.figure import Figure
 from ..cv.predictions import VARIED
 from .figures import GREY, STYLE, WIDTH_IN, colour, save
 from .html import Column, Tables, esc, figure, number
+from ..data.dataset import LEAF_TERM
 
 CURVE_NAMES = {"aci": "A–Ci curves", "aq": "A–Q curves"}
 AXIS = {"ci": "Ci (µmol mol⁻¹)", "ppfd": "PPFD (µmol m⁻² s⁻¹)"}
@@ -97,7 +98,7 @@ def curves_data(run, structures: list[str], leaves: pd.DataFrame, points: pd.Dat
     """Grid rows (mean, 5 % and 95 % of a new observation) of ``leaves`` under each structure, and their
     observed points (kind "observed", from ``points``, the first structure's points table)."""
     parts = []
-    ids = set(leaves["leaf"].astype(str))
+    ids = set(leaves[LEAF_TERM].astype(str))
     for s in structures:
         c = _read(run.path, s, "curves")
         if c is not None:
@@ -160,7 +161,7 @@ def predictions_html(run, tables: Tables) -> str:
                  Column("structure", "structure"), Column("curve_type", "curves"), Column("points", "points", ".0f"),
                  Column("rmse", "RMSE", ".3g"), Column("r2", "R²", ".3g")],
                  "Held-out RMSE (µmol m⁻² s⁻¹) and R² by curve type.")]
-    if run.pointwise is not None and f"elpd:{top[0]}" in run.pointwise and run.unit == "leaf":
+    if run.pointwise is not None and f"elpd:{top[0]}" in run.pointwise and run.unit == LEAF_TERM:
         leaves = curve_leaves(run, top[0], points[top[0]])
         shown = top[:2]
         cd = curves_data(run, shown, leaves, points[top[0]])

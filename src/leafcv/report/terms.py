@@ -16,7 +16,10 @@ Tests: tests/report/test_structure_terms.py, tests/report/test_report_page.py.
 """
 from __future__ import annotations
 
+from dataclasses import dataclass
 from itertools import combinations
+
+from ..data.dataset import LEAF_TERM
 
 #: Term key -> how it enters (for a model option, keyed ("model", option), its value).
 Terms = dict[tuple[str, str], object]
@@ -33,7 +36,25 @@ OPTION_WORDS = {
 }
 
 
+@dataclass(frozen=True)
+class Recorded:
+    """A term as its term object recorded it (how it enters, and its own words)."""
+
+    how: str
+    words: str
+
+
+def _from_records(record: dict) -> Terms:
+    """The terms the structure's term objects recorded (``terms`` of its manifest record), and ratios."""
+    terms: Terms = {(t["parameter"], t["key"]): Recorded(t["how"], t["words"]) for t in record["terms"]}
+    for p, spec in record["params"].items():
+        if spec.get("ratio_to"):
+            terms[(p, spec["ratio_to"])] = "ratio"
+    return terms
+
+
 def _from_params(params: dict) -> Terms:
+    """The terms of a manifest written before terms recorded themselves (read from the parameter specs)."""
     terms: Terms = {}
     for p, spec in params.items():
         for v in spec.get("fixed", []):
@@ -59,7 +80,7 @@ def structure_terms(manifest: dict) -> dict[str, Terms]:
     for name, record in manifest.get("structures", {}).items():
         if "params" not in record:
             continue
-        terms = _from_params(record["params"])
+        terms = _from_records(record) if "terms" in record else _from_params(record["params"])
         for key, value in (record.get("model") or {}).items():
             terms[("model", key)] = value
         terms[("model", "leaf_correlation")] = bool(record.get("leaf_correlation", False))
@@ -67,11 +88,13 @@ def structure_terms(manifest: dict) -> dict[str, Terms]:
     return out
 
 
-def _how(how: str, p: str, v: str) -> str:
+def _how(how, p: str, v: str) -> str:
+    if isinstance(how, Recorded):
+        return how.words
     if how == "fixed":
         return f"a fixed effect of {v} on {p}"
     if how == "random":
-        return f"leaf effects on {p}" if v == "leaf" else f"random {v} effects on {p}"
+        return f"leaf effects on {p}" if v == LEAF_TERM else f"random {v} effects on {p}"
     if how == "ratio":
         return f"{p} tied to {v} as a ratio"
     if how == "slopes":

@@ -31,6 +31,7 @@ from .predictions import predictions_html
 from .reliability import reliability_html
 from .run import RunFolder, leaf_groups, load_run
 from .terms import structure_terms
+from ..data.dataset import LEAF_TERM
 
 log = logging.getLogger("leafcv")
 
@@ -71,7 +72,7 @@ def _leaves_html(run: RunFolder, tables: Tables, group: str | None) -> str:
         return "<p>Fewer than two ranked structures: there is no contrast to break down by leaf.</p>"
     best, others = str(ranked.iloc[0]["structure"]), [str(s) for s in ranked["structure"].iloc[1:3]]
     units = units_word(run.unit)
-    groups, columns, where = leaf_groups(run) if run.unit == "leaf" else (None, [], "")
+    groups, columns, where = leaf_groups(run) if run.unit == LEAF_TERM else (None, [], "")
     if group is not None and group not in columns:
         raise UserInputError(str(run.path), [f"--group {group!r} is not a group column of this run's data; "
                                              f"valid: {', '.join(columns) or 'none'}"])
