@@ -65,6 +65,8 @@ def _from_params(params: dict) -> Terms:
             terms[(p, t)] = f"split:{g}"
         for t, g in spec.get("slopes", []):
             terms[(p, f"{t}|{g}")] = "slopes"
+        for c in spec.get("smooth", []):
+            terms[(p, c)] = "smooth"
         if spec.get("ratio_to"):
             terms[(p, spec["ratio_to"])] = "ratio"
     return terms
@@ -100,6 +102,8 @@ def _how(how, p: str, v: str) -> str:
     if how == "slopes":
         t, g = v.split("|", 1)
         return f"{g}-specific slopes of {p} on {t}"
+    if how == "smooth":
+        return f"a smooth trend of {p} over {v}"
     if how.startswith("split:"):
         return f"separate within- and between-{how[6:]} slopes of {p} on {v}"
     return f"{v} on {p} ({how})"
