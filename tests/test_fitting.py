@@ -27,7 +27,7 @@ def test_a_refit_is_scaled_by_the_full_fits_posterior_means_and_sds(quick_demo):
     sc = warm_scaling(full, refit)
     d = refit.stan_data
     sizes = {"b0_free": len(refit.params), "beta": d["K"], "log_tau": d["R"], "u_c": d["Qc"], "u_v": d["Q"] - d["Qc"],
-             "log_tau_leaf": d["Rl"], "eta_c": d["Mc"], "eta_z": d["Mn"], "log_sigma": d["S"]}
+             "log_tau_leaf": d["Rl"], "eta_c": d["Mc"], "eta_z": d["Mn"], "log_tau_s": d["Rs"], "z_s": d["Ms"], "log_sigma": d["S"]}
     at = np.cumsum([0] + [sizes[k] for k in FREE_BLOCKS])
     assert sc["n_scale"] == at[-1] == len(sc["scale_offset"]) == len(sc["scale_mult"])
     block = {k: slice(at[i], at[i + 1]) for i, k in enumerate(FREE_BLOCKS)}

@@ -38,11 +38,16 @@ def demo_dir(tmp_path_factory) -> Path:
     return folder
 
 
-def header(demo_dir: Path, groups=("taxon", "campaign"), traits=("n_area", "chl_ug", "sla_m2kg")) -> str:
+def header(demo_dir: Path, groups=("taxon", "campaign"), traits=("n_area", "chl_ug", "sla_m2kg", "day_of_year")) -> str:
+    """The demo's comparison file up to its first structure, in format 2, with `groups` and `traits`."""
     text = (demo_dir / "demo.toml").read_text()
     head = text[:text.index("[[structure]]")].replace("format = 1", "format = 2")
-    head = head.replace('groups = ["taxon", "campaign"]', "groups = [" + ", ".join(f'"{g}"' for g in groups) + "]")
-    return head.replace('traits = ["n_area", "chl_ug", "sla_m2kg"]', "traits = [" + ", ".join(f'"{t}"' for t in traits) + "]")
+    lists = {"groups": groups, "traits": traits}
+    lines = []
+    for line in head.splitlines():
+        key = line.split("=")[0].strip()
+        lines.append(f"{key} = [" + ", ".join(f'"{v}"' for v in lists[key]) + "]" if key in lists else line)
+    return "\n".join(lines) + "\n"
 
 
 def write(demo_dir: Path, body: str, name: str = "c.toml", **kw) -> Path:
@@ -260,7 +265,7 @@ alpha = { random = ["leaf"] }
      ["structure 'a', vcmax25.split.n_area: every level of 'plot' has one leaf"]),
     ('vcmax25 = { fixed = ["n_area"], split = { n_area = "taxon" } }', {},
      ["'n_area' is both in fixed and in split"]),
-    ('vcmax25 = { fixed = ["n_area", "n_twice"] }', {"traits": ("n_area", "chl_ug", "sla_m2kg", "n_twice")},
+    ('vcmax25 = { fixed = ["n_area", "n_twice"] }', {"traits": ("n_area", "chl_ug", "sla_m2kg", "day_of_year", "n_twice")},
      ["structure 'a': vcmax25: fixed term 'n_twice' is perfectly collinear with the intercept and 'n_area'"]),
     ('vcmax25 = { fixed = ["taxon"], split = { n_area = "taxon" } }', {},
      ["structure 'a': vcmax25: fixed term 'n_area between taxon' is perfectly collinear"]),
@@ -273,7 +278,7 @@ def test_term_errors(demo_dir, body, kw, fragments):
 
 def test_trait_varying_within_leaves_names_the_structures(demo_dir):
     text = problems(demo_dir, '[[structure]]\nname = "a"\nvcmax25 = { fixed = ["wobbly"] }\n' + BASE,
-                    traits=("n_area", "chl_ug", "sla_m2kg", "wobbly"))
+                    traits=("n_area", "chl_ug", "sla_m2kg", "day_of_year", "wobbly"))
     assert "must be constant within a leaf" in text and "structure 'a' uses 'wobbly' on vcmax25" in text
 
 
@@ -318,7 +323,7 @@ def test_design_errors_are_reported_for_every_structure(demo_dir):
     # a data problem in one structure must not hide a collinear term in the next
     text = problems(demo_dir, '[[structure]]\nname = "a"\nvcmax25 = { fixed = ["n_area"], slopes = { n_area = "site" } }\n'
                     + BASE + '\n[[structure]]\nname = "b"\nvcmax25 = { fixed = ["n_area", "n_twice"] }\n' + BASE,
-                    groups=("taxon", "site"), traits=("n_area", "chl_ug", "sla_m2kg", "n_twice"))
+                    groups=("taxon", "site"), traits=("n_area", "chl_ug", "sla_m2kg", "day_of_year", "n_twice"))
     assert "structure 'a', vcmax25.slopes.n_area: grouping 'site' has a single level" in text
     assert "structure 'b': vcmax25: fixed term 'n_twice' is perfectly collinear" in text
 

@@ -19,6 +19,7 @@ tests/sampling/test_fitting.py.
 """
 from __future__ import annotations
 
+import textwrap
 from dataclasses import dataclass, replace
 from pathlib import Path
 
@@ -102,16 +103,21 @@ def simulate(n_leaves: int, seed: int = 20261202) -> tuple[pd.DataFrame, pd.Data
 
 #: The default demo also asks whether leaves differ at all (the "pooled" baseline, one value shared by
 #: all leaves); the quick demo leaves that baseline out and asks only the season and trait question.
-QUESTION = ("do Vcmax25 and alpha need leaf effects, which traits shift them, and is the season better\n"
-            "# month as fixed levels, month as random levels or a smooth trend over the day of year?")
-QUESTION_QUICK = ("which traits shift Vcmax25 and alpha, and is the season better month fixed, month random or a\n"
-                  "# smooth trend over the day of year?")
+QUESTION = ("do Vcmax25 and alpha need leaf effects, which traits shift them, and is the season better "
+            "month as fixed levels, month as random levels or a smooth trend over the day of year?")
+QUESTION_QUICK = ("which traits shift Vcmax25 and alpha, and is the season better month fixed, month random or a "
+                  "smooth trend over the day of year?")
 POOLED = """[[structure]]
 name = "pooled"
 jmax25 = { ratio_to = "vcmax25" }
 rd25 = { ratio_to = "vcmax25" }
 
 """
+
+def _comment_lines(text: str, width: int = 100) -> str:
+    """`text` wrapped for the template's "# Question: " line, its continuation lines commented."""
+    return "\n# ".join(textwrap.wrap(text, width - len("# Question: "), break_long_words=False))
+
 
 COMPARISON_TEMPLATE = """\
 # leafcv demo comparison: an invented field station, four coded species, three monthly campaigns.
@@ -200,7 +206,7 @@ def write_demo(folder: Path, quick: bool = False, seed: int = 20261202, n_leaves
     truth.to_csv(folder / "truth.csv", index=False)
     toml = COMPARISON_TEMPLATE.format(n_centre=N_CENTRE, chl_centre=CHL_CENTRE, sla_centre=SLA_CENTRE,
                                       chains=size.chains, warmup=size.warmup, draws=size.draws,
-                                      question=QUESTION_QUICK if quick else QUESTION,
+                                      question=_comment_lines(QUESTION_QUICK if quick else QUESTION),
                                       pooled="" if quick else POOLED)
     path = folder / "demo.toml"
     path.write_text(toml)
